@@ -1,0 +1,76 @@
+"""Ordered, recorded migrations of the tablet's SQLite file.
+
+Each migration is a module with ``NAME`` and ``apply(conn)``; ``MIGRATIONS`` lists them in order. Applied names
+are recorded in ``baulk_migration``; ``pending()`` and ``applied()`` are read-only. ``upgrade()`` applies every
+pending step in one transaction, so a failed step leaves the file exactly as it was. A file whose recorded
+migrations are not a prefix of this list was written by a newer Baulk and is refused rather than touched.
+
+To change the tablet's tables: change the model in ``schema/records``, then add the next ``mNNNN_*.py`` here
+that brings an old file to the new shape (``tests/mobile/test_migrations.py`` checks the two agree).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from types import ModuleType
+
+from sqlalchemy.engine import Connection
+
+from schema.errors import MigrationFailed, StoreTooNew
+
+from . import m0001_initial, m0002_find_flags
+
+__all__ = ["MIGRATIONS", "applied", "pending", "upgrade"]
+
+MIGRATIONS: tuple[ModuleType, ...] = (m0001_initial, m0002_find_flags)
+
+_TABLE = """CREATE TABLE IF NOT EXISTS baulk_migration (
+    name VARCHAR PRIMARY KEY,
+    applied_at VARCHAR NOT NULL
+)"""
+
+
+def applied(conn: Connection) -> list[str]:
+    """Names of the migrations recorded in this file, in the order applied."""
+    has = conn.exec_driver_sql(
+        "SELECT 1 FROM sqlite_master WHERE type='table' AND name='baulk_migration'"
+    ).first()
+    if not has:
+        return []
+    return [r[0] for r in conn.exec_driver_sql("SELECT name FROM baulk_migration ORDER BY rowid")]
+
+
+def pending(conn: Connection) -> list[str]:
+    """Names of the migrations this file still needs."""
+    done = applied(conn)
+    known = [m.NAME for m in MIGRATIONS]
+    if done != known[: len(done)]:
+        extra = [n for n in done if n not in known]
+        raise StoreTooNew(
+            f"this tablet file has migrations this Baulk does not know ({', '.join(extra) or 'in another order'}); "
+            "update Baulk on this tablet before opening it"
+        )
+    return known[len(done):]
+
+
+def upgrade(conn: Connection, *, until: str | None = None) -> list[str]:
+    """Apply pending migrations (up to and including ``until``) in the caller's transaction."""
+    conn.exec_driver_sql(_TABLE)
+    todo = pending(conn)
+    if until is not None:
+        todo = todo[: todo.index(until) + 1] if until in todo else []
+    by_name = {m.NAME: m for m in MIGRATIONS}
+    for name in todo:
+        try:
+            with conn.begin_nested():
+                by_name[name].apply(conn)
+        except Exception as exc:  # noqa: BLE001 - reported with the step that failed
+            raise MigrationFailed(
+                f"tablet file upgrade step {name} failed ({exc}); the file was left unchanged. "
+                "Keep the file and send it to the data manager"
+            ) from exc
+        conn.exec_driver_sql(
+            "INSERT INTO baulk_migration (name, applied_at) VALUES (?, ?)",
+            (name, dt.datetime.now(dt.timezone.utc).isoformat()),
+        )
+    return todo

@@ -1,0 +1,23 @@
+"""Tablet settings: where the store lives. Environment variables start with ``BAULK_TABLET_``."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import platformdirs
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+__all__ = ["TabletSettings"]
+
+
+def _default_store() -> Path:
+    return Path(platformdirs.user_data_dir("baulk", appauthor=False)) / "tablet.sqlite"
+
+
+class TabletSettings(BaseSettings):
+    """Settings of the tablet app; the store defaults to a file in the platform's user data folder."""
+
+    model_config = SettingsConfigDict(env_prefix="BAULK_TABLET_", extra="forbid")
+
+    store_path: Path = Field(default_factory=_default_store, description="the tablet's SQLite file")

@@ -1,0 +1,157 @@
+"""The tablet's local store: one SQLite file (WAL, synchronous=FULL, foreign keys on).
+
+Every write goes through ``atomic()``; a find and its sample details are saved together or not at all. The file
+is upgraded on open by the ordered migrations in ``mobile.migrations`` (a tablet that syncs late on an old file
+is brought up to date without losing a row).
+"""
+
+from __future__ import annotations
+
+import uuid
+from pathlib import Path
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection
+
+from schema import db
+from schema.errors import FieldProblem, NoNumbersLeft, RecordInvalid, StoreError
+from schema.records import Device, Find, NumberBlock, Sample
+from schema.store import RecordStore
+from schema.tables import metadata
+from schema.validation import check
+
+from . import migrations
+
+__all__ = ["TabletStore"]
+
+class TabletStore(RecordStore):
+    """A tablet's SQLite file. Open with ``TabletStore.open(path)``; close with ``close()`` or ``with``."""
+
+    def __init__(self, path: Path, engine: sa.Engine):
+        super().__init__(engine)
+        self.path = path
+
+    @classmethod
+    def open(cls, path: Path | str, *, upgrade: bool = True) -> "TabletStore":
+        """Open (creating if needed) the store at ``path`` and bring it to the current migration."""
+        path = Path(path)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise StoreError(f"cannot create the folder for the tablet store {path}: {exc.strerror}") from None
+        store = cls(path, db.sqlite_engine(path))
+        if upgrade:
+            with store.atomic() as conn:
+                migrations.upgrade(conn)
+        return store
+
+    # -- identity and numbering ----------------------------------------------------------------------------
+    def set_identity(self, *, device: Device) -> None:
+        """Record which device this tablet is (after enrollment)."""
+        with self.atomic() as conn:
+            self.put(device)
+            conn.exec_driver_sql(
+                "INSERT INTO local_setting (key, value) VALUES ('device_id', ?) "
+                "ON CONFLICT(key) DO UPDATE SET value = excluded.value",
+                (str(device.id),),
+            )
+
+    def device_id(self) -> uuid.UUID | None:
+        with self.read() as conn:
+            row = conn.exec_driver_sql("SELECT value FROM local_setting WHERE key='device_id'").first()
+            return uuid.UUID(row[0]) if row else None
+
+    def add_number_block(self, *, block: NumberBlock) -> None:
+        self.add(block)
+
+    def number_blocks(self) -> list[NumberBlock]:
+        me = self.device_id()
+        if me is None:
+            return []
+        return self.list(NumberBlock, device_id=me, order_by="first")
+
+    def next_find_number(self) -> int:
+        """The next unused number from this device's blocks."""
+        me = self.device_id()
+        blocks = self.number_blocks()
+        with self.read() as conn:
+            t = metadata.tables["find"]
+            used = conn.execute(sa.select(sa.func.max(t.c.number)).where(t.c.device_id == me)).scalar() or 0
+        for b in blocks:
+            if b.last > used:
+                return max(b.first, used + 1)
+        raise NoNumbersLeft(
+            "this tablet has used every find number it was issued; sync with the camp server to get a new block"
+        )
+
+    # -- finds ---------------------------------------------------------------------------------------------
+    def save_find(self, *, find: Find | dict[str, Any], sample: Sample | dict[str, Any] | None = None) -> Find:
+        """Validate and save a find (and its sample details) in one transaction; returns the saved find."""
+        data = find.model_dump() if isinstance(find, Find) else dict(find)
+        me = self.device_id()
+        if me is not None:
+            data.setdefault("device_id", me)
+        context = {"number_blocks": self.number_blocks()} if me is not None and data.get("device_id") == me else None
+        saved = check(Find, data, context=context)
+        details = self._sample_for(saved, sample)
+        with self.atomic() as conn:
+            db.insert(conn, saved)
+            if details is not None:
+                db.insert(conn, details)
+        return saved
+
+    @staticmethod
+    def _sample_for(find: Find, sample: Sample | dict[str, Any] | None) -> Sample | None:
+        if find.category == "sample" and sample is None:
+            raise RecordInvalid("find", [FieldProblem(
+                "sample", "a find of category 'sample' has no sample details",
+                "give its purpose and container (and volume or mass)",
+            )])
+        if find.category != "sample" and sample is not None:
+            raise RecordInvalid("find", [FieldProblem(
+                "sample", f"sample details were given for a {find.category}", "set category to 'sample' or drop them",
+            )])
+        if sample is None:
+            return None
+        data = sample.model_dump() if isinstance(sample, Sample) else dict(sample)
+        data["find_id"] = find.id
+        return check(Sample, data, record="sample")
+
+    def void_find(self, *, find_id: uuid.UUID, reason: str) -> Find:
+        """Void a find (records are voided, never deleted); it keeps its number."""
+        with self.atomic() as conn:
+            current = db.get(conn, Find, find_id)
+            voided = check(Find, {**current.model_dump(), "voided": True, "void_reason": reason})
+            db.update(conn, voided)
+        return voided
+
+    # -- health --------------------------------------------------------------------------------------------
+    def integrity_check(self) -> str:
+        """SQLite's ``PRAGMA integrity_check``: ``'ok'`` when the file is sound."""
+        with self.engine.connect() as conn:
+            return str(conn.exec_driver_sql("PRAGMA integrity_check").scalar())
+
+    def pragmas(self) -> dict[str, Any]:
+        with self.engine.connect() as conn:
+            return {name: conn.exec_driver_sql(f"PRAGMA {name}").scalar() for name, _ in db.SQLITE_PRAGMAS}
+
+
+def inspect_file(path: Path) -> dict[str, Any]:
+    """A read-only report on a tablet file: integrity, applied and pending upgrade steps, record counts."""
+    engine = db.sqlite_engine(path)
+    try:
+        with engine.connect().execution_options(baulk_read=True) as conn:
+            integrity = str(conn.exec_driver_sql("PRAGMA integrity_check").scalar())
+            done = migrations.applied(conn)
+            todo = migrations.pending(conn)
+            tables = {r[0] for r in conn.exec_driver_sql("SELECT name FROM sqlite_master WHERE type='table'")}
+            counts = {
+                name: int(conn.exec_driver_sql(f'SELECT count(*) FROM "{name}"').scalar_one())
+                for name in db.record_names() if name in tables
+            }
+    except sa.exc.DatabaseError as exc:
+        raise StoreError(f"{path} is not a readable tablet file ({exc.orig}); keep it and ask the data manager") from None
+    finally:
+        engine.dispose()
+    return {"integrity": integrity, "applied": done, "pending": todo, "counts": counts}

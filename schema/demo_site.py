@@ -1,0 +1,251 @@
+"""An invented excavation for the demo, the benchmarks and test fixtures. Nothing here is a real place.
+
+"Vellan Lake Margin" (code VLM) is an invented open-air site on the margin of a rift-basin palaeolake: lake
+silts over a grey volcanic-ash marker bed (tuff VL-1), deltaic sands and lower clays, cut by a small channel in
+trench TR2. Three trenches, twelve units in four horizons, three tablets (TAB-1..3) worked by recorders
+AK, MO and JT. Values come from a seed, so a run repeats exactly except for the record ids (fresh UUIDs).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import random
+from dataclasses import dataclass, field
+from typing import Any
+
+from .records import (
+    ControlPoint, Find, Horizon, LevelPoint, Relation, Sample, Season, Site, Spit, Trench, Unit,
+)
+
+__all__ = ["DemoSite", "TabletPlan", "build_site", "plan_finds"]
+
+TZ = dt.timezone(dt.timedelta(hours=3))
+SEASON_START = dt.date(2026, 7, 1)
+
+# code, label, order
+HORIZONS = (
+    ("H1", "Upper lake silts", 1),
+    ("H2", "Grey tuff marker VL-1", 2),
+    ("H3", "Deltaic sands", 3),
+    ("H4", "Lower clays", 4),
+)
+
+# trench code, outline (grid E, N), ground surface Z, tablet label, recorder
+TRENCHES = (
+    ("TR1", [(1000.0, 2000.0), (1004.0, 2000.0), (1004.0, 2003.0), (1000.0, 2003.0)], 100.00, "TAB-1", "AK"),
+    ("TR2", [(1010.0, 2005.0), (1013.0, 2005.0), (1013.0, 2008.0), (1010.0, 2008.0)], 100.35, "TAB-2", "MO"),
+    ("TR3", [(1020.0, 1995.0), (1022.0, 1995.0), (1022.0, 2000.0), (1020.0, 2000.0)], 99.80, "TAB-3", "JT"),
+)
+
+# unit code, trench, kind, horizon (None for a cut), thickness (m), texture, Munsell (moist), description
+UNITS = (
+    ("101", "TR1", "deposit", "H1", 0.35, "silt_loam", "10YR 5/3", "laminated lake silt, rootlet casts"),
+    ("102", "TR1", "deposit", "H2", 0.20, "volcanic_ash", "2.5Y 7/2", "grey vitric tuff, normally graded"),
+    ("103", "TR1", "deposit", "H3", 0.40, "sand", "10YR 6/4", "cross-bedded medium sand with pebbles"),
+    ("104", "TR1", "deposit", "H4", 0.30, "clay", "5Y 4/2", "massive olive clay, carbonate nodules"),
+    ("201", "TR2", "deposit", "H1", 0.30, "silt_loam", "10YR 5/3", "lake silt"),
+    ("202", "TR2", "cut", None, 0.00, None, None, "channel cut, steep east side"),
+    ("203", "TR2", "fill", "H1", 0.25, "loamy_sand", "10YR 4/3", "channel fill, coarse sand and bone"),
+    ("204", "TR2", "deposit", "H2", 0.20, "volcanic_ash", "2.5Y 7/2", "grey tuff, eroded top"),
+    ("205", "TR2", "deposit", "H3", 0.45, "sand", "10YR 6/4", "deltaic sand"),
+    ("301", "TR3", "deposit", "H1", 0.30, "silt", "10YR 5/2", "lake silt, ostracod-rich"),
+    ("302", "TR3", "deposit", "H2", 0.25, "volcanic_ash", "2.5Y 7/2", "grey tuff"),
+    ("303", "TR3", "deposit", "H4", 0.35, "silty_clay", "5Y 4/2", "olive clay"),
+)
+
+# upper, lower, kind
+RELATIONS = (
+    ("101", "102", "above"), ("102", "103", "above"), ("103", "104", "above"),
+    ("201", "203", "above"), ("203", "202", "fills"), ("202", "204", "cuts"), ("204", "205", "above"),
+    ("301", "302", "above"), ("302", "303", "above"),
+    ("102", "204", "same_as"), ("102", "302", "same_as"),
+)
+
+FOSSIL_TAXA = (
+    ("Hippopotamidae", "molar"), ("Bovidae", "horn core"), ("Crocodylidae", "tooth"), ("Suidae", "canine"),
+    ("Equidae", "metapodial"), ("Cichlidae", "vertebra"), ("Testudines", "carapace fragment"),
+    ("Mammalia indet.", "long bone shaft"),
+)
+
+
+@dataclass
+class DemoSite:
+    """The site set-up every tablet and the server share."""
+
+    site: Site
+    season: Season
+    control_points: list[ControlPoint]
+    trenches: dict[str, Trench]
+    horizons: dict[str, Horizon]
+    units: dict[str, Unit]
+    relations: list[Relation]
+    level_points: list[LevelPoint]
+    spits: dict[str, list[Spit]]
+    surfaces: dict[str, tuple[float, float]] = field(default_factory=dict)  # unit -> (top Z, bottom Z)
+
+    def setup_records(self) -> list[Any]:
+        """Every set-up record, parents first (the order a store needs)."""
+        return [
+            self.site, self.season, *self.control_points, *self.trenches.values(), *self.horizons.values(),
+            *self.units.values(), *self.relations, *self.level_points,
+            *(s for spits in self.spits.values() for s in spits),
+        ]
+
+
+def _surfaces() -> dict[str, tuple[float, float]]:
+    """Top and bottom Z of each unit, stacked down from each trench's ground surface."""
+    out: dict[str, tuple[float, float]] = {}
+    ground = {code: z for code, _o, z, _t, _r in TRENCHES}
+    for code, trench, kind, _h, thick, *_ in UNITS:
+        if kind == "cut":
+            continue
+        top = ground[trench]
+        out[code] = (round(top, 3), round(top - thick, 3))
+        ground[trench] = top - thick
+    # the channel cut (202) runs from the base of 201 to the base of its fill 203
+    out["202"] = (out["203"][0], out["203"][1])
+    return out
+
+
+def build_site() -> DemoSite:
+    """The invented site's set-up records."""
+    site = Site(code="VLM", name="Vellan Lake Margin", crs_epsg=32736, vertical_offset_m=0.0)
+    season = Season(site_id=site.id, label="2026", starts_on=SEASON_START, ends_on=dt.date(2026, 8, 15))
+    cps = [
+        ControlPoint(site_id=site.id, code="CP1", e=995.000, n=1990.000, z=100.512),
+        ControlPoint(site_id=site.id, code="CP2", e=1030.000, n=1992.000, z=99.874),
+        ControlPoint(site_id=site.id, code="CP3", e=1012.000, n=2020.000, z=100.931),
+    ]
+    trenches = {
+        code: Trench(site_id=site.id, code=code, outline=outline, seasons_opened=[season.id])
+        for code, outline, _z, _t, _r in TRENCHES
+    }
+    horizons = {code: Horizon(site_id=site.id, code=code, label=label, order=order) for code, label, order in HORIZONS}
+    recorder = {code: rec for code, _o, _z, _t, rec in TRENCHES}
+    units = {
+        code: Unit(
+            site_id=site.id, trench_id=trenches[trench].id, code=code, kind=kind, description=desc,
+            munsell=munsell, munsell_condition="moist" if munsell else None, texture=texture,
+            opened_on=SEASON_START, recorder=recorder[trench],
+            horizon_id=horizons[h].id if h else None,
+        )
+        for code, trench, kind, h, _t, texture, munsell, desc in UNITS
+    }
+    relations = [
+        Relation(site_id=site.id, upper_unit_id=units[a].id, lower_unit_id=units[b].id, kind=k) for a, b, k in RELATIONS
+    ]
+    surfaces = _surfaces()
+    level_points, spits = _levels_and_spits(units, trenches, surfaces)
+    return DemoSite(site, season, cps, trenches, horizons, units, relations, level_points, spits, surfaces)
+
+
+def _levels_and_spits(
+    units: dict[str, Unit], trenches: dict[str, Trench], surfaces: dict[str, tuple[float, float]]
+) -> tuple[list[LevelPoint], dict[str, list[Spit]]]:
+    levels: list[LevelPoint] = []
+    spits: dict[str, list[Spit]] = {}
+    by_id = {t.id: t for t in trenches.values()}
+    for code, unit in units.items():
+        trench = by_id[unit.trench_id]
+        top, bottom = surfaces[code]
+        for e, n in trench.outline:
+            levels.append(LevelPoint(unit_id=unit.id, surface="top", e=e, n=n, z=top))
+            levels.append(LevelPoint(unit_id=unit.id, surface="bottom", e=e, n=n, z=bottom))
+        if unit.kind == "cut":
+            continue
+        area = _area(trench.outline)
+        steps = max(1, round((top - bottom) / 0.10))
+        depth = (top - bottom) / steps
+        spits[code] = [
+            Spit(
+                unit_id=unit.id, number=i + 1, top_z=round(top - i * depth, 3), bottom_z=round(top - (i + 1) * depth, 3),
+                area_m2=area, sieved_volume_l=round(area * depth * 1000, 1), mesh_mm=2.0, buckets=int(area * depth * 100),
+            )
+            for i in range(steps)
+        ]
+    return levels, spits
+
+
+def _area(ring: list[tuple[float, float]]) -> float:
+    return abs(sum(x1 * y2 - x2 * y1 for (x1, y1), (x2, y2) in zip(ring, ring[1:] + ring[:1]))) / 2
+
+
+@dataclass
+class TabletPlan:
+    """What one tablet records during the demo: finds (and sample details keyed by find id)."""
+
+    label: str
+    recorder: str
+    trench: str
+    finds: list[dict[str, Any]]
+    samples: dict[int, dict[str, Any]]  # index into finds -> sample details
+
+
+def plan_finds(demo: DemoSite, *, label: str, first_number: int, count: int, seed: int) -> TabletPlan:
+    """Invented finds for the tablet ``label``, numbered from ``first_number``; ``count`` of them."""
+    rng = random.Random(seed)
+    trench_code, outline, _z, _tab, recorder = next(t for t in TRENCHES if t[3] == label)
+    trench = demo.trenches[trench_code]
+    units = [u for u in demo.units.values() if u.trench_id == trench.id and u.kind != "cut"]
+    xs, ys = [p[0] for p in outline], [p[1] for p in outline]
+    finds: list[dict[str, Any]] = []
+    samples: dict[int, dict[str, Any]] = {}
+    for i in range(count):
+        unit = rng.choice(units)
+        top, bottom = demo.surfaces[unit.code]
+        day = SEASON_START + dt.timedelta(days=rng.randrange(0, 40))
+        when = dt.datetime.combine(day, dt.time(7 + rng.randrange(0, 9), rng.randrange(60)), TZ)
+        base: dict[str, Any] = dict(
+            number=first_number + i, site_id=demo.site.id, season_id=demo.season.id, trench_id=trench.id,
+            unit_id=unit.id, found_at=when, recorder=recorder,
+        )
+        roll = rng.random()
+        if roll < 0.10:
+            base.update(_sample(rng, unit, top, bottom, xs, ys))
+            samples[i] = base.pop("_sample")
+        elif roll < 0.35:
+            spit = rng.choice(demo.spits[unit.code])
+            category = "artifact" if rng.random() < 0.6 else "fossil"
+            base.update(category=category, recovery="sieved", spit_id=spit.id, bucket=f"B{rng.randrange(1, 40):02d}",
+                        count=rng.randrange(1, 12), **_material(rng, category))
+        else:
+            category = "artifact" if rng.random() < 0.55 else "fossil"
+            source = "gnss" if trench_code == "TR3" and rng.random() < 0.3 else "total_station"
+            base.update(
+                category=category, recovery="plotted", position_source=source,
+                e=round(rng.uniform(min(xs) + 0.05, max(xs) - 0.05), 3),
+                n=round(rng.uniform(min(ys) + 0.05, max(ys) - 0.05), 3),
+                z=round(rng.uniform(bottom + 0.01, top - 0.01), 3),
+                position_sigma_m=0.005 if source == "total_station" else 0.02,
+                weight_g=round(rng.lognormvariate(2.5, 1.0), 1),
+                length_mm=round(rng.uniform(15, 140), 1),
+                **_material(rng, category),
+            )
+            if base["length_mm"] > 60:
+                base.update(bearing_deg=round(rng.uniform(0, 359.9), 1), plunge_deg=round(rng.uniform(0, 40), 1))
+        finds.append(base)
+    return TabletPlan(label, recorder, trench_code, finds, samples)
+
+
+def _material(rng: random.Random, category: str) -> dict[str, Any]:
+    if category == "artifact":
+        return {"material": rng.choice(("basalt", "basalt", "phonolite", "obsidian", "chert", "quartz"))}
+    taxon, element = rng.choice(FOSSIL_TAXA)
+    material = "tooth" if element in ("molar", "tooth", "canine") else "bone"
+    return {"material": material, "taxon": taxon, "element": element}
+
+
+def _sample(rng: random.Random, unit: Unit, top: float, bottom: float, xs: list[float], ys: list[float]) -> dict[str, Any]:
+    is_tuff = unit.texture == "volcanic_ash"
+    purpose = "tephra" if is_tuff else rng.choice(("micromorphology", "pollen", "phytolith", "bulk_flotation"))
+    z_top = round(rng.uniform(bottom + 0.05, top), 3)
+    return dict(
+        category="sample", material="tephra" if is_tuff else "sediment", recovery="plotted",
+        position_source="total_station", e=round(rng.uniform(min(xs), max(xs)), 3),
+        n=round(rng.uniform(min(ys), max(ys)), 3), z=z_top, position_sigma_m=0.005,
+        _sample=dict(
+            purpose=purpose, container="bag + label" if purpose != "micromorphology" else "plaster jacket",
+            volume_l=round(rng.uniform(0.2, 10.0), 1), oriented=purpose == "micromorphology",
+            top_z=z_top, bottom_z=round(z_top - 0.05, 3),
+        ),
+    )

@@ -1,0 +1,112 @@
+"""The interface both stores share: transactions and keyword-only record helpers over one engine.
+
+``TabletStore`` (mobile/) and ``ServerStore`` (sync_server/) subclass ``RecordStore`` and add what only they do
+(numbering on the tablet, devices and blocks on the server). Every multi-row write runs inside ``atomic()``;
+nested ``atomic()`` blocks become savepoints.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import threading
+import uuid
+from typing import Any, Iterator, TypeVar
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection
+
+from . import db
+from .records import REGISTRY, Record
+from .tables import metadata
+from .validation import check
+
+__all__ = ["RecordStore"]
+
+R = TypeVar("R", bound=Record)
+
+
+class RecordStore:
+    """Records in one database; subclasses decide how the engine is made and migrated."""
+
+    def __init__(self, engine: sa.Engine):
+        self.engine = engine
+        self._local = threading.local()
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    def __enter__(self) -> "RecordStore":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    @contextlib.contextmanager
+    def atomic(self) -> Iterator[Connection]:
+        """A write transaction; nested calls become savepoints, so an inner failure rolls back alone."""
+        conn: Connection | None = getattr(self._local, "conn", None)
+        if conn is not None:
+            with conn.begin_nested():
+                yield conn
+            return
+        with self.engine.begin() as conn:
+            self._local.conn = conn
+            try:
+                yield conn
+            finally:
+                self._local.conn = None
+
+    @contextlib.contextmanager
+    def read(self) -> Iterator[Connection]:
+        """A read transaction (on SQLite a deferred BEGIN, which never waits for a writer)."""
+        conn: Connection | None = getattr(self._local, "conn", None)
+        if conn is not None:
+            yield conn
+            return
+        with self.engine.connect().execution_options(baulk_read=True) as conn, conn.begin():
+            yield conn
+
+    def add(self, record: R) -> R:
+        """Insert a new record, validated again first."""
+        record = check(type(record), record)
+        with self.atomic() as conn:
+            db.insert(conn, record)
+        return record
+
+    def create(self, name: str, data: dict[str, Any]) -> Record:
+        """Validate plain field values (a form, a file row) as the record ``name`` and insert it."""
+        spec = REGISTRY[name]
+        record = check(spec.model, data, record=name)
+        with self.atomic() as conn:
+            db.insert(conn, record)
+        return record
+
+    def put(self, record: R) -> R:
+        """Insert or replace a record by id."""
+        record = check(type(record), record)
+        with self.atomic() as conn:
+            t = metadata.tables[record.record_name]
+            key = getattr(record, "id")
+            exists = conn.execute(sa.select(t.c.id).where(t.c.id == key)).first()
+            (db.update if exists else db.insert)(conn, record)
+        return record
+
+    def get(self, model: type[R], record_id: uuid.UUID) -> R:
+        with self.read() as conn:
+            return db.get(conn, model, record_id)
+
+    def list(self, model: type[R], *, order_by: str | None = None, **where: Any) -> list[R]:
+        with self.read() as conn:
+            return list(db.select(conn, model, order_by=order_by, **where))
+
+    def count(self, model: type[Record], **where: Any) -> int:
+        with self.read() as conn:
+            return db.count(conn, model, **where)
+
+    def counts(self) -> dict[str, int]:
+        """Rows per record table."""
+        with self.read() as conn:
+            return {
+                name: int(conn.execute(sa.select(sa.func.count()).select_from(metadata.tables[name])).scalar_one())
+                for name in db.record_names()
+            }

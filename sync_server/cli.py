@@ -1,0 +1,158 @@
+"""The ``baulk`` command line: a thin shell over library functions.
+
+Each command parses its options, calls one library function and prints the result; a ``BaulkError`` becomes
+one message with the fix and exit code 1. This module and ``sync_server.demo`` are the only places that know
+both the tablet and the server packages; they import ``mobile`` lazily inside the commands that need it.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import sys
+from pathlib import Path
+from typing import Any, Callable
+
+import click
+
+from schema import __version__
+from schema.errors import BaulkError
+
+__all__ = ["cli", "main"]
+
+
+def _friendly(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """Turn domain errors into one clear message (the fix included) and a non-zero exit."""
+
+    @functools.wraps(fn)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        try:
+            return fn(*args, **kwargs)
+        except BaulkError as exc:
+            raise click.ClickException(str(exc)) from None
+
+    return wrapper
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="baulk")
+def cli() -> None:
+    """Baulk: offline-first field recording for excavations.
+
+    Tablets record finds in the trench with no network; the camp server merges them, checks them against the
+    stratigraphy and hands analysts clean per-horizon tables.
+    """
+
+
+@cli.command()
+@click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), default=Path("demo-out"),
+              show_default=True, help="Folder to write the demo's stores and summary into.")
+@_friendly
+def demo(out: Path) -> None:
+    """Run the whole job on an invented site, on the embedded SQLite default."""
+    from .demo import run_demo
+
+    result = run_demo(out, progress=lambda msg: click.echo(f"[demo] {msg}"))
+    click.echo((result.out / "summary.md").read_text())
+
+
+@cli.command()
+@click.option("--host", default=None, help="Address to listen on [default: 127.0.0.1; 0.0.0.0 for the camp Wi-Fi].")
+@click.option("--port", type=int, default=None, help="Port to listen on [default: 8765].")
+@click.option("--db", "database_url", default=None,
+              help="Database URL [default: a SQLite file in the user data folder]; postgresql+psycopg://... for PostgreSQL.")
+@click.option("--tls-cert", type=click.Path(dir_okay=False, path_type=Path), default=None, help="PEM certificate for HTTPS.")
+@click.option("--tls-key", type=click.Path(dir_okay=False, path_type=Path), default=None, help="PEM private key for HTTPS.")
+@_friendly
+def serve(host: str | None, port: int | None, database_url: str | None, tls_cert: Path | None, tls_key: Path | None) -> None:
+    """Start the camp server (HTTP, or HTTPS with --tls-cert and --tls-key)."""
+    import uvicorn
+    from pydantic import ValidationError
+
+    from .app import create_app
+    from .settings import ServerSettings
+
+    given = {k: v for k, v in dict(host=host, port=port, database_url=database_url, tls_cert=tls_cert,
+                                   tls_key=tls_key).items() if v is not None}
+    try:
+        settings = ServerSettings(**given)
+    except ValidationError as exc:
+        raise click.ClickException("; ".join(e["msg"].removeprefix("Value error, ") for e in exc.errors())) from None
+    scheme = "https" if settings.tls_cert else "http"
+    click.echo(f"Baulk camp server {__version__} listening on {scheme}://{settings.host}:{settings.port}/v1/")
+    click.echo(f"database: {_redact(settings.database_url)}")
+    click.echo("Tablets on the camp Wi-Fi reach it at this machine's address; stop it with Ctrl+C.")
+    uvicorn.run(
+        create_app(settings), host=settings.host, port=settings.port, log_level="info",
+        ssl_certfile=str(settings.tls_cert) if settings.tls_cert else None,
+        ssl_keyfile=str(settings.tls_key) if settings.tls_key else None,
+    )
+
+
+def _redact(url: str) -> str:
+    import sqlalchemy as sa
+
+    return sa.make_url(url).render_as_string(hide_password=True)
+
+
+@cli.command()
+@click.argument("path", type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@_friendly
+def inspect(path: Path) -> None:
+    """Report on a tablet file without changing it: upgrade steps, integrity check, records."""
+    from mobile.store import inspect_file
+
+    report = inspect_file(path)
+    click.echo(f"file: {path}")
+    click.echo(f"integrity: {report['integrity']}")
+    click.echo(f"upgrade steps applied: {', '.join(report['applied']) or 'none'}")
+    click.echo(f"upgrade steps pending: {', '.join(report['pending']) or 'none (up to date)'}")
+    for name, n in report["counts"].items():
+        click.echo(f"  {name:<14} {n}")
+
+
+@cli.command()
+@click.argument("names", nargs=-1)
+@click.option("--quick", is_flag=True, help="Small sizes (the CI run, under 2 minutes).")
+@click.option("--json", "as_json", is_flag=True, help="Print a JSON list, one object per benchmark.")
+@click.option("--list", "list_only", is_flag=True, help="List the benchmarks and exit.")
+def bench(names: tuple[str, ...], quick: bool, as_json: bool, list_only: bool) -> None:
+    """Run benchmarks; each reports subject/baseline measured in the same run (lower is better)."""
+    from schema import benchkit
+
+    _load_benchmarks()
+    if list_only:
+        for name, b in sorted(benchkit.BENCHMARKS.items()):
+            click.echo(f"{name:<24} {b.doc}")
+        return
+    try:
+        results = benchkit.run(list(names), quick=quick) if as_json else _run_printing(benchkit, list(names), quick)
+    except KeyError as exc:
+        raise click.ClickException(str(exc.args[0])) from None
+    if as_json:
+        click.echo(benchkit.to_json(results))
+
+
+def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
+    results = []
+    for name in names or sorted(benchkit.BENCHMARKS):
+        if name not in benchkit.BENCHMARKS:
+            raise KeyError(f"unknown benchmark {name}; known: {', '.join(sorted(benchkit.BENCHMARKS))}")
+        click.echo(f"running {name} ...", err=True)
+        (r,) = benchkit.run([name], quick=quick)
+        click.echo(benchkit.format_line(r))
+        results.append(r)
+    return results
+
+
+def _load_benchmarks() -> None:
+    """Each part registers its own benchmarks when imported."""
+    import mobile.benchmarks  # noqa: F401
+
+
+def main() -> None:
+    cli(prog_name="baulk")
+
+
+if __name__ == "__main__":
+    sys.exit(main())
