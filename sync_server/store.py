@@ -19,7 +19,7 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 
 from schema import db
-from schema.errors import DuplicateRecord, RecordNotFound, StoreError
+from schema.errors import RecordNotFound, StoreError
 from schema.records import Device, NumberBlock
 from schema.store import RecordStore
 from schema.tables import metadata
@@ -131,19 +131,25 @@ class ServerStore(RecordStore):
             raise ValueError(f"block size {size} must be at least 1")
         self.get(Device, device_id)  # RecordNotFound names the device
         t = metadata.tables["number_block"]
-        for _attempt in range(5):
-            with self.atomic() as conn:
-                top = conn.execute(sa.select(sa.func.max(t.c["last"]))).scalar() or 0
-                block = NumberBlock(
-                    device_id=device_id, first=top + 1, last=top + size,
-                    issued_at=now or dt.datetime.now(dt.timezone.utc),
-                )
-                try:
-                    db.insert(conn, block)
-                except DuplicateRecord:
-                    continue  # another manager issued a block at the same moment (PostgreSQL); take the next
-                return block
-        raise StoreError("could not issue a number block after 5 tries; try again")
+        with self.atomic() as conn:
+            self._serialize(conn, "number_block")
+            top = conn.execute(sa.select(sa.func.max(t.c["last"]))).scalar() or 0
+            block = NumberBlock(
+                device_id=device_id, first=top + 1, last=top + size,
+                issued_at=now or dt.datetime.now(dt.timezone.utc),
+            )
+            db.insert(conn, block)  # the unique constraint on `first` is the safety net
+        return block
+
+    def _serialize(self, conn: sa.Connection, what: str) -> None:
+        """Make writers of ``what`` take turns until this transaction ends.
+
+        SQLite writers already do (BEGIN IMMEDIATE); on PostgreSQL a transaction-scoped advisory lock keyed
+        by ``what`` does the same without blocking readers.
+        """
+        if conn.dialect.name == "postgresql":
+            key = int.from_bytes(hashlib.sha256(f"baulk:{what}".encode()).digest()[:8], "big", signed=True)
+            conn.execute(sa.select(sa.func.pg_advisory_xact_lock(key)))
 
     def blocks_for(self, device_id: uuid.UUID) -> list[NumberBlock]:
         return self.list(NumberBlock, device_id=device_id, order_by="first")

@@ -74,7 +74,7 @@ class FindBase(Record):
                 f"use one of: {', '.join(allowed)}",
             )
         if self.category != "fossil" and (self.taxon or self.element):
-            raise FieldError("taxon", f"taxon and element are for fossils but this find is a {self.category}", "clear them or change the category")
+            raise FieldError("taxon", f"taxon and element are for fossils but this find is of category {self.category!r}", "clear them or change the category")
         coords = (self.e, self.n, self.z)
         if any(c is None for c in coords) and any(c is not None for c in coords):
             raise FieldError("z" if self.z is None else "e", "only some of e, n, z are given", "give all three, or none for an unplotted find")

@@ -1,0 +1,21 @@
+"""Small builders shared by tests (plain functions, no fixtures)."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from schema.demo_site import DemoSite
+
+
+def find_data(demo: DemoSite, **changes: Any) -> dict[str, Any]:
+    """A valid plotted obsidian flake in unit 101 of TR1; override any field."""
+    unit = demo.units["101"]
+    data: dict[str, Any] = dict(
+        number=1, site_id=demo.site.id, season_id=demo.season.id, trench_id=unit.trench_id, unit_id=unit.id,
+        category="artifact", material="obsidian", recovery="plotted", e=1001.25, n=2001.5, z=99.81,
+        position_source="total_station", position_sigma_m=0.005,
+        found_at=dt.datetime(2026, 7, 3, 9, 30, tzinfo=dt.timezone(dt.timedelta(hours=3))), recorder="AK",
+    )
+    data.update(changes)
+    return data

@@ -1,0 +1,106 @@
+"""The tablet file's ordered migrations: an old file upgrades with every row kept."""
+
+from __future__ import annotations
+
+import sqlite3
+import uuid
+
+import pytest
+from alembic.autogenerate import compare_metadata
+from alembic.runtime.migration import MigrationContext
+
+from mobile import migrations
+from mobile.store import TabletStore
+from schema import db
+from schema.demo_site import build_site, plan_finds
+from schema.errors import MigrationFailed, StoreTooNew
+from schema.records import Find, Unit
+from schema.tables import metadata
+
+
+def _old_file(path) -> dict:  # type: ignore[no-untyped-def]
+    """A file made by the first migration only, filled the way that version wrote rows."""
+    engine = db.sqlite_engine(path)
+    demo = build_site()
+    plan = plan_finds(demo, label="TAB-1", first_number=1, count=40, seed=3)
+    finds = [f for f in plan.finds if f["category"] != "sample"]
+    with engine.begin() as conn:
+        migrations.upgrade(conn, until="0001_initial")
+        old_columns = {r[1] for r in conn.exec_driver_sql("PRAGMA table_info(find)")}
+        for record in demo.setup_records():
+            db.insert(conn, record)
+        for f in finds:
+            row = db.to_row(Find.model_validate(f))
+            conn.execute(metadata.tables["find"].insert(), {k: v for k, v in row.items() if k in old_columns})
+    engine.dispose()
+    return {"finds": len(finds), "units": len(demo.units)}
+
+
+def test_old_file_upgrades_keeping_every_row(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    path = tmp_path / "old.sqlite"
+    made = _old_file(path)
+    with sqlite3.connect(path) as raw:
+        before = raw.execute("SELECT id, number, z, material FROM find ORDER BY number").fetchall()
+        assert "human_remains" not in [r[1] for r in raw.execute("PRAGMA table_info(find)")]
+    with TabletStore.open(path) as store:
+        with store.read() as conn:
+            assert migrations.applied(conn) == ["0001_initial", "0002_find_flags"]
+        finds = store.list(Find, order_by="number")
+        assert len(finds) == made["finds"] and store.count(Unit) == made["units"]
+        assert all(f.human_remains is False and f.label_printed_at is None for f in finds)
+        assert store.integrity_check() == "ok"
+    with sqlite3.connect(path) as raw:
+        after = raw.execute("SELECT id, number, z, material FROM find ORDER BY number").fetchall()
+    assert after == before
+
+
+def _records_only(name, type_, _parent) -> bool:  # type: ignore[no-untyped-def]
+    """Leave out the tablet's own bookkeeping tables, which no record model describes."""
+    return not (type_ == "table" and name in ("baulk_migration", "local_setting"))
+
+
+def test_migrated_file_matches_the_models(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """Migrations and the models describe the same tables (Alembic's schema comparison finds no difference)."""
+    with TabletStore.open(tmp_path / "t.sqlite") as store:
+        with store.engine.connect() as conn:
+            context = MigrationContext.configure(conn, opts={"include_name": _records_only})
+            diffs = compare_metadata(context, metadata)
+    assert diffs == []
+
+
+def test_pending_and_applied_are_read_only(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    engine = db.sqlite_engine(tmp_path / "t.sqlite")
+    with engine.begin() as conn:
+        assert migrations.applied(conn) == []
+        assert migrations.pending(conn) == ["0001_initial", "0002_find_flags"]
+        migrations.upgrade(conn, until="0001_initial")
+        assert migrations.pending(conn) == ["0002_find_flags"]
+        assert migrations.pending(conn) == ["0002_find_flags"]
+    engine.dispose()
+
+
+def test_file_from_a_newer_baulk_is_refused(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    path = tmp_path / "t.sqlite"
+    TabletStore.open(path).close()
+    with sqlite3.connect(path) as raw:
+        raw.execute("INSERT INTO baulk_migration VALUES ('0099_future', '2027-01-01')")
+    with pytest.raises(StoreTooNew, match="0099_future"):
+        TabletStore.open(path)
+
+
+def test_failed_step_leaves_the_file_unchanged(tmp_path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    path = tmp_path / "old.sqlite"
+    _old_file(path)
+
+    def broken(conn) -> None:  # type: ignore[no-untyped-def]
+        conn.exec_driver_sql("ALTER TABLE find ADD COLUMN human_remains BOOLEAN NOT NULL DEFAULT 0")
+        raise RuntimeError("disk full")
+
+    monkeypatch.setattr(migrations.m0002_find_flags, "apply", broken)
+    with pytest.raises(MigrationFailed, match="0002_find_flags failed"):
+        TabletStore.open(path)
+    with sqlite3.connect(path) as raw:
+        assert "human_remains" not in [r[1] for r in raw.execute("PRAGMA table_info(find)")]
+        assert [r[0] for r in raw.execute("SELECT name FROM baulk_migration")] == ["0001_initial"]
+        assert raw.execute("PRAGMA integrity_check").fetchone() == ("ok",)
+    assert uuid  # noqa: B018

@@ -1,0 +1,126 @@
+"""The tablet store: durability settings, atomic saves, numbering, voiding."""
+
+from __future__ import annotations
+
+import datetime as dt
+import sqlite3
+
+import pytest
+
+from tests.helpers import find_data
+from mobile.store import TabletStore, inspect_file
+from schema.demo_site import DemoSite
+from schema.errors import DuplicateRecord, NoNumbersLeft, RecordInvalid, RecordNotFound, StoreError
+from schema.records import Find, NumberBlock, Sample
+
+
+def test_durability_pragmas(tablet: TabletStore) -> None:
+    assert tablet.pragmas() == {"journal_mode": "wal", "synchronous": 2, "foreign_keys": 1, "busy_timeout": 10000}
+
+
+def test_saved_find_reads_back_equal(tablet: TabletStore, demo_site: DemoSite) -> None:
+    saved = tablet.save_find(find=find_data(demo_site, photo_hashes=["ab" * 32]))
+    assert tablet.get(Find, saved.id) == saved
+    assert saved.device_id == tablet.device_id()
+    # read by a plain sqlite3 connection, not through Baulk: the row really is in the file
+    with sqlite3.connect(tablet.path) as raw:
+        assert raw.execute("SELECT number, material, z FROM find").fetchall() == [(1, "obsidian", 99.81)]
+
+
+def test_find_and_sample_are_saved_together_or_not_at_all(tablet: TabletStore, demo_site: DemoSite) -> None:
+    data = find_data(demo_site, category="sample", material="tephra")
+    with pytest.raises(RecordInvalid) as exc:
+        tablet.save_find(find=data, sample={"purpose": "tephra", "container": "", "volume_l": 1.0})
+    assert exc.value.fields == ["container"]
+    assert tablet.count(Find) == 0 and tablet.count(Sample) == 0
+    saved = tablet.save_find(find=data, sample={"purpose": "tephra", "container": "bag", "volume_l": 1.0})
+    (sample,) = tablet.list(Sample)
+    assert sample.find_id == saved.id
+
+
+def test_sample_details_required_for_samples_only(tablet: TabletStore, demo_site: DemoSite) -> None:
+    with pytest.raises(RecordInvalid, match="a find of category 'sample' has no sample details"):
+        tablet.save_find(find=find_data(demo_site, category="sample", material="tephra"))
+    with pytest.raises(RecordInvalid, match="sample details were given for a artifact|for a artifact|artifact"):
+        tablet.save_find(find=find_data(demo_site), sample={"purpose": "tephra", "container": "bag"})
+    assert tablet.count(Find) == 0
+
+
+def test_failure_inside_atomic_rolls_back_everything(tablet: TabletStore, demo_site: DemoSite) -> None:
+    with pytest.raises(RuntimeError):
+        with tablet.atomic():
+            tablet.save_find(find=find_data(demo_site, number=1))
+            tablet.save_find(find=find_data(demo_site, number=2))
+            raise RuntimeError("power cut")
+    assert tablet.count(Find) == 0
+
+
+def test_numbers_come_from_the_block_in_order(tablet: TabletStore, demo_site: DemoSite) -> None:
+    assert tablet.next_find_number() == 1
+    for _ in range(3):
+        tablet.save_find(find=find_data(demo_site, number=tablet.next_find_number()))
+    assert tablet.next_find_number() == 4
+
+
+def test_number_outside_block_is_refused(tablet: TabletStore, demo_site: DemoSite) -> None:
+    with pytest.raises(RecordInvalid) as exc:
+        tablet.save_find(find=find_data(demo_site, number=101))
+    assert str(exc.value) == (
+        "find refused, nothing was saved. number: find number 101 is outside this device's number blocks (1-100). "
+        "Fix: take the next number from the device, or ask the data manager for a new block"
+    )
+
+
+def test_duplicate_number_is_refused_with_the_fix(tablet: TabletStore, demo_site: DemoSite) -> None:
+    tablet.save_find(find=find_data(demo_site, number=7))
+    with pytest.raises(DuplicateRecord) as exc:
+        tablet.save_find(find=find_data(demo_site, number=7))
+    assert str(exc.value) == "find with number=7 already exists; choose another number or edit the existing record"
+
+
+def test_unknown_unit_is_named(tablet: TabletStore, demo_site: DemoSite) -> None:
+    import uuid
+
+    ghost = uuid.UUID(int=1)
+    with pytest.raises(RecordNotFound) as exc:
+        tablet.save_find(find=find_data(demo_site, unit_id=ghost))
+    assert str(exc.value) == (
+        f"find.unit_id names unit {ghost} which is not in this store; save the unit first or pick an existing one"
+    )
+
+
+def test_block_exhaustion_asks_for_sync(tmp_path, demo_site: DemoSite) -> None:  # type: ignore[no-untyped-def]
+    from schema.records import Device
+
+    with TabletStore.open(tmp_path / "t.sqlite") as store:
+        device = Device(label="TAB-9", role="recorder")
+        store.set_identity(device=device)
+        store.add_number_block(block=NumberBlock(device_id=device.id, first=10, last=11,
+                                                 issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
+        for r in demo_site.setup_records():
+            store.add(r)
+        for _ in range(2):
+            store.save_find(find=find_data(demo_site, number=store.next_find_number()))
+        with pytest.raises(NoNumbersLeft, match="sync with the camp server to get a new block"):
+            store.next_find_number()
+
+
+def test_void_keeps_the_number(tablet: TabletStore, demo_site: DemoSite) -> None:
+    saved = tablet.save_find(find=find_data(demo_site, number=5))
+    voided = tablet.void_find(find_id=saved.id, reason="logged twice")
+    assert voided.voided and voided.number == 5 and tablet.count(Find) == 1
+    with pytest.raises(RecordInvalid, match="void_reason"):
+        tablet.void_find(find_id=saved.id, reason="")
+
+
+def test_inspect_reports_without_changing(tablet: TabletStore, demo_site: DemoSite) -> None:
+    tablet.save_find(find=find_data(demo_site))
+    report = inspect_file(tablet.path)
+    assert report["integrity"] == "ok" and report["pending"] == [] and report["counts"]["find"] == 1
+
+
+def test_inspect_refuses_a_file_that_is_not_a_store(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    junk = tmp_path / "junk.sqlite"
+    junk.write_bytes(b"this is not a database" * 100)
+    with pytest.raises(StoreError, match="is not a readable tablet file"):
+        inspect_file(junk)

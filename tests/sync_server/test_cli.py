@@ -1,0 +1,87 @@
+"""The ``baulk`` command line: help everywhere, exact output, domain errors as one message and exit 1."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import click
+import pytest
+from click.testing import CliRunner
+
+from sync_server.cli import cli
+
+
+def _commands(group: click.Group, prefix: str = "") -> list[tuple[str, click.Command]]:
+    out = []
+    for name, cmd in group.commands.items():
+        out.append((prefix + name, cmd))
+        if isinstance(cmd, click.Group):
+            out.extend(_commands(cmd, prefix + name + " "))
+    return out
+
+
+def test_help_lists_the_commands() -> None:
+    result = CliRunner().invoke(cli, ["--help"])
+    assert result.exit_code == 0
+    for name in ("demo", "serve", "bench", "inspect"):
+        assert f"  {name} " in result.output
+
+
+@pytest.mark.parametrize(("name", "command"), _commands(cli))
+def test_every_command_has_help(name: str, command: click.Command) -> None:
+    assert command.help and len(command.help.strip()) > 20, f"baulk {name} has no help text"
+    for param in command.params:
+        if isinstance(param, click.Option):
+            assert param.help, f"baulk {name} {param.opts[0]} has no help text"
+
+
+def test_demo_writes_a_summary(tmp_path: Path) -> None:
+    out = tmp_path / "demo"
+    result = CliRunner().invoke(cli, ["demo", "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    assert "[demo] camp server: creating the store and the site set-up" in result.output
+    summary = json.loads((out / "summary.json").read_text())
+    assert set(summary["tablets"]) == {"TAB-1", "TAB-2", "TAB-3"}
+    assert sum(t["finds"] for t in summary["tablets"].values()) == 370
+    assert all(t["integrity"] == "ok" for t in summary["tablets"].values())
+    assert all(r["nothing_written"] and "refused" in r["message"] for r in summary["refused"])
+    assert (out / "summary.md").read_text().startswith("# Baulk demo: site VLM (invented)")
+    # numbers stayed inside each tablet's block, and no number was used twice
+    spans = sorted(t["numbers"] for t in summary["tablets"].values())
+    assert spans == [[1, 140], [501, 620], [1001, 1110]]
+
+
+def test_demo_refuses_to_overwrite(tmp_path: Path) -> None:
+    CliRunner().invoke(cli, ["demo", "--out", str(tmp_path)])
+    result = CliRunner().invoke(cli, ["demo", "--out", str(tmp_path)])
+    assert result.exit_code == 1
+    assert result.output == (
+        f"Error: {tmp_path} already holds a demo; choose a new folder or delete {tmp_path / 'server.sqlite'} first\n"
+    )
+
+
+def test_serve_with_half_a_tls_pair_says_what_to_give(tmp_path: Path) -> None:
+    cert = tmp_path / "c.pem"
+    cert.write_text("x")
+    result = CliRunner().invoke(cli, ["serve", "--tls-cert", str(cert), "--db", f"sqlite:///{tmp_path}/s.sqlite"])
+    assert result.exit_code == 1
+    assert result.output == "Error: give both tls_cert and tls_key for HTTPS, or neither for plain HTTP\n"
+
+
+def test_inspect_a_tablet_file(tmp_path: Path) -> None:
+    CliRunner().invoke(cli, ["demo", "--out", str(tmp_path)])
+    result = CliRunner().invoke(cli, ["inspect", str(tmp_path / "tablets" / "TAB-2.sqlite")])
+    assert result.exit_code == 0
+    assert "integrity: ok\n" in result.output
+    assert "upgrade steps pending: none (up to date)\n" in result.output
+    assert "  find           120\n" in result.output
+
+
+def test_inspect_junk_is_one_clear_error(tmp_path: Path) -> None:
+    junk = tmp_path / "junk.sqlite"
+    junk.write_bytes(b"\x00garbage" * 512)
+    result = CliRunner().invoke(cli, ["inspect", str(junk)])
+    assert result.exit_code == 1
+    assert result.output.startswith(f"Error: {junk} is not a readable tablet file (")
+    assert "Traceback" not in result.output

@@ -1,0 +1,46 @@
+"""The package boundaries of DESIGN.md section 1, checked on the source."""
+
+from __future__ import annotations
+
+import ast
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _imports(package: str) -> dict[str, set[str]]:
+    found: dict[str, set[str]] = {}
+    for path in (ROOT / package).rglob("*.py"):
+        names: set[str] = set()
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.Import):
+                names |= {a.name.split(".")[0] for a in node.names}
+            elif isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+                names.add(node.module.split(".")[0])
+        found[str(path.relative_to(ROOT))] = names
+    return found
+
+
+@pytest.mark.parametrize(
+    ("package", "forbidden", "allowed_in"),
+    [
+        ("schema", {"kivy", "fastapi", "starlette", "httpx", "uvicorn", "mobile", "sync_server"}, set()),
+        ("mobile", {"sync_server", "fastapi", "uvicorn"}, set()),
+        # only the command module and the demo may drive the tablet code
+        ("sync_server", {"mobile", "kivy"}, {"sync_server/cli.py", "sync_server/demo.py"}),
+    ],
+)
+def test_boundaries(package: str, forbidden: set[str], allowed_in: set[str]) -> None:
+    bad = {f: sorted(n & forbidden) for f, n in _imports(package).items() if n & forbidden and f not in allowed_in}
+    assert bad == {}
+
+
+def test_public_api_is_complete() -> None:
+    import importlib
+
+    for name in ("schema", "schema.records", "schema.errors", "schema.db", "schema.vocab", "mobile"):
+        module = importlib.import_module(name)
+        missing = [n for n in module.__all__ if not hasattr(module, n)]
+        assert missing == [], f"{name}.__all__ names what it does not define"
