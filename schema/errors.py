@@ -10,8 +10,14 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      +-- RecordNotFound         an id that names no stored record
      +-- DuplicateRecord        a code or number that must be unique is taken
      +-- StoreError             a store file or database that cannot be used
-          +-- StoreTooNew       the file was written by a newer Baulk
-          +-- MigrationFailed   an upgrade step failed (the store is left as it was)
+     |    +-- StoreTooNew       the file was written by a newer Baulk
+     |    +-- MigrationFailed   an upgrade step failed (the store is left as it was)
+     +-- SurveyError            survey input or a survey result that cannot be used
+          +-- ObservationInvalid  a reading outside its range (zenith, distance, ...)
+          +-- WeakGeometry        control points duplicated, coincident or on one line
+          +-- ResectionRejected   a setup whose residuals exceed the tolerance
+          +-- UnknownCRS          an EPSG code PROJ does not know
+          +-- ProjUnavailable     a CRS operation on a build without PROJ and no fitted fallback
 """
 
 from __future__ import annotations
@@ -25,10 +31,16 @@ __all__ = [
     "MigrationFailed",
     "NoNumbersLeft",
     "NumberOutsideBlock",
+    "ObservationInvalid",
+    "ProjUnavailable",
     "RecordInvalid",
     "RecordNotFound",
+    "ResectionRejected",
     "StoreError",
     "StoreTooNew",
+    "SurveyError",
+    "UnknownCRS",
+    "WeakGeometry",
 ]
 
 
@@ -88,3 +100,27 @@ class StoreTooNew(StoreError):
 
 class MigrationFailed(StoreError):
     """A schema upgrade step failed and was rolled back."""
+
+
+class SurveyError(BaulkError):
+    """Survey input or a survey result that cannot be used."""
+
+
+class ObservationInvalid(SurveyError):
+    """A reading outside its possible range."""
+
+
+class WeakGeometry(SurveyError):
+    """Control points that cannot fix a setup or a grid (duplicated, coincident, on one line)."""
+
+
+class ResectionRejected(SurveyError):
+    """A free-station solution whose residuals exceed the tolerance set by the user."""
+
+
+class UnknownCRS(SurveyError):
+    """An EPSG code that PROJ does not know."""
+
+
+class ProjUnavailable(SurveyError):
+    """PROJ (pyproj) is missing and no fitted fallback covers the request."""

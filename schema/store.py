@@ -10,7 +10,7 @@ from __future__ import annotations
 import contextlib
 import threading
 import uuid
-from typing import Any, Iterator, TypeVar
+from typing import TYPE_CHECKING, Any, Iterator, TypeVar
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection
@@ -19,6 +19,9 @@ from . import db
 from .records import REGISTRY, Record
 from .tables import metadata
 from .validation import check
+
+if TYPE_CHECKING:
+    from .records import StationSetup
 
 __all__ = ["RecordStore"]
 
@@ -110,3 +113,23 @@ class RecordStore:
                 name: int(conn.execute(sa.select(sa.func.count()).select_from(metadata.tables[name])).scalar_one())
                 for name in db.record_names()
             }
+
+    def correct_setup(self, setup: "StationSetup", *, curvature_refraction: bool = False) -> dict[str, int]:
+        """Store a corrected setup and recompute every find and level point shot from it, in one transaction.
+
+        Raw shots are kept, so the new coordinates come from the same readings; returns how many rows moved.
+        """
+        from .records import Find, LevelPoint, Shot, StationSetup
+        from .survey.recompute import shot_positions
+
+        moved = {"find": 0, "level_point": 0}
+        with self.atomic() as conn:
+            db.update(conn, check(StationSetup, setup))
+            shots = list(db.select(conn, Shot, setup_id=setup.id))
+            positions = shot_positions(setup, shots, curvature_refraction=curvature_refraction)
+            for model, key in ((Find, "find"), (LevelPoint, "level_point")):
+                t = metadata.tables[key]
+                for shot_id, (e, n, z) in positions.items():
+                    rows = conn.execute(t.update().where(t.c.shot_id == shot_id).values(e=e, n=n, z=z))
+                    moved[key] += rows.rowcount
+        return moved

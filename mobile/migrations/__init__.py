@@ -18,11 +18,11 @@ from sqlalchemy.engine import Connection
 
 from schema.errors import MigrationFailed, StoreTooNew
 
-from . import m0001_initial, m0002_find_flags
+from . import m0001_initial, m0002_find_flags, m0003_site_grid_polynomial
 
 __all__ = ["MIGRATIONS", "applied", "pending", "upgrade"]
 
-MIGRATIONS: tuple[ModuleType, ...] = (m0001_initial, m0002_find_flags)
+MIGRATIONS: tuple[ModuleType, ...] = (m0001_initial, m0002_find_flags, m0003_site_grid_polynomial)
 
 _TABLE = """CREATE TABLE IF NOT EXISTS baulk_migration (
     name VARCHAR PRIMARY KEY,

@@ -10,12 +10,12 @@ from . import device, find, site, strata, survey
 from ._base import Record, RecordSpec
 from .device import Device, DevicePublic, NumberBlock
 from .find import Find, Sample
-from .site import ControlPoint, GridTransform, Season, Site, Trench
+from .site import ControlPoint, GridPolynomial, GridTransform, Season, Site, Trench
 from .strata import Horizon, LevelPoint, Relation, Spit, Unit
 from .survey import GnssFix, Shot, StationSetup
 
 __all__ = [
-    "REGISTRY", "ControlPoint", "Device", "DevicePublic", "Find", "GnssFix", "GridTransform", "Horizon",
+    "REGISTRY", "ControlPoint", "Device", "DevicePublic", "Find", "GnssFix", "GridPolynomial", "GridTransform", "Horizon",
     "LevelPoint", "NumberBlock", "Record", "RecordSpec", "Relation", "Sample", "Season", "Shot", "Site",
     "Spit", "StationSetup", "Trench", "Unit", "spec_for",
 ]

@@ -13,7 +13,7 @@ from ..validation import FieldError
 from ._base import STRICT, Record, spec
 
 __all__ = [
-    "ControlPoint", "ControlPointBase", "GridTransform", "Season", "SeasonBase", "Site", "SiteBase",
+    "ControlPoint", "ControlPointBase", "GridPolynomial", "GridTransform", "Season", "SeasonBase", "Site", "SiteBase",
     "Trench", "TrenchBase", "SPECS",
 ]
 
@@ -28,6 +28,21 @@ class GridTransform(BaseModel):
     ty: float = Field(allow_inf_nan=False, description="CRS northing of the grid origin (m)")
 
 
+class GridPolynomial(BaseModel):
+    """Latitude/longitude (WGS 84) -> site grid as a polynomial in scaled offsets u, v; fitted with PROJ."""
+
+    model_config = STRICT
+    degree: int = Field(ge=1, le=5)
+    lat0: float = Field(ge=-90, le=90, description="centre latitude (deg)")
+    lon0: float = Field(ge=-180, le=180, description="centre longitude (deg)")
+    span_deg: float = Field(gt=0, description="u = (lon - lon0) / span_deg, v = (lat - lat0) / span_deg")
+    cx: list[float] = Field(description="coefficients of grid E, in monomial order")
+    cy: list[float] = Field(description="coefficients of grid N, in monomial order")
+    half_extent_m: float = Field(gt=0, description="half the side of the square it was fitted over (m)")
+    max_error_m: float = Field(ge=0, description="largest error found on the dense check grid (m)")
+    check_points: int = Field(ge=1, description="how many check points measured max_error_m")
+
+
 class SiteBase(Record):
     """A site: its projected CRS, its grid and its local safety settings."""
 
@@ -37,6 +52,9 @@ class SiteBase(Record):
         int, Field(ge=1024, le=999999, description="EPSG code of the site's projected CRS", examples=[32736])
     ]
     grid: GridTransform | None = Field(default=None, description="site grid -> CRS similarity, fitted from control points")
+    grid_polynomial: GridPolynomial | None = Field(
+        default=None, description="lat/lon -> site grid fallback for tablets without PROJ, fitted by the server"
+    )
     vertical_offset_m: float = Field(default=0.0, allow_inf_nan=False, description="site datum Z minus CRS height (m)")
     shoring_check_depth_m: Annotated[
         float,

@@ -26,14 +26,19 @@ def _old_file(path) -> dict:  # type: ignore[no-untyped-def]
     finds = [f for f in plan.finds if f["category"] != "sample"]
     with engine.begin() as conn:
         migrations.upgrade(conn, until="0001_initial")
-        old_columns = {r[1] for r in conn.exec_driver_sql("PRAGMA table_info(find)")}
-        for record in demo.setup_records():
-            db.insert(conn, record)
-        for f in finds:
-            row = db.to_row(Find.model_validate(f))
-            conn.execute(metadata.tables["find"].insert(), {k: v for k, v in row.items() if k in old_columns})
+        records = [*demo.setup_records(), *(Find.model_validate(f) for f in finds)]
+        for record in records:
+            _insert_as_version_1(conn, record)
     engine.dispose()
     return {"finds": len(finds), "units": len(demo.units)}
+
+
+def _insert_as_version_1(conn, record) -> None:  # type: ignore[no-untyped-def]
+    """Write a record's row with only the columns the first file version had."""
+    name = record.record_name
+    columns = {r[1] for r in conn.exec_driver_sql(f"PRAGMA table_info({name})")}
+    row = {k: v for k, v in db.to_row(record).items() if k in columns}
+    conn.execute(metadata.tables[name].insert(), row)
 
 
 def test_old_file_upgrades_keeping_every_row(tmp_path) -> None:  # type: ignore[no-untyped-def]
@@ -44,7 +49,7 @@ def test_old_file_upgrades_keeping_every_row(tmp_path) -> None:  # type: ignore[
         assert "human_remains" not in [r[1] for r in raw.execute("PRAGMA table_info(find)")]
     with TabletStore.open(path) as store:
         with store.read() as conn:
-            assert migrations.applied(conn) == ["0001_initial", "0002_find_flags"]
+            assert migrations.applied(conn) == ["0001_initial", "0002_find_flags", "0003_site_grid_polynomial"]
         finds = store.list(Find, order_by="number")
         assert len(finds) == made["finds"] and store.count(Unit) == made["units"]
         assert all(f.human_remains is False and f.label_printed_at is None for f in finds)
@@ -72,10 +77,10 @@ def test_pending_and_applied_are_read_only(tmp_path) -> None:  # type: ignore[no
     engine = db.sqlite_engine(tmp_path / "t.sqlite")
     with engine.begin() as conn:
         assert migrations.applied(conn) == []
-        assert migrations.pending(conn) == ["0001_initial", "0002_find_flags"]
+        assert migrations.pending(conn) == ["0001_initial", "0002_find_flags", "0003_site_grid_polynomial"]
         migrations.upgrade(conn, until="0001_initial")
-        assert migrations.pending(conn) == ["0002_find_flags"]
-        assert migrations.pending(conn) == ["0002_find_flags"]
+        assert migrations.pending(conn) == ["0002_find_flags", "0003_site_grid_polynomial"]
+        assert migrations.pending(conn) == ["0002_find_flags", "0003_site_grid_polynomial"]
     engine.dispose()
 
 
