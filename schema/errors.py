@@ -8,6 +8,7 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      +-- NumberOutsideBlock     a find number is not in any block issued to this device
      +-- NoNumbersLeft          the device has used every number it was issued
      +-- RecordNotFound         an id that names no stored record
+     +-- InputFileInvalid       a CSV, JSON or log file given on the command line that cannot be read
      +-- DuplicateRecord        a code or number that must be unique is taken
      +-- StoreError             a store file or database that cannot be used
      |    +-- StoreTooNew       the file was written by a newer Baulk
@@ -28,6 +29,7 @@ __all__ = [
     "BaulkError",
     "DuplicateRecord",
     "FieldProblem",
+    "InputFileInvalid",
     "MigrationFailed",
     "NoNumbersLeft",
     "NumberOutsideBlock",
@@ -84,6 +86,10 @@ class NoNumbersLeft(BaulkError):
 
 class RecordNotFound(BaulkError):
     """No stored record has this id."""
+
+
+class InputFileInvalid(BaulkError):
+    """An input file (CSV, JSON, log) that is missing, malformed or lacks a needed column."""
 
 
 class DuplicateRecord(BaulkError):

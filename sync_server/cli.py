@@ -7,7 +7,6 @@ both the tablet and the server packages; they import ``mobile`` lazily inside th
 
 from __future__ import annotations
 
-import functools
 import json
 import sys
 from pathlib import Path
@@ -21,20 +20,17 @@ from schema.errors import BaulkError
 __all__ = ["cli", "main"]
 
 
-def _friendly(fn: Callable[..., Any]) -> Callable[..., Any]:
-    """Turn domain errors into one clear message (the fix included) and a non-zero exit."""
+class _BaulkGroup(click.Group):
+    """Turns any domain error, from any subcommand, into one clear message (the fix included) and exit 1."""
 
-    @functools.wraps(fn)
-    def wrapper(*args: Any, **kwargs: Any) -> Any:
+    def invoke(self, ctx: click.Context) -> Any:
         try:
-            return fn(*args, **kwargs)
+            return super().invoke(ctx)
         except BaulkError as exc:
             raise click.ClickException(str(exc)) from None
 
-    return wrapper
 
-
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.group(cls=_BaulkGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="baulk")
 def cli() -> None:
     """Baulk: offline-first field recording for excavations.
@@ -47,7 +43,6 @@ def cli() -> None:
 @cli.command()
 @click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), default=Path("demo-out"),
               show_default=True, help="Folder to write the demo's stores and summary into.")
-@_friendly
 def demo(out: Path) -> None:
     """Run the whole job on an invented site, on the embedded SQLite default."""
     from .demo import run_demo
@@ -63,7 +58,6 @@ def demo(out: Path) -> None:
               help="Database URL [default: a SQLite file in the user data folder]; postgresql+psycopg://... for PostgreSQL.")
 @click.option("--tls-cert", type=click.Path(dir_okay=False, path_type=Path), default=None, help="PEM certificate for HTTPS.")
 @click.option("--tls-key", type=click.Path(dir_okay=False, path_type=Path), default=None, help="PEM private key for HTTPS.")
-@_friendly
 def serve(host: str | None, port: int | None, database_url: str | None, tls_cert: Path | None, tls_key: Path | None) -> None:
     """Start the camp server (HTTP, or HTTPS with --tls-cert and --tls-key)."""
     import uvicorn
@@ -97,7 +91,6 @@ def _redact(url: str) -> str:
 
 @cli.command()
 @click.argument("path", type=click.Path(exists=True, dir_okay=False, path_type=Path))
-@_friendly
 def inspect(path: Path) -> None:
     """Report on a tablet file without changing it: upgrade steps, integrity check, records."""
     from mobile.store import inspect_file
@@ -145,9 +138,19 @@ def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
     return results
 
 
+def _register_groups() -> None:
+    from .cli_survey import survey
+
+    cli.add_command(survey)
+
+
 def _load_benchmarks() -> None:
     """Each part registers its own benchmarks when imported."""
     import mobile.benchmarks  # noqa: F401
+    import schema.benchmarks  # noqa: F401
+
+
+_register_groups()
 
 
 def main() -> None:

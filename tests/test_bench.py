@@ -35,4 +35,4 @@ def test_bench_json_has_the_scripted_keys() -> None:
 def test_unknown_benchmark_names_the_known_ones() -> None:
     result = CliRunner().invoke(cli, ["bench", "nope.nothing"])
     assert result.exit_code == 1
-    assert "unknown benchmark nope.nothing; known: store.save_find" in result.output
+    assert "unknown benchmark nope.nothing; known: store.save_find, survey.reduce" in result.output

@@ -72,7 +72,7 @@ class GridFit:
     ty: float
     rotation_deg: float  # counterclockwise from the grid axes to the CRS axes
     scale: float
-    vertical_offset_m: float | None  # mean of z_crs - z_grid
+    vertical_offset_m: float | None  # mean of z_grid - z_crs: "site datum Z minus CRS height", as on Site
     residuals: list[dict[str, float | str]]
     sigma0_m: float | None
     warnings: list[str]
@@ -88,7 +88,7 @@ def fit_grid(pairs: list[PointPair]) -> GridFit:
     src = np.array([[p.x, p.y] for p in pairs])
     check_geometry(src, [p.code for p in pairs], "control point")
     sim = fit_similarity(src, np.array([[p.e, p.n] for p in pairs]))
-    dz = [p.z_crs - p.z_grid for p in pairs if p.z_crs is not None and p.z_grid is not None]
+    dz = [p.z_grid - p.z_crs for p in pairs if p.z_crs is not None and p.z_grid is not None]
     warnings = []
     if len(pairs) < 3:
         warnings.append("only two control points: no redundancy, residuals are zero by construction; add a third")

@@ -95,7 +95,7 @@ def test_fit_grid_recovers_rotation_scale_and_offset() -> None:
     assert fit.rotation_deg == pytest.approx(23.5, abs=1e-9)
     assert fit.scale == pytest.approx(1.00002, abs=1e-12)
     assert (fit.tx, fit.ty) == pytest.approx((GRID["tx"], GRID["ty"]), abs=1e-6)
-    assert fit.vertical_offset_m == pytest.approx(1.25)
+    assert fit.vertical_offset_m == pytest.approx(-1.25)
     assert max(float(r["d"]) for r in fit.residuals) < 1e-6
 
 
