@@ -61,6 +61,26 @@ RELATIONS = (
     ("102", "204", "same_as"), ("102", "302", "same_as"),
 )
 
+# The invented tie of the site grid to WGS 84 / UTM zone 36S (EPSG:32736): rotation -8.2 deg, scale 0.99996,
+# grid origin at E 801234.5 N 9712345.6; heights on the site datum are CRS heights minus 1187.42 m.
+GRID_TIE = {"rotation_deg": -8.2, "scale": 0.99996, "tx": 801234.5, "ty": 9712345.6, "dz": -1187.42}
+
+
+def _tie(x: float, y: float) -> tuple[float, float]:
+    import math
+
+    r = math.radians(GRID_TIE["rotation_deg"])
+    a, b = GRID_TIE["scale"] * math.cos(r), GRID_TIE["scale"] * math.sin(r)
+    return round(GRID_TIE["tx"] + a * x - b * y, 3), round(GRID_TIE["ty"] + b * x + a * y, 3)
+
+
+# code, grid E, N, Z, CRS E, N (CRS values from the tie, rounded to the millimetre as a survey list would be)
+CONTROL = tuple(
+    (code, e, n, z, *_tie(e, n))
+    for code, e, n, z in (("CP1", 995.000, 1990.000, 100.512), ("CP2", 1030.000, 1992.000, 99.874),
+                          ("CP3", 1012.000, 2020.000, 100.931))
+)
+
 FOSSIL_TAXA = (
     ("Hippopotamidae", "molar"), ("Bovidae", "horn core"), ("Crocodylidae", "tooth"), ("Suidae", "canine"),
     ("Equidae", "metapodial"), ("Cichlidae", "vertebra"), ("Testudines", "carapace fragment"),
@@ -112,9 +132,8 @@ def build_site() -> DemoSite:
     site = Site(code="VLM", name="Vellan Lake Margin", crs_epsg=32736, vertical_offset_m=0.0)
     season = Season(site_id=site.id, label="2026", starts_on=SEASON_START, ends_on=dt.date(2026, 8, 15))
     cps = [
-        ControlPoint(site_id=site.id, code="CP1", e=995.000, n=1990.000, z=100.512),
-        ControlPoint(site_id=site.id, code="CP2", e=1030.000, n=1992.000, z=99.874),
-        ControlPoint(site_id=site.id, code="CP3", e=1012.000, n=2020.000, z=100.931),
+        ControlPoint(site_id=site.id, code=code, e=e, n=n, z=z, crs_e=ce, crs_n=cn)
+        for code, e, n, z, ce, cn in CONTROL
     ]
     trenches = {
         code: Trench(site_id=site.id, code=code, outline=outline, seasons_opened=[season.id])

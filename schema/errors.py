@@ -19,6 +19,7 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
           +-- ResectionRejected   a setup whose residuals exceed the tolerance
           +-- UnknownCRS          an EPSG code PROJ does not know
           +-- ProjUnavailable     a CRS operation on a build without PROJ and no fitted fallback
+          +-- FixNotAccepted      a GNSS fix not good enough for a piece-plot (and no override given)
 """
 
 from __future__ import annotations
@@ -29,6 +30,7 @@ __all__ = [
     "BaulkError",
     "DuplicateRecord",
     "FieldProblem",
+    "FixNotAccepted",
     "InputFileInvalid",
     "MigrationFailed",
     "NoNumbersLeft",
@@ -130,3 +132,7 @@ class UnknownCRS(SurveyError):
 
 class ProjUnavailable(SurveyError):
     """PROJ (pyproj) is missing and no fitted fallback covers the request."""
+
+
+class FixNotAccepted(SurveyError):
+    """A GNSS fix that is not RTK fixed, offered for a piece-plot without an override reason."""

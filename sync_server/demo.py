@@ -19,9 +19,15 @@ from pathlib import Path
 from typing import Any, Callable
 
 from schema import __version__
-from schema.demo_site import DemoSite, TabletPlan, build_site, plan_finds
-from schema.errors import BaulkError
-from schema.records import Device, Find
+import numpy as np
+
+from mobile.recording import Reading, record_gnss_find, record_plotted_find, setup_by_backsight, setup_by_resection
+from schema.demo_site import GRID_TIE, SEASON_START, DemoSite, TabletPlan, build_site, plan_finds
+from schema.errors import BaulkError, FixNotAccepted
+from schema.records import Device, Find, GnssFix, Shot
+from schema.survey.polar import Station
+from schema.survey.recompute import station_of
+from schema.survey.simulate import gga, gst, readings_for, rmc
 
 from .store import ServerStore
 
@@ -54,7 +60,9 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
         for record in demo.setup_records():
             server.add(record)
 
-    summary: dict[str, Any] = {"site": demo.site.code, "version": __version__, "tablets": {}}
+    progress("camp server: fitting the site grid to UTM 36S from the control points (pyproj)")
+    survey_summary = _fit_site_grid(server, demo)
+    summary: dict[str, Any] = {"site": demo.site.code, "version": __version__, "tablets": {}, "survey": survey_summary}
     tablet_counts: dict[str, dict[str, Any]] = {}
     for label, count, seed in TABLETS:
         device, _token = server.add_device(label=label, role="recorder")
@@ -63,7 +71,9 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
         with TabletStore.open(out / "tablets" / f"{label}.sqlite") as tablet:
             _provision(tablet, demo, device, block)
             plan = plan_finds(demo, label=label, first_number=block.first, count=count, seed=seed)
-            tablet_counts[label] = _record(tablet, plan, progress)
+            setup, setup_report = _set_up_instrument(tablet, demo, plan)
+            survey_summary["setups"][label] = setup_report
+            tablet_counts[label] = _record(tablet, demo, plan, setup, progress, np.random.default_rng(seed))
             tablet_counts[label]["integrity"] = tablet.integrity_check()
             tablet_counts[label]["pragmas"] = tablet.pragmas()
             if label == "TAB-1":
@@ -90,11 +100,97 @@ def _provision(tablet: Any, demo: DemoSite, device: Any, block: Any) -> None:
             tablet.add(record)
 
 
-def _record(tablet: Any, plan: TabletPlan, progress: Progress) -> dict[str, Any]:
+def _fit_site_grid(server: ServerStore, demo: DemoSite) -> dict[str, Any]:
+    """Fit the site grid from the control points (both systems known) and the PROJ-free tablet polynomial."""
+    from schema.records import GridPolynomial, GridTransform
+    from schema.survey.grid import PointPair, fit_grid, fit_grid_polynomial
+
+    pairs = [PointPair(cp.code, cp.e, cp.n, cp.crs_e, cp.crs_n, cp.z, cp.z - GRID_TIE["dz"])  # type: ignore[arg-type]
+             for cp in demo.control_points]
+    fit = fit_grid(pairs)
+    grid = GridTransform(**fit.as_grid_transform())
+    poly = fit_grid_polynomial(grid=grid, crs=demo.site.crs_epsg, centre_x=1010.0, centre_y=2000.0)
+    demo.site = server.put(demo.site.model_copy(update={
+        "grid": grid, "grid_polynomial": GridPolynomial.model_validate(poly.model_dump()),
+        "vertical_offset_m": fit.vertical_offset_m or 0.0,
+    }))
+    return {
+        "grid_rotation_deg": round(fit.rotation_deg, 6), "grid_scale": round(fit.scale, 8),
+        "grid_max_residual_m": round(max(float(r["d"]) for r in fit.residuals), 4),
+        "vertical_offset_m": fit.vertical_offset_m, "polynomial_max_error_m": poly.max_error_m,
+        "polynomial_half_extent_m": poly.half_extent_m, "setups": {},
+    }
+
+
+def _reading(station: Any, e: float, n: float, z: float, th: float, at: dt.datetime, rng: Any) -> Reading:
+    """What the instrument would read on a target, with 1 mgon-class angle noise and 2 mm on distances."""
+    hz, zen, sd = readings_for(station, e, n, z, th, rng=rng, sigma_angle=0.0003, sigma_distance_m=0.002)
+    return Reading(float(hz[0]), float(zen[0]), float(sd[0]), th, at)
+
+
+def _set_up_instrument(tablet: Any, demo: DemoSite, plan: TabletPlan) -> tuple[Any, dict[str, Any]]:
+    """TAB-1 and TAB-3 occupy a datum and orient on backsights; TAB-2 free-stations on all three points."""
+    rng = np.random.default_rng(len(plan.label) + ord(plan.label[-1]))
+    cps = {cp.code: cp for cp in demo.control_points}
+    at = dt.datetime.combine(SEASON_START, dt.time(6, 45), dt.timezone(dt.timedelta(hours=3)))
+    ih = 1.552
+    if plan.label == "TAB-2":
+        # the true (unknown to the tablet) station and orientation the readings are simulated from
+        truth = Station(1016.0, 2011.5, 100.42, ih, 131.7)
+        obs = [(cp, _reading(truth, cp.e, cp.n, cp.z, 1.5, at, rng)) for cp in cps.values()]
+        setup, res = setup_by_resection(tablet, site=demo.site, code="FS-TR2", observations=obs, instrument_height_m=ih,
+                                        angle_unit="deg", tolerance_m=0.01, recorder=plan.recorder, at=at)
+        return setup, {"method": "resection", "points": len(obs), "max_residual_m": round(
+            max(float(r["d"]) for r in res.residuals), 4), "scale_ppm": round(res.scale_ppm, 1),
+            "station_error_m": round(float(np.hypot(setup.e - truth.e, setup.n - truth.n)), 4)}
+    occupied, backsight_codes = ("CP1", ("CP2", "CP3")) if plan.label == "TAB-1" else ("CP2", ("CP1",))
+    station_cp = cps[occupied]
+    truth = Station(station_cp.e, station_cp.n, station_cp.z, ih, 12.3456)
+    bss = [(cps[c], _reading(truth, cps[c].e, cps[c].n, cps[c].z, 1.5, at, rng)) for c in backsight_codes]
+    setup, res = setup_by_backsight(tablet, site=demo.site, station=station_cp, backsights=bss, instrument_height_m=ih,
+                                    angle_unit="deg", recorder=plan.recorder, at=at)
+    return setup, {"method": f"occupied {occupied}", "backsights": list(backsight_codes),
+                   "max_angle_residual_deg": round(max(abs(b.angle_residual) for b in res.backsights), 5),
+                   "warnings": res.warnings}
+
+
+def _gnss_sentences(demo: DemoSite, e: float, n: float, z: float, at: dt.datetime, quality: int) -> list[str]:
+    from schema.survey.crs import projected_to_lonlat
+    from schema.survey.grid import grid_to_crs
+
+    ce, cn = grid_to_crs(demo.site.grid, [e], [n])
+    lon, lat = projected_to_lonlat(ce, cn, demo.site.crs_epsg)
+    utc = at.astimezone(dt.timezone.utc)
+    h = z - demo.site.vertical_offset_m
+    return [gga(utc, float(lat[0]), float(lon[0]), quality=quality, height_m=h, geoid_sep_m=-12.3),
+            rmc(utc, float(lat[0]), float(lon[0])),
+            gst(utc, sigma_lat=0.008 if quality == 4 else 0.03, sigma_lon=0.007 if quality == 4 else 0.03, sigma_alt=0.015)]
+
+
+def _record(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any, progress: Progress, rng: Any) -> dict[str, Any]:
     saved: list[Find] = []
+    station = station_of(setup)
+    floats_refused = 0
     for i, data in enumerate(plan.finds):
         data = {**data, "number": tablet.next_find_number()}
-        saved.append(tablet.save_find(find=data, sample=plan.samples.get(i)))
+        sample = plan.samples.get(i)
+        source = data.pop("position_source", "none")
+        if source == "total_station":
+            e, n, z = (data.pop(k) for k in ("e", "n", "z"))
+            reading = _reading(station, e, n, z, 1.300, data["found_at"], rng)
+            saved.append(record_plotted_find(tablet, setup=setup, reading=reading, find=data, sample=sample))
+        elif source == "gnss":
+            e, n, z = (data.pop(k) for k in ("e", "n", "z"))
+            quality = 5 if i % 7 == 3 else 4
+            sentences = _gnss_sentences(demo, e, n, z, data["found_at"], quality)
+            try:
+                saved.append(record_gnss_find(tablet, site=demo.site, sentences=sentences, find=data, sample=sample))
+            except FixNotAccepted:
+                floats_refused += 1
+                saved.append(record_gnss_find(tablet, site=demo.site, sentences=sentences, find=data, sample=sample,
+                                              override_reason="float held 2 min under the acacia; sigma 3 cm"))
+        else:
+            saved.append(tablet.save_find(find=data, sample=sample))
         if (i + 1) % 50 == 0:
             progress(f"{plan.label}: {i + 1}/{len(plan.finds)} finds saved")
     victim = saved[len(saved) // 2]
@@ -108,6 +204,10 @@ def _record(tablet: Any, plan: TabletPlan, progress: Progress) -> dict[str, Any]
         "by_category": dict(collections.Counter(f.category for f in saved)),
         "by_recovery": dict(collections.Counter(f.recovery for f in saved)),
         "samples": tablet.count(Find, category="sample"),
+        "by_position": dict(collections.Counter(f.position_source for f in saved)),
+        "shots": tablet.count(Shot),
+        "gnss_fixes": tablet.count(GnssFix),
+        "gnss_float_refused_then_overridden": floats_refused,
     }
 
 
@@ -176,6 +276,29 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
             f"{', '.join(map(str, t['voided']))} | {c.get('artifact', 0)} | {c.get('fossil', 0)} | "
             f"{c.get('sample', 0)} | {r.get('sieved', 0)} | {t['integrity']} |"
         )
+    sv = s["survey"]
+    lines += [
+        "",
+        "## Survey",
+        "",
+        f"Site grid fitted to WGS 84 / UTM 36S from the three control points: rotation "
+        f"{sv['grid_rotation_deg']:.5f} deg, scale {sv['grid_scale']:.8f}, largest residual {sv['grid_max_residual_m']:.4f} m; "
+        f"tablet polynomial (no PROJ needed) worst error {sv['polynomial_max_error_m'] * 1000:.5f} mm over a "
+        f"{2 * sv['polynomial_half_extent_m'] / 1000:g} km square.",
+        "",
+    ]
+    for label, st in sv["setups"].items():
+        if st["method"] == "resection":
+            detail = (f"free station on {st['points']} control points, largest residual {st['max_residual_m']:.4f} m, "
+                      f"scale {st['scale_ppm']:+.1f} ppm")
+        else:
+            detail = (f"{st['method']}, backsights {', '.join(st['backsights'])}, largest angle residual "
+                      f"{st['max_angle_residual_deg']:.5f} deg" + "".join(f"; warning: {w}" for w in st["warnings"]))
+        t = s["tablets"][label]
+        lines.append(f"- **{label}**: {detail}. Positions: " + ", ".join(f"{k} {v}" for k, v in t["by_position"].items())
+                     + f"; {t['shots']} raw shots and {t['gnss_fixes']} GNSS fixes kept"
+                     + (f"; {t['gnss_float_refused_then_overridden']} RTK-float fixes refused, then accepted with the "
+                        "recorder's reason" if t["gnss_float_refused_then_overridden"] else "") + ".")
     lines += ["", "Finds (not voided) per horizon: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_horizon"].items())]
     lines += ["", "Finds per unit: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_unit"].items())]
     lines += ["", "## Bad input is refused with the fix, and nothing is written", ""]

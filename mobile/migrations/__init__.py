@@ -18,11 +18,13 @@ from sqlalchemy.engine import Connection
 
 from schema.errors import MigrationFailed, StoreTooNew
 
-from . import m0001_initial, m0002_find_flags, m0003_site_grid_polynomial
+from . import m0001_initial, m0002_find_flags, m0003_site_grid_polynomial, m0004_gnss_plot_override
 
 __all__ = ["MIGRATIONS", "applied", "pending", "upgrade"]
 
-MIGRATIONS: tuple[ModuleType, ...] = (m0001_initial, m0002_find_flags, m0003_site_grid_polynomial)
+MIGRATIONS: tuple[ModuleType, ...] = (
+    m0001_initial, m0002_find_flags, m0003_site_grid_polynomial, m0004_gnss_plot_override,
+)
 
 _TABLE = """CREATE TABLE IF NOT EXISTS baulk_migration (
     name VARCHAR PRIMARY KEY,

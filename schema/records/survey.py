@@ -88,6 +88,10 @@ class GnssFixBase(Record):
     sigma_lon_m: float | None = Field(default=None, ge=0, allow_inf_nan=False)
     sigma_alt_m: float | None = Field(default=None, ge=0, allow_inf_nan=False)
     fixed_at: Timestamp
+    plot_override_reason: str | None = Field(
+        default=None, max_length=500,
+        description="why a fix that is not RTK fixed was accepted for a piece-plot (the recorder's words)",
+    )
 
 
 class GnssFix(GnssFixBase):

@@ -50,6 +50,14 @@ def test_demo_writes_a_summary(tmp_path: Path) -> None:
     # numbers stayed inside each tablet's block, and no number was used twice
     spans = sorted(t["numbers"] for t in summary["tablets"].values())
     assert spans == [[1, 140], [501, 620], [1001, 1110]]
+    # survey: the grid was fitted, each tablet set up its instrument, plotted finds kept their raw observations
+    survey = summary["survey"]
+    assert survey["polynomial_max_error_m"] < 1e-4 and survey["grid_max_residual_m"] < 0.005
+    assert survey["setups"]["TAB-2"]["method"] == "resection" and survey["setups"]["TAB-2"]["station_error_m"] < 0.005
+    for t in summary["tablets"].values():
+        assert t["shots"] == t["by_position"]["total_station"]
+        assert t["gnss_fixes"] == t["by_position"].get("gnss", 0)
+    assert summary["tablets"]["TAB-3"]["gnss_fixes"] > 0
 
 
 def test_demo_refuses_to_overwrite(tmp_path: Path) -> None:
