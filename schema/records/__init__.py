@@ -11,11 +11,11 @@ from ._base import Record, RecordSpec
 from .device import Device, DevicePublic, NumberBlock
 from .find import Find, Sample
 from .site import ControlPoint, GridPolynomial, GridTransform, Season, Site, Trench
-from .strata import Horizon, LevelPoint, Relation, Spit, Unit
+from .strata import Horizon, HorizonAssignment, LevelPoint, Relation, Spit, Unit
 from .survey import GnssFix, Shot, StationSetup
 
 __all__ = [
-    "REGISTRY", "ControlPoint", "Device", "DevicePublic", "Find", "GnssFix", "GridPolynomial", "GridTransform", "Horizon",
+    "REGISTRY", "ControlPoint", "Device", "DevicePublic", "Find", "GnssFix", "GridPolynomial", "GridTransform", "Horizon", "HorizonAssignment",
     "LevelPoint", "NumberBlock", "Record", "RecordSpec", "Relation", "Sample", "Season", "Shot", "Site",
     "Spit", "StationSetup", "Trench", "Unit", "spec_for",
 ]

@@ -63,6 +63,23 @@ class SiteBase(Record):
     z_tolerance_m: Annotated[
         float, Field(gt=0, le=1, description="tolerance on a find's Z against its unit's surfaces (m)")
     ] = 0.02
+    timezone: str = Field(
+        default="UTC", description="the site's time zone (IANA name), for dates on finds and units",
+        examples=["Africa/Nairobi"],
+    )
+
+    @model_validator(mode="after")
+    def _known_zone(self) -> "SiteBase":
+        import zoneinfo
+
+        try:
+            zoneinfo.ZoneInfo(self.timezone)
+        except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+            raise FieldError(
+                "timezone", f"time zone {self.timezone!r} is not known",
+                "give an IANA name such as 'Africa/Nairobi', or 'UTC'",
+            ) from None
+        return self
 
 
 class Site(SiteBase):

@@ -9,12 +9,12 @@ from typing import Annotated
 from pydantic import Field, model_validator
 
 from .. import vocab
-from ..fields import Code, Easting, Elevation, Id, Initials, Munsell, Northing, Ref, new_id
+from ..fields import Code, Easting, Elevation, Id, Initials, Munsell, Northing, Ref, Timestamp, new_id
 from ..validation import FieldError
 from ._base import Record, spec
 
 __all__ = [
-    "Horizon", "HorizonBase", "LevelPoint", "LevelPointBase", "Relation", "RelationBase", "Spit", "SpitBase",
+    "Horizon", "HorizonAssignment", "HorizonAssignmentBase", "HorizonBase", "LevelPoint", "LevelPointBase", "Relation", "RelationBase", "Spit", "SpitBase",
     "Unit", "UnitBase", "SPECS",
 ]
 
@@ -134,10 +134,25 @@ class Spit(SpitBase):
     id: Id = Field(default_factory=new_id)
 
 
+class HorizonAssignmentBase(Record):
+    """One change of a unit's horizon: who put it in which horizon, when and why (the history analysts need)."""
+
+    unit_id: Annotated[uuid.UUID, Ref("unit")]
+    horizon_id: Annotated[uuid.UUID | None, Ref("horizon")] = Field(default=None, description="None: taken out")
+    assigned_by: Initials
+    assigned_at: Timestamp
+    note: str = Field(default="", max_length=1000)
+
+
+class HorizonAssignment(HorizonAssignmentBase):
+    id: Id = Field(default_factory=new_id)
+
+
 SPECS = (
     spec("horizon", HorizonBase, Horizon, unique=(("site_id", "code"),)),
     spec("unit", UnitBase, Unit, unique=(("site_id", "code"),), indexes=(("trench_id",),)),
     spec("relation", RelationBase, Relation, indexes=(("upper_unit_id",), ("lower_unit_id",))),
     spec("level_point", LevelPointBase, LevelPoint, indexes=(("unit_id",),)),
     spec("spit", SpitBase, Spit, unique=(("unit_id", "number"),)),
+    spec("horizon_assignment", HorizonAssignmentBase, HorizonAssignment, indexes=(("unit_id",),)),
 )
