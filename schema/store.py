@@ -16,12 +16,14 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from . import db
+from .errors import RecordNotFound
 from .records import REGISTRY, Record
 from .tables import metadata
 from .validation import check
 
 if TYPE_CHECKING:
     from .records import StationSetup
+    from .strata.data import SiteData
 
 __all__ = ["RecordStore"]
 
@@ -133,3 +135,33 @@ class RecordStore:
                     rows = conn.execute(t.update().where(t.c.shot_id == shot_id).values(e=e, n=n, z=z))
                     moved[key] += rows.rowcount
         return moved
+
+    def site_data(self, *, site_id: "uuid.UUID | None" = None) -> "SiteData":
+        """Everything validation reads, for one site (the only one when not given), finds as columns."""
+        from .records import GnssFix, Horizon, LevelPoint, Relation, Site, Spit, StationSetup, Trench, Unit
+        from .strata.data import FIND_COLUMNS, FindColumns, SiteData
+
+        with self.read() as conn:
+            sites = list(db.select(conn, Site))
+            if not sites:
+                raise RecordNotFound("this store holds no site yet; set the site up (or sync) first")
+            site = next((s for s in sites if s.id == site_id), None) if site_id else sites[0]
+            if site is None:
+                raise RecordNotFound(f"no site has id {site_id}")
+            units = list(db.select(conn, Unit, site_id=site.id, order_by="code"))
+            unit_ids = {u.id for u in units}
+            all_units = set(conn.execute(sa.select(metadata.tables["unit"].c.id)).scalars())
+            trenches = list(db.select(conn, Trench, site_id=site.id, order_by="code"))
+            setups = list(db.select(conn, StationSetup, site_id=site.id))
+            t = metadata.tables["find"]
+            rows = conn.execute(sa.select(*(t.c[c] for c in FIND_COLUMNS)).where(t.c.site_id == site.id))
+            return SiteData(
+                site=site, trenches=trenches, units=units,
+                relations=list(db.select(conn, Relation, site_id=site.id)),
+                horizons=list(db.select(conn, Horizon, site_id=site.id)),
+                level_points=[lp for lp in db.select(conn, LevelPoint)
+                              if lp.unit_id in unit_ids or lp.unit_id not in all_units],
+                spits=[s for s in db.select(conn, Spit) if s.unit_id in unit_ids],
+                setups=setups, gnss_fixes=list(db.select(conn, GnssFix, site_id=site.id)),
+                finds=FindColumns.from_rows(rows),
+            )
