@@ -136,8 +136,11 @@ class RecordStore:
                     moved[key] += rows.rowcount
         return moved
 
-    def site_data(self, *, site_id: "uuid.UUID | None" = None) -> "SiteData":
-        """Everything validation reads, for one site (the only one when not given), finds as columns."""
+    def site_data(self, *, site_id: "uuid.UUID | None" = None, only_find: "uuid.UUID | None" = None) -> "SiteData":
+        """Everything validation reads, for one site (the first when not given), finds as columns.
+
+        ``only_find`` narrows the finds to that one and any sharing its number (what a live check needs).
+        """
         from .records import GnssFix, Horizon, LevelPoint, Relation, Site, Spit, StationSetup, Trench, Unit
         from .strata.data import FIND_COLUMNS, FindColumns, SiteData
 
@@ -154,7 +157,11 @@ class RecordStore:
             trenches = list(db.select(conn, Trench, site_id=site.id, order_by="code"))
             setups = list(db.select(conn, StationSetup, site_id=site.id))
             t = metadata.tables["find"]
-            rows = conn.execute(sa.select(*(t.c[c] for c in FIND_COLUMNS)).where(t.c.site_id == site.id))
+            q = sa.select(*(t.c[c] for c in FIND_COLUMNS)).where(t.c.site_id == site.id)
+            if only_find is not None:
+                number = sa.select(t.c.number).where(t.c.id == only_find).scalar_subquery()
+                q = q.where(t.c.number == number)
+            rows = conn.execute(q)
             return SiteData(
                 site=site, trenches=trenches, units=units,
                 relations=list(db.select(conn, Relation, site_id=site.id)),

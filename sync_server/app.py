@@ -20,7 +20,11 @@ from .store import ServerStore
 __all__ = ["ROUTE_ROLES", "create_app"]
 
 # Every route declares who may call it; a test walks the app and fails on a route missing here.
-ROUTE_ROLES: dict[str, str] = {"GET /v1/status": "public"}
+ROUTE_ROLES: dict[str, str] = {
+    "GET /v1/status": "public",
+    "GET /v1/issues": "manager, analyst",
+    "POST /v1/issues/{key}/accept": "manager",
+}
 
 _STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409}
 
@@ -67,6 +71,9 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
             site_codes=sorted(s.code for s in st.list(Site)),
         )
 
+    from .routes import issues
+
+    app.include_router(issues.router)
     return app
 
 

@@ -104,6 +104,43 @@ def inspect(path: Path) -> None:
         click.echo(f"  {name:<14} {n}")
 
 
+@cli.command("validate")
+@click.option("--db", "database_url", default=None,
+              help="Server database URL to validate and store issues in [default: the server's SQLite file].")
+@click.option("--tablet", "tablet_file", type=click.Path(exists=True, dir_okay=False, path_type=Path), default=None,
+              help="Validate a tablet file instead (read-only; nothing is stored).")
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path), default=Path("validation"), show_default=True,
+              help="Folder for issues.json and issues.csv.")
+def validate_cmd(database_url: str | None, tablet_file: Path | None, out: Path) -> None:
+    """Check every find against the stratigraphy; summary here, issues.json/csv in --out; exit 1 on errors."""
+    from .validation import run_validation_job
+
+    data = _tablet_site_data(tablet_file) if tablet_file is not None else None
+    summary = run_validation_job(database_url=database_url, out=out, tablet_data=data, tablet_name=str(tablet_file))
+    for line in summary["lines"]:
+        click.echo(line)
+    if summary["open_errors"]:
+        raise SystemExit(1)
+
+
+def _tablet_site_data(path: Path) -> Any:
+    """A tablet file's data, read from a temporary copy so the original is never changed (not even upgraded)."""
+    import shutil
+    import tempfile
+
+    from mobile.store import TabletStore
+
+    with tempfile.TemporaryDirectory(prefix="baulk-validate-") as tmp:
+        copy = Path(tmp) / path.name
+        shutil.copy2(path, copy)
+        for suffix in ("-wal", "-shm"):
+            side = path.with_name(path.name + suffix)
+            if side.exists():
+                shutil.copy2(side, copy.with_name(copy.name + suffix))
+        with TabletStore.open(copy) as tablet:
+            return tablet.site_data()
+
+
 @cli.command()
 @click.argument("names", nargs=-1)
 @click.option("--quick", is_flag=True, help="Small sizes (the CI run, under 2 minutes).")

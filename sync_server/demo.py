@@ -24,7 +24,8 @@ import numpy as np
 from mobile.recording import Reading, record_gnss_find, record_plotted_find, setup_by_backsight, setup_by_resection
 from schema.demo_site import GRID_TIE, SEASON_START, DemoSite, TabletPlan, build_site, plan_finds
 from schema.errors import BaulkError, FixNotAccepted
-from schema.records import Device, Find, GnssFix, Shot
+from schema.records import Device, Find, GnssFix, Relation, Shot
+from schema.strata import validate
 from schema.survey.polar import Station
 from schema.survey.recompute import station_of
 from schema.survey.simulate import gga, gst, readings_for, rmc
@@ -74,6 +75,8 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
             setup, setup_report = _set_up_instrument(tablet, demo, plan)
             survey_summary["setups"][label] = setup_report
             tablet_counts[label] = _record(tablet, demo, plan, setup, progress, np.random.default_rng(seed))
+            tablet_counts[label]["live_checks"] = _field_mistakes(tablet, demo, plan, setup)
+            tablet_counts[label]["validation"] = validate(tablet.site_data()).by_code()
             tablet_counts[label]["integrity"] = tablet.integrity_check()
             tablet_counts[label]["pragmas"] = tablet.pragmas()
             if label == "TAB-1":
@@ -123,8 +126,10 @@ def _fit_site_grid(server: ServerStore, demo: DemoSite) -> dict[str, Any]:
 
 
 def _reading(station: Any, e: float, n: float, z: float, th: float, at: dt.datetime, rng: Any) -> Reading:
-    """What the instrument would read on a target, with 1 mgon-class angle noise and 2 mm on distances."""
-    hz, zen, sd = readings_for(station, e, n, z, th, rng=rng, sigma_angle=0.0003, sigma_distance_m=0.002)
+    """What the instrument would read on a target, with 1 mgon-class angle noise and 2 mm on distances
+    (exact when ``rng`` is None)."""
+    noise = {"rng": rng, "sigma_angle": 0.0003, "sigma_distance_m": 0.002} if rng is not None else {}
+    hz, zen, sd = readings_for(station, e, n, z, th, **noise)
     return Reading(float(hz[0]), float(zen[0]), float(sd[0]), th, at)
 
 
@@ -209,6 +214,42 @@ def _record(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any, progress:
         "gnss_fixes": tablet.count(GnssFix),
         "gnss_float_refused_then_overridden": floats_refused,
     }
+
+
+def _field_mistakes(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any) -> list[dict[str, Any]]:
+    """The slips that reach a store in real seasons; each is saved (validation never blocks) and the live check
+    shows the recorder the problem and the fix at once."""
+    from mobile.checks import check_find, check_matrix
+
+    trench = demo.trenches[plan.trench]
+    units = [u for u in demo.units.values() if u.trench_id == trench.id]
+    deposits = [u for u in units if u.kind != "cut"]
+    top, deep = deposits[0], deposits[-1]
+    at = dt.datetime.combine(SEASON_START + dt.timedelta(days=20), dt.time(11, 5), dt.timezone(dt.timedelta(hours=3)))
+    base = dict(site_id=demo.site.id, season_id=demo.season.id, trench_id=trench.id, found_at=at,
+                recorder=plan.recorder, category="artifact", material="basalt")
+    (x0, y0), (x1, y1) = trench.outline[0], trench.outline[2]
+    e, n = (x0 + x1) / 2, (y0 + y1) / 2
+    out = []
+    # a flake shot in the deep unit but logged in the unit the recorder had open earlier
+    z = (demo.surfaces[deep.code][0] + demo.surfaces[deep.code][1]) / 2
+    wrong = record_plotted_find(tablet, setup=setup, reading=_reading(station_of(setup), e, n, z, 1.3, at, None),
+                                find={**base, "number": tablet.next_find_number(), "unit_id": top.id, "recovery": "plotted"})
+    out.append({"slip": f"find {wrong.number} shot in {deep.code} but logged in {top.code}",
+                "shown": [str(i) for i in check_find(tablet, wrong)]})
+    cut = next((u for u in units if u.kind == "cut"), None)
+    if cut is not None:
+        f = tablet.save_find(find={**base, "number": tablet.next_find_number(), "unit_id": cut.id, "recovery": "surface"})
+        out.append({"slip": f"find {f.number} logged in the cut {cut.code}", "shown": [str(i) for i in check_find(tablet, f)]})
+    else:
+        f = tablet.save_find(find={**base, "number": tablet.next_find_number(), "unit_id": top.id, "recovery": "sieved"})
+        out.append({"slip": f"sieve find {f.number} saved without its spit", "shown": [str(i) for i in check_find(tablet, f)]})
+    if plan.label == "TAB-3":
+        a, b = deposits[-1], deposits[0]
+        tablet.add(Relation(site_id=demo.site.id, upper_unit_id=a.id, lower_unit_id=b.id, kind="above"))
+        out.append({"slip": f"relation {a.code} above {b.code} typed the wrong way round",
+                    "shown": [str(i) for i in check_matrix(tablet)]})
+    return out
 
 
 def _refusals(tablet: Any, demo: DemoSite) -> list[dict[str, Any]]:
@@ -299,6 +340,15 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
                      + f"; {t['shots']} raw shots and {t['gnss_fixes']} GNSS fixes kept"
                      + (f"; {t['gnss_float_refused_then_overridden']} RTK-float fixes refused, then accepted with the "
                         "recorder's reason" if t["gnss_float_refused_then_overridden"] else "") + ".")
+    lines += ["", "## Checks", "",
+              "Each tablet ran the stratigraphy rules live after every save. The slips planted in this season and "
+              "what the recorder was shown at once:", ""]
+    for label, t in s["tablets"].items():
+        for m in t["live_checks"]:
+            lines.append(f"- {label}, {m['slip']}: " + (" / ".join(m["shown"]) or "nothing (a missed slip)"))
+    lines += ["", "Issues per tablet after the day (code: count): " + "; ".join(
+        f"{label} " + (", ".join(f"{k} {v}" for k, v in t["validation"].items()) or "none")
+        for label, t in s["tablets"].items())]
     lines += ["", "Finds (not voided) per horizon: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_horizon"].items())]
     lines += ["", "Finds per unit: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_unit"].items())]
     lines += ["", "## Bad input is refused with the fix, and nothing is written", ""]

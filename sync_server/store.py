@@ -117,7 +117,7 @@ class ServerStore(RecordStore):
     def device_for_token(self, token: str) -> Device | None:
         """The live (not revoked) device with this token, compared in constant time."""
         wanted = hash_token(token)
-        for device in self.list(Device):
+        for device in self.list(Device, token_hash=wanted):
             if device.token_hash and secrets.compare_digest(device.token_hash, wanted) and device.revoked_at is None:
                 return device
         return None

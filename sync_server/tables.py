@@ -1,7 +1,38 @@
-"""The server database's tables: every record table from ``schema.tables`` (server-only tables join here)."""
+"""The server database's tables: every record table (derived from the models, as on the tablet) plus the
+tables only the server keeps. Alembic compares migrations against ``server_metadata``."""
 
 from __future__ import annotations
 
-from schema.tables import metadata as server_metadata
+import sqlalchemy as sa
 
-__all__ = ["server_metadata"]
+from schema.tables import UTCDateTime, build_metadata
+
+__all__ = ["server_metadata", "validation_issue"]
+
+server_metadata = build_metadata()
+
+# The latest validation run's issues, keyed by the issue's stable key so acceptance survives re-runs.
+validation_issue = sa.Table(
+    "validation_issue", server_metadata,
+    sa.Column("key", sa.String(), primary_key=True, comment="code:record:detail, stable across runs"),
+    sa.Column("code", sa.String(40), nullable=False),
+    sa.Column("severity", sa.String(10), nullable=False),
+    sa.Column("record", sa.String(40), nullable=False),
+    sa.Column("record_id", sa.String(), nullable=True),
+    sa.Column("label", sa.String(), nullable=False),
+    sa.Column("message", sa.String(), nullable=False),
+    sa.Column("fix", sa.String(), nullable=False),
+    sa.Column("value", sa.String(), nullable=True),
+    sa.Column("site_id", sa.Uuid(), nullable=False),
+    sa.Column("trench", sa.String(), nullable=True, comment="trench code of the record, for filtering"),
+    sa.Column("unit", sa.String(), nullable=True, comment="unit code of the record, for filtering"),
+    sa.Column("first_seen_at", UTCDateTime(), nullable=False),
+    sa.Column("last_seen_at", UTCDateTime(), nullable=False),
+    sa.Column("open", sa.Boolean(), nullable=False, comment="still reported by the latest run"),
+    sa.Column("accepted_at", UTCDateTime(), nullable=True),
+    sa.Column("accepted_by", sa.String(), nullable=True),
+    sa.Column("accepted_reason", sa.String(), nullable=True),
+    sa.Index(None, "code"),
+    sa.Index(None, "record_id"),
+    comment="Validation issues of the latest run, with managers' acceptances",
+)

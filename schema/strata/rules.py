@@ -91,7 +91,7 @@ def _unit_assignment(data: SiteData, uidx: np.ndarray, live: np.ndarray) -> list
     for i in np.flatnonzero(known & (kind == "cut")):
         unit = units[uidx[i]]
         out.append(issue("UNIT_IS_CUT", "find", f.id[i], _label(f.number[i]),
-                         f"find {f.number[i]} is recorded in unit {unit.code}, which is a cut; cuts hold no finds",
+                         f"find {f.number[i]} is recorded in unit {unit.code}, which is a cut (cuts hold no finds)",
                          f"record it in the fill of {unit.code}", value=unit.code))
     opened = np.array([u.opened_on.toordinal() for u in units] + [0])[uidx]
     closed = np.array([u.closed_on.toordinal() if u.closed_on else 10**7 for u in units] + [10**7])[uidx]

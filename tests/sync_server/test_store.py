@@ -16,6 +16,7 @@ from schema.errors import DuplicateRecord, RecordNotFound, StoreError
 from schema.records import Device, Find, NumberBlock, Unit
 from schema.tables import metadata
 from sync_server.store import ServerStore, current_revision, hash_token, head_revision
+from sync_server.tables import server_metadata
 
 
 @pytest.fixture
@@ -35,7 +36,7 @@ def test_alembic_schema_matches_the_models(server: ServerStore) -> None:
             conn, opts={"include_name": lambda name, type_, _p: not (type_ == "table" and name == "alembic_version"),
                         "compare_type": False}
         )
-        diffs = [d for d in compare_metadata(ctx, metadata) if d[0] not in ("add_table_comment", "modify_comment")]
+        diffs = [d for d in compare_metadata(ctx, server_metadata) if d[0] not in ("add_table_comment", "modify_comment")]
     assert diffs == []
 
 

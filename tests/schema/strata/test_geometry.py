@@ -45,7 +45,8 @@ def test_surface_interpolation_matches_scipy_inside_the_hull(seed: int, n: int) 
     ref = LinearNDInterpolator(pts[:, :2], pts[:, 2])(x, y)
     inside = ~np.isnan(ref)
     # Delaunay is unique for points in general position, so both libraries interpolate on the same triangles
-    assert np.abs(z[inside] - ref[inside]).max() < 1e-9
+    if inside.any():
+        assert np.abs(z[inside] - ref[inside]).max() < 1e-9
     assert set(method[inside]) <= {"triangulation"}
     assert set(method[~inside]) <= {"plane"}
 

@@ -1,0 +1,179 @@
+"""Validation on the server: run the shared rules over the server store, keep the issues (with managers'
+acceptances) in ``validation_issue``, list and accept them. Called by ``baulk validate`` and, once sync
+lands, after every merge. Never blocks anything: it only writes issues."""
+
+from __future__ import annotations
+
+import datetime as dt
+import uuid
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import sqlalchemy as sa
+
+from schema.errors import RecordNotFound
+from schema.strata import Report, SiteData, validate
+
+from .store import ServerStore
+from .tables import validation_issue as T
+
+__all__ = ["RunSummary", "accept_issue", "list_issues", "run_validation"]
+
+
+@dataclass(frozen=True)
+class RunSummary:
+    new: int
+    still_open: int
+    resolved: int
+    accepted_open: int
+
+
+def _context(data: SiteData) -> dict[str, tuple[str | None, str | None]]:
+    """record id -> (trench code, unit code), for filtering issues by trench and unit."""
+    trench = {t.id: t.code for t in data.trenches}
+    units = {u.id: u for u in data.units}
+    ctx: dict[str, tuple[str | None, str | None]] = {}
+    for u in data.units:
+        ctx[str(u.id)] = (trench.get(u.trench_id), u.code)
+    f = data.finds
+    for fid, tid, uid in zip(f.id, f.trench_id, f.unit_id):
+        unit = units.get(uid)
+        ctx[str(fid)] = (trench.get(tid), unit.code if unit else None)
+    return ctx
+
+
+def run_validation(store: ServerStore, *, now: dt.datetime | None = None,
+                   site_id: uuid.UUID | None = None) -> tuple[Report, RunSummary]:
+    """Validate the site and store the run: new issues added, still-present ones refreshed, gone ones closed."""
+    now = now or dt.datetime.now(dt.timezone.utc)
+    data = store.site_data(site_id=site_id)
+    report = validate(data)
+    ctx = _context(data)
+    current = {i.key: i for i in report.issues}
+    with store.atomic() as conn:
+        store._serialize(conn, "validation")  # noqa: SLF001 - one run at a time
+        existing = {r.key: r for r in conn.execute(sa.select(T).where(T.c.site_id == data.site.id))}
+        new = [k for k in current if k not in existing]
+        for key, i in current.items():
+            trench, unit = ctx.get(i.record_id or "", (None, None))
+            values = dict(code=i.code, severity=i.severity, record=i.record, record_id=i.record_id, label=i.label,
+                          message=i.message, fix=i.fix, value=None if i.value is None else str(i.value),
+                          site_id=data.site.id, trench=trench, unit=unit, last_seen_at=now, open=True)
+            if key in existing:
+                conn.execute(T.update().where(T.c.key == key).values(**values))
+            else:
+                conn.execute(T.insert().values(key=key, first_seen_at=now, **values))
+        gone = [k for k, r in existing.items() if k not in current and r.open]
+        if gone:
+            conn.execute(T.update().where(T.c.key.in_(gone)).values(open=False))
+        accepted = conn.execute(
+            sa.select(sa.func.count()).select_from(T).where(T.c.open, T.c.accepted_at.is_not(None))
+        ).scalar_one()
+    return report, RunSummary(len(new), len(current) - len(new), len(gone), int(accepted))
+
+
+def _row(r: Any) -> dict[str, Any]:
+    d = dict(r._mapping)
+    for k in ("first_seen_at", "last_seen_at", "accepted_at"):
+        d[k] = d[k].isoformat() if d[k] else None
+    d["site_id"] = str(d["site_id"])
+    return d
+
+
+def list_issues(store: ServerStore, *, code: str | None = None, severity: str | None = None,
+                trench: str | None = None, unit: str | None = None, include_closed: bool = False,
+                include_accepted: bool = True, limit: int = 1000, offset: int = 0) -> list[dict[str, Any]]:
+    """Stored issues, errors first; filters by code, severity, trench and unit."""
+    q = sa.select(T)
+    for col, value in (("code", code), ("severity", severity), ("trench", trench), ("unit", unit)):
+        if value is not None:
+            q = q.where(T.c[col] == value)
+    if not include_closed:
+        q = q.where(T.c.open)
+    if not include_accepted:
+        q = q.where(T.c.accepted_at.is_(None))
+    rank = sa.case({"error": 0, "warning": 1}, value=T.c.severity, else_=2)
+    q = q.order_by(rank, T.c.code, T.c.label, T.c.key).limit(limit).offset(offset)
+    with store.read() as conn:
+        return [_row(r) for r in conn.execute(q)]
+
+
+def accept_issue(store: ServerStore, *, key: str, by: str, reason: str,
+                 now: dt.datetime | None = None) -> dict[str, Any]:
+    """A manager accepts an issue with a reason (it stays listed, marked accepted, until the data change)."""
+    if not reason.strip():
+        raise ValueError("give a reason for accepting the issue, e.g. 'bioturbation: krotovina seen in section'")
+    with store.atomic() as conn:
+        done = conn.execute(T.update().where(T.c.key == key).values(
+            accepted_at=now or dt.datetime.now(dt.timezone.utc), accepted_by=by, accepted_reason=reason.strip()))
+        if done.rowcount != 1:
+            raise RecordNotFound(f"no validation issue has key {key!r}; list them with baulk validate or GET /v1/issues")
+        row = conn.execute(sa.select(T).where(T.c.key == key)).one()
+    return _row(row)
+
+
+REPORT_COLUMNS = ("severity", "code", "label", "message", "fix", "value", "trench", "unit", "record", "record_id",
+                  "key", "open", "accepted_by", "accepted_reason")
+
+
+def write_report(rows: list[dict[str, Any]], out: Path) -> tuple[Path, Path]:
+    """Write ``issues.json`` and ``issues.csv`` into ``out``; returns both paths."""
+    import csv
+    import json
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    jpath, cpath = out / "issues.json", out / "issues.csv"
+    tmp = jpath.with_suffix(".json.part")
+    tmp.write_text(json.dumps(rows, indent=2, default=str) + "\n")
+    tmp.replace(jpath)
+    tmp = cpath.with_suffix(".csv.part")
+    with tmp.open("w", newline="") as fh:
+        w = csv.DictWriter(fh, fieldnames=REPORT_COLUMNS, extrasaction="ignore")
+        w.writeheader()
+        w.writerows(rows)
+    tmp.replace(cpath)
+    return jpath, cpath
+
+
+def tablet_rows(report: Report, data: SiteData) -> list[dict[str, Any]]:
+    """Issues of a tablet file's own validation, shaped like the server's stored rows."""
+    ctx = _context(data)
+    rows = []
+    for i in report.issues:
+        trench, unit = ctx.get(i.record_id or "", (None, None))
+        rows.append({**i.as_dict(), "trench": trench, "unit": unit, "open": True, "accepted_by": None,
+                     "accepted_reason": None, "value": None if i.value is None else str(i.value)})
+    return rows
+
+
+def run_validation_job(*, database_url: str | None, out: Path, tablet_data: SiteData | None = None,
+                       tablet_name: str = "") -> dict[str, Any]:
+    """What ``baulk validate`` does: validate a server store (issues stored) or a tablet's data, write files."""
+    from collections import Counter
+
+    if tablet_data is not None:
+        report = validate(tablet_data)
+        rows = tablet_rows(report, tablet_data)
+        head = [f"tablet file {tablet_name}: {len(tablet_data.finds)} finds checked"]
+    else:
+        from .settings import ServerSettings
+
+        url = database_url or ServerSettings().database_url
+        with ServerStore.open(url) as store:
+            report, run = run_validation(store)
+            rows = list_issues(store, limit=10**9)
+        head = [f"server store: {report.finds_checked} finds checked; {run.new} new issues, {run.resolved} resolved, "
+                f"{run.accepted_open} accepted"]
+    jpath, cpath = write_report(rows, out)
+    sev = Counter(r["severity"] for r in rows)
+    open_errors = sum(1 for r in rows if r["severity"] == "error" and not r.get("accepted_by"))
+    lines = head + [f"{sev.get('error', 0)} errors ({open_errors} not accepted), {sev.get('warning', 0)} warnings, "
+                    f"{sev.get('info', 0)} notes"]
+    for code, n in sorted(Counter(r["code"] for r in rows).items()):
+        lines.append(f"  {code:<32} {n}")
+    for r in [r for r in rows if r["severity"] == "error"][:10]:
+        lines.append(f"  - {r['message']}; {r['fix']}")
+    lines.append(f"written: {jpath} and {cpath}")
+    return {"lines": lines, "open_errors": open_errors, "rows": rows}
