@@ -42,3 +42,83 @@ benchmark(Bench(
     repeats=5,
     doc="polar reduction of n total-station shots (numpy) vs pyproj transforming n points; goal ratio <= 1.0",
 ))
+
+
+def _setup_validate(size: int, work: Path) -> dict[str, Any]:
+    """A site of 50 trenches x 10 stacked units (500 units, 8 level points each) and ``size`` finds."""
+    import datetime as dt
+    import uuid
+
+    import sqlalchemy as sa
+
+    from . import db
+    from .records import LevelPoint, Season, Site, Trench, Unit
+    from .store import RecordStore
+    from .strata.data import FIND_COLUMNS
+    from .tables import metadata
+
+    engine = db.sqlite_engine(work / "validate.sqlite")
+    metadata.create_all(engine)
+    store = RecordStore(engine)
+    rng = np.random.default_rng(2)
+    site = Site(code="BENCH", name="Bench site", crs_epsg=32736)
+    season = Season(site_id=site.id, label="2026", starts_on=dt.date(2026, 7, 1))
+    trenches, units, levels = [], [], []
+    for t in range(50):
+        x0, y0 = (t % 10) * 10.0, (t // 10) * 10.0
+        trench = Trench(site_id=site.id, code=f"T{t}", outline=[(x0, y0), (x0 + 4, y0), (x0 + 4, y0 + 3), (x0, y0 + 3)])
+        trenches.append(trench)
+        for k in range(10):
+            unit = Unit(site_id=site.id, trench_id=trench.id, code=f"{t}-{k}", kind="deposit",
+                        opened_on=dt.date(2026, 7, 1), recorder="AK")
+            units.append(unit)
+            top, bottom = 100.0 - 0.2 * k, 100.0 - 0.2 * (k + 1)
+            for (e, n) in trench.outline:
+                levels.append(LevelPoint(unit_id=unit.id, surface="top", e=e, n=n, z=top + rng.normal(0, 0.005)))
+                levels.append(LevelPoint(unit_id=unit.id, surface="bottom", e=e, n=n, z=bottom + rng.normal(0, 0.005)))
+    with engine.begin() as conn:
+        for r in (site, season, *trenches, *units, *levels):
+            conn.execute(metadata.tables[r.record_name].insert(), db.to_row(r))
+        which = rng.integers(0, len(units), size)
+        when = dt.datetime(2026, 7, 10, 9, tzinfo=dt.timezone.utc)
+        rows = []
+        for i, u in enumerate(which):
+            unit = units[u]
+            trench = trenches[u // 10]
+            (x0, y0) = trench.outline[0]
+            k = u % 10
+            rows.append(dict(
+                id=uuid.uuid4(), number=i + 1, site_id=site.id, season_id=season.id, trench_id=trench.id,
+                unit_id=unit.id, category="artifact", material="basalt", count=1, recovery="plotted",
+                e=x0 + rng.uniform(0, 4), n=y0 + rng.uniform(0, 3), z=100.0 - 0.2 * k - rng.uniform(0, 0.21),
+                position_source="total_station", found_at=when, recorder="AK", notes="", photo_hashes=[],
+                human_remains=False, voided=False,
+            ))
+        conn.execute(metadata.tables["find"].insert(), rows)
+    t = metadata.tables["find"]
+    return {"store": store, "engine": engine, "query": sa.select(*(t.c[c] for c in FIND_COLUMNS)),
+            "report": {"units": len(units), "level_points": len(levels)}}
+
+
+def _validate(state: dict[str, Any], _work: Path, _i: int) -> None:
+    from .strata import validate
+
+    report = validate(state["store"].site_data())
+    state["report"]["issues"] = len(report.issues)
+
+
+def _scan(state: dict[str, Any], _work: Path, _i: int) -> None:
+    with state["engine"].connect() as conn:
+        conn.execute(state["query"]).fetchall()
+
+
+benchmark(Bench(
+    name="strata.validate",
+    baseline_name="SQL scan of the same finds",
+    sizes=(100_000, 200_000),
+    setup=_setup_validate,
+    subject=_validate,
+    baseline=_scan,
+    repeats=3,
+    doc="load a site and run every rule over n finds, 500 units with surfaces, vs a plain SQL scan; goal <= 5x",
+))

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .records import (
-    ControlPoint, Find, Horizon, LevelPoint, Relation, Sample, Season, Site, Spit, Trench, Unit,
+    AgeDetermination, ControlPoint, Find, Horizon, LevelPoint, Relation, Sample, Season, Site, Spit, Trench, Unit,
 )
 
 __all__ = ["DemoSite", "TabletPlan", "build_site", "plan_finds"]
@@ -81,6 +81,13 @@ CONTROL = tuple(
                           ("CP3", 1012.000, 2020.000, 100.931))
 )
 
+# Invented dates: the grey tuff VL-1 by 40Ar/39Ar on feldspars, and the lower clays by correlation of a
+# thin ash in them with a dated eruption elsewhere in the basin.
+AGES = (
+    ("102", "argon_argon", 1871.0, 4.0, "VLM-AR-07", "sanidine, single-crystal fusion"),
+    ("104", "tephra_correlation", 1935.0, 12.0, "VLM-TC-02", "glass chemistry match to a basin marker ash"),
+)
+
 FOSSIL_TAXA = (
     ("Hippopotamidae", "molar"), ("Bovidae", "horn core"), ("Crocodylidae", "tooth"), ("Suidae", "canine"),
     ("Equidae", "metapodial"), ("Cichlidae", "vertebra"), ("Testudines", "carapace fragment"),
@@ -101,6 +108,7 @@ class DemoSite:
     relations: list[Relation]
     level_points: list[LevelPoint]
     spits: dict[str, list[Spit]]
+    ages: list[AgeDetermination]
     surfaces: dict[str, tuple[float, float]] = field(default_factory=dict)  # unit -> (top Z, bottom Z)
 
     def setup_records(self) -> list[Any]:
@@ -108,7 +116,7 @@ class DemoSite:
         return [
             self.site, self.season, *self.control_points, *self.trenches.values(), *self.horizons.values(),
             *self.units.values(), *self.relations, *self.level_points,
-            *(s for spits in self.spits.values() for s in spits),
+            *(s for spits in self.spits.values() for s in spits), *self.ages,
         ]
 
 
@@ -155,7 +163,12 @@ def build_site() -> DemoSite:
     ]
     surfaces = _surfaces()
     level_points, spits = _levels_and_spits(units, trenches, surfaces)
-    return DemoSite(site, season, cps, trenches, horizons, units, relations, level_points, spits, surfaces)
+    ages = [
+        AgeDetermination(site_id=site.id, unit_id=units[code].id, method=method, age_ka=age, sigma_ka=sigma,  # type: ignore[arg-type]
+                         lab_code=lab, note=note)
+        for code, method, age, sigma, lab, note in AGES
+    ]
+    return DemoSite(site, season, cps, trenches, horizons, units, relations, level_points, spits, ages, surfaces)
 
 
 def _levels_and_spits(

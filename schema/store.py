@@ -141,7 +141,9 @@ class RecordStore:
 
         ``only_find`` narrows the finds to that one and any sharing its number (what a live check needs).
         """
-        from .records import GnssFix, Horizon, LevelPoint, Relation, Site, Spit, StationSetup, Trench, Unit
+        from .records import (
+            AgeDetermination, GnssFix, Horizon, LevelPoint, Relation, Site, Spit, StationSetup, Trench, Unit,
+        )
         from .strata.data import FIND_COLUMNS, FindColumns, SiteData
 
         with self.read() as conn:
@@ -170,5 +172,6 @@ class RecordStore:
                               if lp.unit_id in unit_ids or lp.unit_id not in all_units],
                 spits=[s for s in db.select(conn, Spit) if s.unit_id in unit_ids],
                 setups=setups, gnss_fixes=list(db.select(conn, GnssFix, site_id=site.id)),
+                ages=list(db.select(conn, AgeDetermination, site_id=site.id)),
                 finds=FindColumns.from_rows(rows),
             )

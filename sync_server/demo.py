@@ -76,7 +76,10 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
             survey_summary["setups"][label] = setup_report
             tablet_counts[label] = _record(tablet, demo, plan, setup, progress, np.random.default_rng(seed))
             tablet_counts[label]["live_checks"] = _field_mistakes(tablet, demo, plan, setup)
-            tablet_counts[label]["validation"] = validate(tablet.site_data()).by_code()
+            day_report = validate(tablet.site_data())
+            tablet_counts[label]["validation"] = day_report.by_code()
+            if label == "TAB-1":
+                summary["age_brackets"] = _brackets(day_report, demo)
             tablet_counts[label]["integrity"] = tablet.integrity_check()
             tablet_counts[label]["pragmas"] = tablet.pragmas()
             if label == "TAB-1":
@@ -216,6 +219,13 @@ def _record(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any, progress:
     }
 
 
+def _brackets(report: Any, demo: DemoSite) -> dict[str, Any]:
+    from schema.strata.dating import horizon_brackets
+
+    hb = horizon_brackets(report.brackets, report.matrix, list(demo.horizons.values()))
+    return {h.code: hb[h.id].as_dict() for h in sorted(demo.horizons.values(), key=lambda h: h.order)}
+
+
 def _field_mistakes(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any) -> list[dict[str, Any]]:
     """The slips that reach a store in real seasons; each is saved (validation never blocks) and the live check
     shows the recorder the problem and the fix at once."""
@@ -298,6 +308,11 @@ def _tables(out: Path, demo: DemoSite) -> dict[str, Any]:
     return {"by_unit": dict(sorted(by_unit.items())), "by_horizon": dict(sorted(by_horizon.items()))}
 
 
+def _span(b: dict[str, Any]) -> str:
+    young, old = b["youngest_ka"], b["oldest_ka"]
+    return f"{'?' if young is None else format(young, 'g')} to {'?' if old is None else format(old, 'g')}"
+
+
 def _write_summary(out: Path, s: dict[str, Any]) -> None:
     (out / "summary.json").write_text(json.dumps(s, indent=2, default=str) + "\n")
     lines = [
@@ -349,6 +364,8 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
     lines += ["", "Issues per tablet after the day (code: count): " + "; ".join(
         f"{label} " + (", ".join(f"{k} {v}" for k, v in t["validation"].items()) or "none")
         for label, t in s["tablets"].items())]
+    lines += ["", "Age brackets by superposition from the dated tuff and clays (ka, two-sigma): " + "; ".join(
+        f"{code} {_span(b)}" for code, b in s.get("age_brackets", {}).items())]
     lines += ["", "Finds (not voided) per horizon: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_horizon"].items())]
     lines += ["", "Finds per unit: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_unit"].items())]
     lines += ["", "## Bad input is refused with the fix, and nothing is written", ""]

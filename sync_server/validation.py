@@ -153,6 +153,7 @@ def run_validation_job(*, database_url: str | None, out: Path, tablet_data: Site
     """What ``baulk validate`` does: validate a server store (issues stored) or a tablet's data, write files."""
     from collections import Counter
 
+    data = tablet_data
     if tablet_data is not None:
         report = validate(tablet_data)
         rows = tablet_rows(report, tablet_data)
@@ -164,9 +165,11 @@ def run_validation_job(*, database_url: str | None, out: Path, tablet_data: Site
         with ServerStore.open(url) as store:
             report, run = run_validation(store)
             rows = list_issues(store, limit=10**9)
+            data = store.site_data()
         head = [f"server store: {report.finds_checked} finds checked; {run.new} new issues, {run.resolved} resolved, "
                 f"{run.accepted_open} accepted"]
     jpath, cpath = write_report(rows, out)
+    bpath = write_brackets(report, data, out)
     sev = Counter(r["severity"] for r in rows)
     open_errors = sum(1 for r in rows if r["severity"] == "error" and not r.get("accepted_by"))
     lines = head + [f"{sev.get('error', 0)} errors ({open_errors} not accepted), {sev.get('warning', 0)} warnings, "
@@ -175,5 +178,23 @@ def run_validation_job(*, database_url: str | None, out: Path, tablet_data: Site
         lines.append(f"  {code:<32} {n}")
     for r in [r for r in rows if r["severity"] == "error"][:10]:
         lines.append(f"  - {r['message']}; {r['fix']}")
-    lines.append(f"written: {jpath} and {cpath}")
+    lines.append(f"written: {jpath}, {cpath} and {bpath}")
     return {"lines": lines, "open_errors": open_errors, "rows": rows}
+
+
+def write_brackets(report: Report, data: SiteData, out: Path) -> Path:
+    """``age_brackets.json``: each unit's and horizon's age bracket implied by the dated units (ka)."""
+    import json
+
+    from schema.strata.dating import horizon_brackets
+
+    units = {u.id: u for u in data.units}
+    hb = horizon_brackets(report.brackets, report.matrix, data.horizons)
+    doc = {
+        "method": "superposition with two-sigma date ranges (see schema/strata/dating.py)",
+        "units": {units[u].code: b.as_dict() for u, b in sorted(report.brackets.items(), key=lambda kv: units[kv[0]].code)},
+        "horizons": {h.code: hb[h.id].as_dict() for h in sorted(data.horizons, key=lambda h: h.order)},
+    }
+    path = Path(out) / "age_brackets.json"
+    path.write_text(json.dumps(doc, indent=2) + "\n")
+    return path

@@ -10,7 +10,7 @@ from typing import Any, Iterable
 import numpy as np
 from numpy.typing import NDArray
 
-from ..records import Find, GnssFix, Horizon, LevelPoint, Relation, Site, Spit, StationSetup, Trench, Unit
+from ..records import AgeDetermination, Find, GnssFix, Horizon, LevelPoint, Relation, Site, Spit, StationSetup, Trench, Unit
 
 __all__ = ["FIND_COLUMNS", "FindColumns", "SiteData"]
 
@@ -83,4 +83,5 @@ class SiteData:
     spits: list[Spit] = field(default_factory=list)
     setups: list[StationSetup] = field(default_factory=list)
     gnss_fixes: list[GnssFix] = field(default_factory=list)
+    ages: list[AgeDetermination] = field(default_factory=list)
     finds: FindColumns = field(default_factory=lambda: FindColumns.from_rows([]))

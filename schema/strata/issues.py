@@ -43,6 +43,8 @@ CATALOGUE: dict[str, tuple[Severity, str]] = {
     "HORIZON_SAME_AS_SPLIT": ("warning", "units recorded as the same unit but put in different horizons"),
     "GNSS_NOT_FIXED": ("warning", "a find plotted from a GNSS fix that is not RTK fixed"),
     "SETUP_RESIDUAL": ("warning", "an instrument setup whose residuals exceed the tolerance"),
+    "AGE_CONTRADICTION": ("error", "a date on an upper unit older than a date below it, beyond both 2-sigma ranges"),
+    "AGE_UNKNOWN_UNIT": ("error", "a date on a unit that does not exist"),
 }
 
 

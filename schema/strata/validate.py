@@ -3,10 +3,12 @@ share. Validation reports; it never raises on bad data and never blocks a merge.
 
 from __future__ import annotations
 
+import uuid
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 from .data import SiteData
+from .dating import Bracket, age_brackets, age_issues
 from .issues import Issue
 from .matrix import Matrix, build_matrix
 from .rules import find_issues, horizon_issues, level_issues, quality_issues
@@ -21,6 +23,7 @@ class Report:
     issues: list[Issue]
     matrix: Matrix
     finds_checked: int
+    brackets: dict[uuid.UUID, Bracket] = field(default_factory=dict)  # unit id -> implied age bracket
 
     @property
     def errors(self) -> list[Issue]:
@@ -44,6 +47,6 @@ def validate(data: SiteData) -> Report:
     """Every issue of the site, errors first, then by code and record."""
     matrix = build_matrix(data.units, data.relations)
     issues = [*matrix.issues, *level_issues(data), *find_issues(data, matrix), *horizon_issues(data, matrix),
-              *quality_issues(data)]
+              *quality_issues(data), *age_issues(matrix, data.ages)]
     issues.sort(key=lambda i: (_RANK[i.severity], i.code, i.label))
-    return Report(issues, matrix, len(data.finds))
+    return Report(issues, matrix, len(data.finds), age_brackets(matrix, data.ages))
