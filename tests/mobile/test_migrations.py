@@ -33,13 +33,15 @@ def _old_file(path) -> dict:  # type: ignore[no-untyped-def]
         for record in records:
             _insert_as_version_1(conn, record)
     engine.dispose()
-    return {"finds": len(finds), "units": len(demo.units)}
+    return {"finds": len(finds), "units": len(demo.units)}  # ages came later: not in a version-1 file
 
 
 def _insert_as_version_1(conn, record) -> None:  # type: ignore[no-untyped-def]
     """Write a record's row with only the columns the first file version had."""
     name = record.record_name
     columns = {r[1] for r in conn.exec_driver_sql(f"PRAGMA table_info({name})")}
+    if not columns:
+        return  # a record type the first version did not have
     row = {k: v for k, v in db.to_row(record).items() if k in columns}
     conn.execute(metadata.tables[name].insert(), row)
 
