@@ -1,0 +1,57 @@
+"""Field versions: the unit of sync. Every edit appends one version per changed field; the version set only
+grows, so it converges under any delivery order or duplication (DESIGN.md section 3).
+
+A version's id is ``<device>:<sequence>``; ``parents`` are the version ids the editor was looking at (normally
+the current winner; a resolution names every current leaf). Values are JSON (the field's JSON form); list-like
+fields are add/remove sets: each version adds or removes one item, and a remove names the adds it saw.
+"""
+
+from __future__ import annotations
+
+import json
+import uuid
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from .clock import Stamp
+
+__all__ = ["SET_FIELDS", "Version", "version_id"]
+
+# Fields that merge as add/remove sets rather than one value (record name -> field names).
+SET_FIELDS: dict[str, frozenset[str]] = {"find": frozenset({"photo_hashes"})}
+
+
+def version_id(device: uuid.UUID, seq: int) -> str:
+    return f"{device}:{seq}"
+
+
+class Version(BaseModel):
+    """One field's value as set by one edit on one device."""
+
+    model_config = ConfigDict(strict=True, extra="forbid", frozen=True)
+
+    id: str = Field(description="<device uuid>:<device sequence>")
+    record: str = Field(description="record type, e.g. 'find'")
+    record_id: uuid.UUID
+    field: str
+    value: Any = Field(description="the field's JSON value; for set fields {'op': 'add'|'remove', 'item': ...}")
+    wall_ms: int = Field(ge=0, description="hybrid logical clock: milliseconds")
+    counter: int = Field(ge=0, description="hybrid logical clock: counter")
+    device: uuid.UUID
+    seq: int = Field(ge=1, description="the device's own sequence number")
+    parents: tuple[str, ...] = ()
+    schema_version: int = Field(ge=1, default=1)
+
+    @property
+    def stamp(self) -> Stamp:
+        return Stamp(self.wall_ms, self.counter)
+
+    @property
+    def order_key(self) -> tuple[int, int, str]:
+        """The winner is the highest leaf by (stamp, device id), the same on every replica."""
+        return (self.wall_ms, self.counter, str(self.device))
+
+    def canonical(self) -> str:
+        """The version as canonical JSON (for batch hashes)."""
+        return json.dumps(self.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
