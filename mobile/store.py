@@ -16,7 +16,7 @@ from sqlalchemy.engine import Connection
 
 from schema import db
 from schema.errors import FieldProblem, NoNumbersLeft, RecordInvalid, StoreError
-from schema.records import Device, Find, NumberBlock, Sample
+from schema.records import REGISTRY, Device, Find, NumberBlock, Sample
 from schema.store import RecordStore
 from schema.tables import metadata
 from schema.validation import check
@@ -44,12 +44,46 @@ class TabletStore(RecordStore):
         if upgrade:
             with store.atomic() as conn:
                 migrations.upgrade(conn)
+                store._version_unversioned(conn)
         return store
+
+    def default_device(self) -> uuid.UUID | None:
+        return self.device_id()
+
+    def _version_unversioned(self, conn: Connection) -> None:
+        """Give rows written before the sync layer existed their first versions, as this tablet's own edits."""
+        from schema.sync.replica import insert_versions, load_identity, save_identity, state_get, state_set
+        from schema.sync.replica import versions_for_edit
+        from schema.sync.tables import field_version
+
+        if state_get(conn, "versions_backfilled") is not None:
+            return
+        device = conn.exec_driver_sql("SELECT value FROM local_setting WHERE key = 'device_id'").scalar()
+        if device is not None and state_get(conn, "device") is None:
+            state_set(conn, "device", device)
+        ident = load_identity(conn)
+        versioned = set(conn.execute(sa.select(field_version.c.record_id).distinct()).scalars())
+        for name in db.record_names():
+            for record in db.select(conn, REGISTRY[name].model):
+                if record.id not in versioned:  # type: ignore[attr-defined]
+                    insert_versions(conn, versions_for_edit(conn, ident, record, new=True))
+        save_identity(conn, ident)
+        state_set(conn, "versions_backfilled", "yes")
 
     # -- identity and numbering ----------------------------------------------------------------------------
     def set_identity(self, *, device: Device) -> None:
-        """Record which device this tablet is (after enrollment)."""
+        """Record which device this tablet is (after enrollment); must come before the first edit."""
+        from schema.sync.replica import state_get, state_set
+        from schema.sync.tables import field_version
+
         with self.atomic() as conn:
+            mine = state_get(conn, "device")
+            if mine not in (None, str(device.id)) and conn.execute(sa.select(field_version.c.id).limit(1)).first():
+                raise StoreError(
+                    f"this tablet file already holds edits made as device {mine}; it cannot become {device.label}. "
+                    "Start a new tablet file for the new enrollment"
+                )
+            state_set(conn, "device", device.id)
             self.put(device)
             conn.exec_driver_sql(
                 "INSERT INTO local_setting (key, value) VALUES ('device_id', ?) "
@@ -96,9 +130,9 @@ class TabletStore(RecordStore):
         saved = check(Find, data, context=context)
         details = self._sample_for(saved, sample)
         with self.atomic() as conn:
-            db.insert(conn, saved)
+            self.save_versioned(conn, saved, new=True)
             if details is not None:
-                db.insert(conn, details)
+                self.save_versioned(conn, details, new=True)
         return saved
 
     @staticmethod
@@ -123,7 +157,7 @@ class TabletStore(RecordStore):
         with self.atomic() as conn:
             current = db.get(conn, Find, find_id)
             voided = check(Find, {**current.model_dump(), "voided": True, "void_reason": reason})
-            db.update(conn, voided)
+            self.save_versioned(conn, voided, new=False)
         return voided
 
     # -- health --------------------------------------------------------------------------------------------

@@ -71,11 +71,28 @@ class RecordStore:
         with self.engine.connect().execution_options(baulk_read=True) as conn, conn.begin():
             yield conn
 
+    def save_versioned(self, conn: Connection, record: Record, *, new: bool) -> None:
+        """Write a record's visible row and, in the same transaction, the field versions of the change."""
+        from .sync.replica import insert_versions, load_identity, materialize, save_identity, versions_for_edit
+
+        (db.insert if new else db.update)(conn, record)  # friendly errors for a local edit
+        ident = load_identity(conn, default_device=self.default_device())
+        versions = versions_for_edit(conn, ident, record, new=new)
+        if versions:
+            insert_versions(conn, versions)
+            save_identity(conn, ident)
+        if not new:  # a concurrent value from elsewhere may still win the field
+            materialize(conn, [(record.record_name, getattr(record, "id"))])
+
+    def default_device(self) -> "uuid.UUID | None":
+        """The device id this store's versions carry when none is recorded yet (None: a fresh random id)."""
+        return None
+
     def add(self, record: R) -> R:
         """Insert a new record, validated again first."""
         record = check(type(record), record)
         with self.atomic() as conn:
-            db.insert(conn, record)
+            self.save_versioned(conn, record, new=True)
         return record
 
     def create(self, name: str, data: dict[str, Any]) -> Record:
@@ -83,7 +100,7 @@ class RecordStore:
         spec = REGISTRY[name]
         record = check(spec.model, data, record=name)
         with self.atomic() as conn:
-            db.insert(conn, record)
+            self.save_versioned(conn, record, new=True)
         return record
 
     def put(self, record: R) -> R:
@@ -93,7 +110,7 @@ class RecordStore:
             t = metadata.tables[record.record_name]
             key = getattr(record, "id")
             exists = conn.execute(sa.select(t.c.id).where(t.c.id == key)).first()
-            (db.update if exists else db.insert)(conn, record)
+            self.save_versioned(conn, record, new=not exists)
         return record
 
     def get(self, model: type[R], record_id: uuid.UUID) -> R:
@@ -125,15 +142,16 @@ class RecordStore:
         from .survey.recompute import shot_positions
 
         moved = {"find": 0, "level_point": 0}
+        setup = check(StationSetup, setup)
         with self.atomic() as conn:
-            db.update(conn, check(StationSetup, setup))
+            self.save_versioned(conn, setup, new=False)
             shots = list(db.select(conn, Shot, setup_id=setup.id))
             positions = shot_positions(setup, shots, curvature_refraction=curvature_refraction)
             for model, key in ((Find, "find"), (LevelPoint, "level_point")):
-                t = metadata.tables[key]
                 for shot_id, (e, n, z) in positions.items():
-                    rows = conn.execute(t.update().where(t.c.shot_id == shot_id).values(e=e, n=n, z=z))
-                    moved[key] += rows.rowcount
+                    for rec in list(db.select(conn, model, shot_id=shot_id)):  # type: ignore[arg-type]
+                        self.save_versioned(conn, rec.model_copy(update={"e": e, "n": n, "z": z}), new=False)
+                        moved[key] += 1
         return moved
 
     def site_data(self, *, site_id: "uuid.UUID | None" = None, only_find: "uuid.UUID | None" = None) -> "SiteData":

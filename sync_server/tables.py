@@ -5,11 +5,25 @@ from __future__ import annotations
 
 import sqlalchemy as sa
 
+from schema.sync.tables import sync_metadata
 from schema.tables import UTCDateTime, build_metadata
 
-__all__ = ["server_metadata", "validation_issue"]
+__all__ = ["push_batch", "server_metadata", "validation_issue"]
 
 server_metadata = build_metadata()
+for _t in sync_metadata.tables.values():
+    _t.to_metadata(server_metadata)
+
+# Each (device, batch) applied once: the same batch again gets this stored acknowledgement.
+push_batch = sa.Table(
+    "push_batch", server_metadata,
+    sa.Column("device", sa.Uuid(), primary_key=True),
+    sa.Column("batch", sa.BigInteger(), primary_key=True),
+    sa.Column("content_hash", sa.String(64), nullable=False),
+    sa.Column("ack", sa.JSON(), nullable=False),
+    sa.Column("received_at", UTCDateTime(), nullable=False),
+    comment="Push batches applied, with the acknowledgement each got",
+)
 
 # The latest validation run's issues, keyed by the issue's stable key so acceptance survives re-runs.
 validation_issue = sa.Table(

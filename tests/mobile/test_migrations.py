@@ -11,6 +11,7 @@ from alembic.runtime.migration import MigrationContext
 
 from mobile import migrations
 from mobile.store import TabletStore
+from mobile.tables import tablet_metadata
 from schema import db
 from schema.demo_site import build_site, plan_finds
 from schema.errors import MigrationFailed, StoreTooNew
@@ -74,7 +75,7 @@ def test_migrated_file_matches_the_models(tmp_path) -> None:  # type: ignore[no-
     with TabletStore.open(tmp_path / "t.sqlite") as store:
         with store.engine.connect() as conn:
             context = MigrationContext.configure(conn, opts={"include_name": _records_only})
-            diffs = compare_metadata(context, metadata)
+            diffs = compare_metadata(context, tablet_metadata)
     assert diffs == []
 
 

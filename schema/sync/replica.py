@@ -1,0 +1,245 @@
+"""The version log in a database, shared by the tablet and the server store.
+
+Local edits append versions in the same transaction as the visible row; merged versions (pulled by a tablet,
+pushed to the server) are inserted once each (``INSERT ... ON CONFLICT DO NOTHING ... RETURNING``) and the
+visible rows of the records they touch are rebuilt from the version set (``materialize``). A row that cannot be
+written (a parent not yet here, a clash with a unique value) is kept as a pending row, never dropped; fields
+with more than one current value are listed in ``open_conflict``.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import uuid
+from dataclasses import dataclass
+from typing import Any, Iterable
+
+import sqlalchemy as sa
+from pydantic import TypeAdapter
+from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.engine import Connection
+
+from .. import db
+from ..records import REGISTRY, Record
+from ..tables import metadata
+from .clock import Clock, Stamp
+from .merge import VersionSet, leaves
+from .tables import field_version, open_conflict, pending_row, sync_state
+from .versions import SET_FIELDS, Version, version_id
+
+__all__ = ["Identity", "insert_versions", "load_identity", "materialize", "record_versions", "save_identity",
+           "state_get", "state_set", "versions_for_edit"]
+
+SCHEMA_VERSION = 1
+
+
+def state_get(conn: Connection, key: str, default: str | None = None) -> str | None:
+    row = conn.execute(sa.select(sync_state.c.value).where(sync_state.c.key == key)).first()
+    return row[0] if row else default
+
+
+def state_set(conn: Connection, key: str, value: object) -> None:
+    done = conn.execute(sync_state.update().where(sync_state.c.key == key).values(value=str(value)))
+    if done.rowcount == 0:
+        conn.execute(sync_state.insert().values(key=key, value=str(value)))
+
+
+@dataclass
+class Identity:
+    """This replica: the device id its versions carry, its last sequence number and its clock."""
+
+    device: uuid.UUID
+    seq: int
+    clock: Clock
+
+    def next(self) -> tuple[int, Stamp]:
+        self.seq += 1
+        return self.seq, self.clock.tick()
+
+
+def load_identity(conn: Connection, *, default_device: uuid.UUID | None = None) -> Identity:
+    """This store's identity (created on first use); the clock adds the stored server offset."""
+    import time
+
+    device = state_get(conn, "device")
+    if device is None:
+        device = str(default_device or uuid.uuid4())
+        state_set(conn, "device", device)
+    offset = int(state_get(conn, "clock_offset_ms", "0") or 0)
+    clock = Clock(last=Stamp(int(state_get(conn, "hlc_wall", "0") or 0), int(state_get(conn, "hlc_counter", "0") or 0)),
+                  physical=lambda: time.time_ns() // 1_000_000 + offset)
+    return Identity(uuid.UUID(device), int(state_get(conn, "seq", "0") or 0), clock)
+
+
+def save_identity(conn: Connection, ident: Identity) -> None:
+    state_set(conn, "seq", ident.seq)
+    state_set(conn, "hlc_wall", ident.clock.last.wall_ms)
+    state_set(conn, "hlc_counter", ident.clock.last.counter)
+
+
+def _to_version(r: Any) -> Version:
+    return Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value, wall_ms=r.wall_ms,
+                   counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
+                   schema_version=r.schema_version)
+
+
+def record_versions(conn: Connection, record_ids: Iterable[uuid.UUID]) -> list[Version]:
+    ids = list(record_ids)
+    out: list[Version] = []
+    for i in range(0, len(ids), 500):
+        q = sa.select(field_version).where(field_version.c.record_id.in_(ids[i:i + 500]))
+        out.extend(_to_version(r) for r in conn.execute(q))
+    return out
+
+
+def versions_for_edit(conn: Connection, ident: Identity, record: Record, *, new: bool) -> list[Version]:
+    """The versions one local save appends: every field of a new record, the changed fields of an edit."""
+    name = record.record_name
+    values = record.model_dump(mode="json")
+    rid = uuid.UUID(values.pop("id"))
+    state = VersionSet.of([] if new else record_versions(conn, [rid]))
+    sets = SET_FIELDS.get(name, frozenset())
+    out: list[Version] = []
+
+    def add(fname: str, value: Any, parents: tuple[str, ...]) -> None:
+        seq, stamp = ident.next()
+        out.append(Version(id=version_id(ident.device, seq), record=name, record_id=rid, field=fname, value=value,
+                           wall_ms=stamp.wall_ms, counter=stamp.counter, device=ident.device, seq=seq,
+                           parents=parents, schema_version=SCHEMA_VERSION))
+
+    for fname, value in values.items():
+        key = (name, rid, fname)
+        if fname in sets:
+            present = {json.dumps(x, sort_keys=True): x for x in state.value(key) or []}
+            wanted = {json.dumps(x, sort_keys=True): x for x in value or []}
+            for k in wanted.keys() - present.keys():
+                add(fname, {"op": "add", "item": wanted[k]}, ())
+            for k in present.keys() - wanted.keys():
+                adds = tuple(v.id for v in state.field_versions(key)
+                             if v.value.get("op") == "add" and json.dumps(v.value.get("item"), sort_keys=True) == k)
+                add(fname, {"op": "remove", "item": present[k]}, adds)
+            continue
+        current = leaves(state.field_versions(key))
+        if current and current[0].value == value and len(current) == 1:
+            continue
+        if not current or current[0].value != value:
+            add(fname, value, tuple(v.id for v in current[:1]))
+    return out
+
+
+@functools.lru_cache(maxsize=4)
+def _insert_stmt(dialect_name: str) -> Any:
+    dialect = postgresql if dialect_name == "postgresql" else sqlite
+    return dialect.insert(field_version).on_conflict_do_nothing(index_elements=["id"]).returning(field_version.c.id)
+
+
+def insert_versions(conn: Connection, versions: Iterable[Version], *, next_log_seq: int | None = None,
+                    batch: int | None = None) -> list[Version]:
+    """Insert versions not yet held; returns those that were new. With ``next_log_seq`` (server), new versions
+    get consecutive change-log positions from it (the caller holds the change-log lock)."""
+    unique: dict[str, Version] = {}
+    for v in versions:
+        unique.setdefault(v.id, v)  # collapse the batch to one row per key first
+    if not unique:
+        return []
+    items = list(unique.values())
+    added: set[str] = set()
+    for i in range(0, len(items), 400):
+        chunk = items[i:i + 400]
+        rows = [{**v.model_dump(mode="json"), "record_id": v.record_id, "device": v.device,
+                 "parents": list(v.parents), "batch": batch, "log_seq": None} for v in chunk]
+        added.update(r[0] for r in conn.execute(_insert_stmt(conn.dialect.name), rows))
+    new = [v for v in items if v.id in added]
+    if next_log_seq is not None:
+        for n, v in enumerate(new):
+            conn.execute(field_version.update().where(field_version.c.id == v.id).values(log_seq=next_log_seq + n))
+    return new
+
+
+@functools.lru_cache(maxsize=None)
+def _adapter(record: str, fname: str) -> TypeAdapter[Any] | None:
+    info = REGISTRY[record].model.model_fields.get(fname)
+    if info is None:
+        return None
+    meta = tuple(info.metadata)
+    from typing import Annotated
+
+    return TypeAdapter(Annotated[(info.annotation, *meta)] if meta else info.annotation)
+
+
+def _row(record: str, values: dict[str, Any], rid: uuid.UUID) -> dict[str, Any]:
+    table = metadata.tables[record]
+    row: dict[str, Any] = {"id": rid}
+    for col in table.columns:
+        if col.name == "id" or col.name not in values:
+            continue
+        value = values[col.name]
+        if isinstance(col.type, sa.JSON) or value is None:
+            row[col.name] = value
+            continue
+        adapter = _adapter(record, col.name)
+        row[col.name] = adapter.validate_python(value, strict=False) if adapter else value
+    return row
+
+
+def _dependency_rank() -> dict[str, int]:
+    return {name: i for i, name in enumerate(db.record_names())}
+
+
+def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]]) -> dict[str, int]:
+    """Rebuild the visible rows of these records from their versions; returns counts of what happened."""
+    rank = _dependency_rank()
+    todo = sorted(set(keys), key=lambda k: (rank.get(k[0], 99), str(k[1])))
+    stats = {"written": 0, "pending": 0}
+    by_record = VersionSet.of(record_versions(conn, [rid for _r, rid in todo]))
+    grouped = by_record.records()
+    conflicts: dict[tuple[str, uuid.UUID], list[Any]] = {}
+    for c in by_record.conflicts():
+        conflicts.setdefault((c.key[0], c.key[1]), []).append(c)
+    for record, rid in todo:
+        values = grouped.get((record, rid), {})
+        _conflicts(conn, conflicts.get((record, rid), []), record, rid)
+        spec = REGISTRY[record]
+        required = [f for f, info in spec.model.model_fields.items() if info.is_required() and f != "id"]
+        missing = [f for f in required if f not in values]
+        table = metadata.tables[record]
+        if missing:
+            _pending(conn, record, rid, f"waiting for fields: {', '.join(missing)}")
+            stats["pending"] += 1
+            continue
+        row = _row(record, values, rid)
+        try:
+            with conn.begin_nested():
+                exists = conn.execute(sa.select(table.c.id).where(table.c.id == rid)).first()
+                if exists:
+                    conn.execute(table.update().where(table.c.id == rid).values(row))
+                else:
+                    conn.execute(table.insert().values(row))
+        except sa.exc.IntegrityError as exc:
+            _pending(conn, record, rid, str(exc.orig).splitlines()[0][:300])
+            stats["pending"] += 1
+            continue
+        conn.execute(pending_row.delete().where(pending_row.c.record == record, pending_row.c.record_id == rid))
+        stats["written"] += 1
+    return stats
+
+
+def retry_pending(conn: Connection) -> dict[str, int]:
+    """Try the pending rows again (their missing parent may have arrived)."""
+    keys = [(r.record, r.record_id) for r in conn.execute(sa.select(pending_row))]
+    return materialize(conn, keys) if keys else {"written": 0, "pending": 0}
+
+
+def _pending(conn: Connection, record: str, rid: uuid.UUID, reason: str) -> None:
+    done = conn.execute(pending_row.update().where(pending_row.c.record == record, pending_row.c.record_id == rid)
+                        .values(reason=reason))
+    if done.rowcount == 0:
+        conn.execute(pending_row.insert().values(record=record, record_id=rid, reason=reason))
+
+
+def _conflicts(conn: Connection, found: list[Any], record: str, rid: uuid.UUID) -> None:
+    conn.execute(open_conflict.delete().where(open_conflict.c.record == record, open_conflict.c.record_id == rid))
+    for c in found:
+        conn.execute(open_conflict.insert().values(record=record, record_id=rid, field=c.key[2],
+                                                   leaves=[v.id for v in c.leaves]))
