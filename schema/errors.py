@@ -13,6 +13,10 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      +-- StoreError             a store file or database that cannot be used
      |    +-- StoreTooNew       the file was written by a newer Baulk
      |    +-- MigrationFailed   an upgrade step failed (the store is left as it was)
+     +-- SyncError              a push or a bundle that cannot be applied as sent
+     |    +-- BatchClash        the same (device, batch) with different content: a restored tablet
+     |    +-- WrongDevice       versions that claim another device than the one authenticated
+     |    +-- BundleInvalid     a bundle file that is corrupt, truncated or tampered with
      +-- SurveyError            survey input or a survey result that cannot be used
           +-- ObservationInvalid  a reading outside its range (zenith, distance, ...)
           +-- WeakGeometry        control points duplicated, coincident or on one line
@@ -27,7 +31,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 __all__ = [
+    "BatchClash",
     "BaulkError",
+    "BundleInvalid",
     "DuplicateRecord",
     "FieldProblem",
     "FixNotAccepted",
@@ -43,8 +49,10 @@ __all__ = [
     "StoreError",
     "StoreTooNew",
     "SurveyError",
+    "SyncError",
     "UnknownCRS",
     "WeakGeometry",
+    "WrongDevice",
 ]
 
 
@@ -136,3 +144,19 @@ class ProjUnavailable(SurveyError):
 
 class FixNotAccepted(SurveyError):
     """A GNSS fix that is not RTK fixed, offered for a piece-plot without an override reason."""
+
+
+class SyncError(BaulkError):
+    """A push or bundle that cannot be applied as sent."""
+
+
+class BatchClash(SyncError):
+    """A (device, batch) key already applied with different content."""
+
+
+class WrongDevice(SyncError):
+    """Versions claiming a device other than the authenticated one."""
+
+
+class BundleInvalid(SyncError):
+    """A bundle that fails its format or hash checks; nothing of it was applied."""

@@ -76,6 +76,10 @@ class RecordStore:
         from .sync.replica import insert_versions, load_identity, materialize, save_identity, versions_for_edit
 
         (db.insert if new else db.update)(conn, record)  # friendly errors for a local edit
+        from .sync.versions import LOCAL_ONLY
+
+        if record.record_name in LOCAL_ONLY:
+            return
         ident = load_identity(conn, default_device=self.default_device())
         versions = versions_for_edit(conn, ident, record, new=new)
         if versions:

@@ -12,7 +12,7 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel
 
 from schema import SCHEMA_VERSION, __version__
-from schema.errors import BaulkError, DuplicateRecord, RecordInvalid, RecordNotFound
+from schema.errors import BatchClash, BaulkError, DuplicateRecord, RecordInvalid, RecordNotFound, WrongDevice
 
 from .settings import ServerSettings
 from .store import ServerStore
@@ -24,9 +24,13 @@ ROUTE_ROLES: dict[str, str] = {
     "GET /v1/status": "public",
     "GET /v1/issues": "manager, analyst",
     "POST /v1/issues/{key}/accept": "manager",
+    "POST /v1/sync/push": "recorder, manager",
+    "GET /v1/sync/pull": "recorder, manager, analyst",
+    "GET /v1/conflicts": "manager",
+    "POST /v1/conflicts/resolve": "manager",
 }
 
-_STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409}
+_STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403}
 
 
 class Status(BaseModel):
@@ -71,9 +75,10 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
             site_codes=sorted(s.code for s in st.list(Site)),
         )
 
-    from .routes import issues
+    from .routes import issues, sync
 
     app.include_router(issues.router)
+    app.include_router(sync.router)
     return app
 
 

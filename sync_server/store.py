@@ -100,6 +100,14 @@ class ServerStore(RecordStore):
             raise StoreError(f"cannot open the server database ({exc.orig}); check the URL and that it is running") from None
         return cls(url, engine)
 
+    def save_versioned(self, conn: sa.Connection, record: object, *, new: bool) -> None:  # type: ignore[override]
+        """The server's own edits join the change log at once, so tablets pull them."""
+        from schema.sync.replica import assign_log_positions
+
+        super().save_versioned(conn, record, new=new)  # type: ignore[arg-type]
+        self._serialize(conn, "changelog")
+        assign_log_positions(conn)
+
     @property
     def backend(self) -> str:
         return self.engine.dialect.name
@@ -138,7 +146,7 @@ class ServerStore(RecordStore):
                 device_id=device_id, first=top + 1, last=top + size,
                 issued_at=now or dt.datetime.now(dt.timezone.utc),
             )
-            db.insert(conn, block)  # the unique constraint on `first` is the safety net
+            self.save_versioned(conn, block, new=True)  # the unique constraint on `first` is the safety net
         return block
 
     def _serialize(self, conn: sa.Connection, what: str) -> None:

@@ -121,14 +121,25 @@ def versions_for_edit(conn: Connection, ident: Identity, record: Record, *, new:
                 add(fname, {"op": "remove", "item": present[k]}, adds)
             continue
         current = leaves(state.field_versions(key))
-        if current and current[0].value == value and len(current) == 1:
-            continue
-        if not current or current[0].value != value:
+        if not current or not _same(name, fname, current[0].value, value):
             add(fname, value, tuple(v.id for v in current[:1]))
     return out
 
 
 @functools.lru_cache(maxsize=4)
+def _same(record: str, fname: str, a: Any, b: Any) -> bool:
+    """Equal as values of the field (the same instant in two time zones is the same time)."""
+    if a == b:
+        return True
+    adapter = _adapter(record, fname)
+    if adapter is None:
+        return False
+    try:
+        return bool(adapter.validate_python(a, strict=False) == adapter.validate_python(b, strict=False))
+    except Exception:  # noqa: BLE001 - an undecodable old value is simply different
+        return False
+
+
 def _insert_stmt(dialect_name: str) -> Any:
     dialect = postgresql if dialect_name == "postgresql" else sqlite
     return dialect.insert(field_version).on_conflict_do_nothing(index_elements=["id"]).returning(field_version.c.id)
@@ -183,6 +194,21 @@ def _row(record: str, values: dict[str, Any], rid: uuid.UUID) -> dict[str, Any]:
     return row
 
 
+def _with_defaults(record: str, values: dict[str, Any]) -> dict[str, Any]:
+    """Fields no version has set yet (an empty set, a field newer than the tablet that made the record) take
+    the model's default."""
+    out = dict(values)
+    for fname, info in REGISTRY[record].model.model_fields.items():
+        if fname in out or fname == "id" or info.is_required():
+            continue
+        if fname in SET_FIELDS.get(record, ()):
+            out[fname] = []
+            continue
+        default = info.get_default(call_default_factory=True)
+        out[fname] = TypeAdapter(type(default)).dump_python(default, mode="json") if default is not None else None
+    return out
+
+
 def _dependency_rank() -> dict[str, int]:
     return {name: i for i, name in enumerate(db.record_names())}
 
@@ -208,6 +234,7 @@ def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]]) -> dict
             _pending(conn, record, rid, f"waiting for fields: {', '.join(missing)}")
             stats["pending"] += 1
             continue
+        values = _with_defaults(record, values)
         row = _row(record, values, rid)
         try:
             with conn.begin_nested():
@@ -243,3 +270,15 @@ def _conflicts(conn: Connection, found: list[Any], record: str, rid: uuid.UUID) 
     for c in found:
         conn.execute(open_conflict.insert().values(record=record, record_id=rid, field=c.key[2],
                                                    leaves=[v.id for v in c.leaves]))
+
+
+def assign_log_positions(conn: Connection) -> int:
+    """Give versions written on this replica (the server's own edits) their change-log positions."""
+    todo = conn.execute(sa.select(field_version.c.id).where(field_version.c.log_seq.is_(None))
+                        .order_by(field_version.c.wall_ms, field_version.c.counter, field_version.c.seq)).scalars().all()
+    if not todo:
+        return 0
+    top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
+    for n, vid in enumerate(todo, start=1):
+        conn.execute(field_version.update().where(field_version.c.id == vid).values(log_seq=top + n))
+    return len(todo)

@@ -16,10 +16,27 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from .clock import Stamp
 
-__all__ = ["SET_FIELDS", "Version", "version_id"]
+__all__ = ["LOCAL_ONLY", "SERVER_OWNED", "SET_FIELDS", "Version", "batch_hash", "version_id"]
 
 # Fields that merge as add/remove sets rather than one value (record name -> field names).
 SET_FIELDS: dict[str, frozenset[str]] = {"find": frozenset({"photo_hashes"})}
+
+
+# Records that never travel as versions: device rows stay where they are written (a tablet knows itself, the
+# server keeps the token hashes). Records only the server may change: tablets' versions of them are ignored.
+LOCAL_ONLY: frozenset[str] = frozenset({"device"})
+SERVER_OWNED: frozenset[str] = frozenset({"device", "number_block"})
+
+
+def batch_hash(versions: "list[Version]") -> str:
+    """SHA-256 over the versions' canonical JSON, one per line, in the order sent."""
+    import hashlib
+
+    h = hashlib.sha256()
+    for v in versions:
+        h.update(v.canonical().encode())
+        h.update(b"\n")
+    return h.hexdigest()
 
 
 def version_id(device: uuid.UUID, seq: int) -> str:

@@ -1,0 +1,157 @@
+"""The tablet's sync client: push unsent batches, pull the change log after the cursor (no Kivy here).
+
+It talks to the server through any ``httpx.Client`` (a real one on the camp Wi-Fi, or a test client wrapping
+the app in process). Unsent versions are cut into numbered batches once and stored, so a retry after a cut
+connection re-sends the very same batch (the server then answers with its stored acknowledgement). A pulled
+page and the new cursor are applied in one local transaction. Every reply carries the server's clock; the
+tablet keeps the offset and its own stamps follow it.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import httpx
+import sqlalchemy as sa
+
+from schema.errors import SyncError
+from schema.sync import Version, batch_hash
+from schema.sync.replica import insert_versions, load_identity, materialize, retry_pending, state_get, state_set
+from schema.sync.tables import field_version
+
+from .store import TabletStore
+
+__all__ = ["SyncClient", "SyncReport"]
+
+Progress = Callable[[str, int, int], None]
+
+
+@dataclass
+class SyncReport:
+    pushed_batches: int = 0
+    pushed_versions: int = 0
+    replayed_batches: int = 0
+    pulled_versions: int = 0
+    applied_versions: int = 0
+    conflicts_open: int | None = None
+    clock_offset_ms: int | None = None
+    acks: list[dict[str, Any]] = field(default_factory=list)
+
+
+class SyncClient:
+    def __init__(self, store: TabletStore, http: httpx.Client, token: str, *, batch_size: int = 500,
+                 page_size: int = 500, progress: Progress | None = None):
+        self.store, self.http, self.batch_size, self.page_size = store, http, batch_size, page_size
+        self.headers = {"Authorization": f"Bearer {token}"}
+        self.progress = progress or (lambda _stage, _done, _total: None)
+
+    # -- batches ------------------------------------------------------------------------------------------
+    def pending_count(self) -> int:
+        """Own versions not yet acknowledged by the server."""
+        with self.store.read() as conn:
+            me = load_identity(conn).device
+            acked = int(state_get(conn, "acked_batch", "0") or 0)
+            q = sa.select(sa.func.count()).select_from(field_version).where(
+                field_version.c.device == me, sa.or_(field_version.c.batch.is_(None), field_version.c.batch > acked))
+            return int(conn.execute(q).scalar_one())
+
+    def _cut_batches(self) -> None:
+        """Number the unsent versions into batches, once (a retry re-sends the same batches)."""
+        with self.store.atomic() as conn:
+            me = load_identity(conn).device
+            last = int(state_get(conn, "last_batch", "0") or 0)
+            ids = conn.execute(sa.select(field_version.c.id).where(field_version.c.device == me,
+                                                                    field_version.c.batch.is_(None))
+                               .order_by(field_version.c.seq)).scalars().all()
+            for i in range(0, len(ids), self.batch_size):
+                last += 1
+                conn.execute(field_version.update().where(field_version.c.id.in_(ids[i:i + self.batch_size]))
+                             .values(batch=last))
+            state_set(conn, "last_batch", last)
+
+    def _batch(self, number: int) -> list[Version]:
+        with self.store.read() as conn:
+            rows = conn.execute(sa.select(field_version).where(field_version.c.batch == number,
+                                                               field_version.c.device == load_identity(conn).device)
+                                .order_by(field_version.c.seq)).all()
+        return [Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value,
+                        wall_ms=r.wall_ms, counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
+                        schema_version=r.schema_version) for r in rows]
+
+    # -- wire -----------------------------------------------------------------------------------------------
+    def _call(self, method: str, url: str, **kw: Any) -> dict[str, Any]:
+        sent = time.time_ns() // 1_000_000
+        try:
+            r = self.http.request(method, url, headers=self.headers, **kw)
+        except httpx.TransportError as exc:
+            raise SyncError(f"the camp server did not answer ({type(exc).__name__}); check the Wi-Fi and try again, "
+                            "or export a bundle to carry over") from None
+        if r.status_code >= 400:
+            try:
+                body = r.json()
+                detail = body.get("message") or body.get("detail") or r.text
+            except ValueError:
+                detail = r.text[:200]
+            raise SyncError(f"the camp server refused the sync ({r.status_code}): {str(detail)[:300]}")
+        body = r.json()
+        if "server_time_ms" in body:
+            got = time.time_ns() // 1_000_000
+            self._offset = int(body["server_time_ms"] - (sent + got) / 2)
+        return body
+
+    # -- the two halves -------------------------------------------------------------------------------------
+    def push(self, report: SyncReport) -> None:
+        self._cut_batches()
+        with self.store.read() as conn:
+            acked = int(state_get(conn, "acked_batch", "0") or 0)
+            last = int(state_get(conn, "last_batch", "0") or 0)
+        for number in range(acked + 1, last + 1):
+            versions = self._batch(number)
+            body = {"batch": number, "hash": batch_hash(versions), "versions": [v.model_dump(mode="json") for v in versions]}
+            ack = self._call("POST", "/v1/sync/push", json=body)
+            with self.store.atomic() as conn:
+                state_set(conn, "acked_batch", number)
+            report.pushed_batches += 1
+            report.pushed_versions += len(versions)
+            report.replayed_batches += int(bool(ack.get("replayed")))
+            report.conflicts_open = ack.get("conflicts_open")
+            report.acks.append(ack)
+            self.progress("push", number - acked, last - acked)
+
+    def pull(self, report: SyncReport) -> None:
+        while True:
+            with self.store.read() as conn:
+                cursor = int(state_get(conn, "cursor", "0") or 0)
+            page = self._call("GET", "/v1/sync/pull", params={"after": cursor, "limit": self.page_size})
+            versions = [Version.model_validate(v, strict=False) for v in page["versions"]]
+            with self.store.atomic() as conn:
+                ident = load_identity(conn)
+                for v in versions:
+                    ident.clock.observe(v.stamp)
+                new = insert_versions(conn, versions)
+                materialize(conn, {(v.record, v.record_id) for v in new})
+                retry_pending(conn)
+                state_set(conn, "cursor", page["next"])
+                state_set(conn, "hlc_wall", ident.clock.last.wall_ms)
+                state_set(conn, "hlc_counter", ident.clock.last.counter)
+            report.pulled_versions += len(versions)
+            report.applied_versions += len(new)
+            self.progress("pull", report.pulled_versions, report.pulled_versions + (self.page_size if page["more"] else 0))
+            if not page["more"]:
+                return
+
+    def sync(self) -> SyncReport:
+        """Push everything unsent, then pull everything new; keeps the server clock offset."""
+        report = SyncReport()
+        self._offset: int | None = None
+        try:
+            self.push(report)
+            self.pull(report)
+        finally:
+            if self._offset is not None:
+                with self.store.atomic() as conn:
+                    state_set(conn, "clock_offset_ms", self._offset)
+                report.clock_offset_ms = self._offset
+        return report

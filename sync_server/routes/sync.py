@@ -1,0 +1,132 @@
+"""Sync: push a batch of the device's own versions, pull the change log after a cursor."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Query, Request
+from pydantic import BaseModel, ConfigDict, Field
+
+from schema.records import Device
+from schema.sync import Version
+
+from ..auth import require
+from ..sync import MAX_BATCH, MAX_PAGE, apply_push, list_conflicts, pull_page, resolve_conflict
+
+router = APIRouter(prefix="/v1", tags=["sync"])
+
+Pusher = Annotated[Device, Depends(require("recorder", "manager"))]
+Puller = Annotated[Device, Depends(require("recorder", "manager", "analyst"))]
+Manager = Annotated[Device, Depends(require("manager"))]
+
+
+class PushBody(BaseModel):
+    """One batch of the device's own versions, keyed by (device, batch), with its content hash."""
+
+    model_config = ConfigDict(extra="forbid")
+    batch: int = Field(ge=1)
+    hash: str = Field(pattern=r"^[0-9a-f]{64}$", description="SHA-256 of the versions' canonical JSON lines")
+    versions: list[Version] = Field(max_length=MAX_BATCH)
+
+
+class PushAck(BaseModel):
+    batch: int
+    received: int
+    applied: int
+    duplicates: int
+    ignored: int
+    rows_written: int
+    pending_rows: int
+    conflicts_open: int
+    number_blocks: list[dict[str, int]]
+    replayed: bool
+    server_time_ms: int
+
+
+class PullPage(BaseModel):
+    versions: list[Version]
+    next: int
+    more: bool
+    server_time_ms: int
+
+
+class ConflictValue(BaseModel):
+    version: str
+    value: Any
+    device: str
+    at: str
+
+
+class ConflictPublic(BaseModel):
+    record: str
+    record_id: str
+    field: str
+    values: list[ConflictValue]
+
+
+class ConflictsPublic(BaseModel):
+    data: list[ConflictPublic]
+    count: int
+
+
+class Resolution(BaseModel):
+    """The value chosen (or typed) for a conflicting field."""
+
+    model_config = ConfigDict(extra="forbid")
+    record: str
+    record_id: str
+    field: str
+    value: Any
+
+
+MAX_PUSH_BYTES = 16 * 1024 * 1024
+
+
+def _push_schema() -> dict[str, Any]:
+    schema = PushBody.model_json_schema(ref_template="#/components/schemas/{model}")
+    schema.pop("$defs", None)
+    return schema
+
+
+@router.post("/sync/push", response_model=PushAck, openapi_extra={
+    "requestBody": {"required": True, "content": {"application/json": {"schema": _push_schema()}}}})
+async def push(request: Request, device: Pusher) -> dict[str, Any]:
+    """Apply a batch of this device's versions once; the same batch again returns its first acknowledgement."""
+    from fastapi import HTTPException
+    from fastapi.concurrency import run_in_threadpool
+    from pydantic import ValidationError
+
+    raw = await request.body()
+    if len(raw) > MAX_PUSH_BYTES:
+        raise HTTPException(413, detail=f"a push body is at most {MAX_PUSH_BYTES} bytes; send smaller batches")
+    try:
+        body = PushBody.model_validate_json(raw)  # JSON mode: strict types, UUIDs as strings
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        where = ".".join(str(p) for p in first["loc"])
+        raise HTTPException(422, detail=f"push body refused at {where}: {first['msg']}") from None
+    return await run_in_threadpool(apply_push, request.app.state.store, device=device, batch=body.batch,
+                                   content_hash=body.hash, versions=body.versions)
+
+
+@router.get("/sync/pull", response_model=PullPage)
+def pull(request: Request, device: Puller, after: Annotated[int, Query(ge=0)] = 0,
+         limit: Annotated[int, Query(ge=1, le=MAX_PAGE)] = 500) -> dict[str, Any]:
+    """Versions after the cursor, in change-log order."""
+    return pull_page(request.app.state.store, after=after, limit=limit, device=device)
+
+
+@router.get("/conflicts", response_model=ConflictsPublic)
+def conflicts(request: Request, _device: Manager) -> ConflictsPublic:
+    """Open conflicts: every competing value, with the device and time that made it."""
+    rows = list_conflicts(request.app.state.store)
+    return ConflictsPublic(data=[ConflictPublic.model_validate(r) for r in rows], count=len(rows))
+
+
+@router.post("/conflicts/resolve")
+def resolve(request: Request, body: Resolution, _device: Manager) -> dict[str, Any]:
+    """Resolve a conflict with a value: a new version whose parents are all the competing ones."""
+    import uuid
+
+    return resolve_conflict(request.app.state.store, record=body.record, record_id=uuid.UUID(body.record_id),
+                            field=body.field, value=body.value)

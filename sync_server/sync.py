@@ -1,0 +1,152 @@
+"""Push and pull on the camp server: each (device, batch) applied once, in one transaction; the change log
+paged by position. The merge itself is the shared version layer (``schema.sync``).
+
+On PostgreSQL, writers of the change log take a transaction-scoped advisory lock, so positions are assigned
+and committed in order and a pulling tablet never skips a version committed late (no cursor gaps).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import time
+from typing import Any
+
+import sqlalchemy as sa
+
+from schema.errors import BatchClash, WrongDevice
+from schema.records import Device, NumberBlock
+from schema.sync import SERVER_OWNED, Version, VersionSet, batch_hash
+from schema.sync.replica import insert_versions, materialize, record_versions, retry_pending
+from schema.sync.tables import field_version, open_conflict, pending_row
+from schema.tables import metadata
+
+from .store import ServerStore
+from .tables import push_batch
+
+__all__ = ["apply_push", "batch_hash", "list_conflicts", "pull_page", "resolve_conflict"]
+
+MAX_BATCH = 5000
+MAX_PAGE = 2000
+
+
+def _now_ms() -> int:
+    return time.time_ns() // 1_000_000
+
+
+def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: str, versions: list[Version],
+               now: dt.datetime | None = None) -> dict[str, Any]:
+    """Apply one push batch exactly once; the same batch again returns the stored acknowledgement."""
+    if batch_hash(versions) != content_hash:
+        raise BatchClash(f"batch {batch} does not match its own hash; it was damaged in transfer, send it again")
+    foreign = sorted({str(v.device) for v in versions if v.device != device.id})
+    if foreign:
+        raise WrongDevice(f"batch {batch} carries versions of device {foreign[0]}, not of {device.label}; "
+                          "a tablet pushes only its own edits")
+    with store.atomic() as conn:
+        store._serialize(conn, "changelog")  # noqa: SLF001
+        done = conn.execute(sa.select(push_batch).where(push_batch.c.device == device.id, push_batch.c.batch == batch)).first()
+        if done is not None:
+            if done.content_hash != content_hash:
+                raise BatchClash(
+                    f"batch {batch} of {device.label} was already applied with different content: this tablet was "
+                    "probably restored from an old copy. The data manager must re-enrol it as a new device"
+                )
+            return {**done.ack, "replayed": True, "server_time_ms": _now_ms()}
+        accepted = [v for v in versions if v.record not in SERVER_OWNED]  # server-owned: never taken from tablets
+        top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
+        new = insert_versions(conn, accepted, next_log_seq=top + 1, batch=batch)
+        stats = materialize(conn, {(v.record, v.record_id) for v in new})
+        retry_pending(conn)
+        blocks = _top_up(store, conn, device, now)
+        ack = {
+            "batch": batch, "received": len(versions), "applied": len(new),
+            "duplicates": len(accepted) - len(new), "ignored": len(versions) - len(accepted),
+            "rows_written": stats["written"],
+            "pending_rows": int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one()),
+            "conflicts_open": int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one()),
+            "number_blocks": [{"first": b.first, "last": b.last} for b in blocks], "replayed": False,
+        }
+        conn.execute(push_batch.insert().values(device=device.id, batch=batch, content_hash=content_hash, ack=ack,
+                                                received_at=now or dt.datetime.now(dt.timezone.utc)))
+    return {**ack, "server_time_ms": _now_ms()}
+
+
+def _top_up(store: ServerStore, conn: sa.Connection, device: Device, now: dt.datetime | None) -> list[NumberBlock]:
+    """Issue a new block when the device has used half of its newest one (never reissuing numbers)."""
+    if device.role != "recorder":
+        return []
+    blocks = sorted(store.blocks_for(device.id), key=lambda b: b.first)
+    if not blocks:
+        return [store.issue_number_block(device_id=device.id, now=now)]
+    newest = blocks[-1]
+    t = metadata.tables["find"]
+    used = conn.execute(sa.select(sa.func.max(t.c.number)).where(t.c.device_id == device.id)).scalar() or 0
+    if used >= newest.first + newest.size // 2:
+        return [store.issue_number_block(device_id=device.id, size=newest.size, now=now)]
+    return []
+
+
+def pull_page(store: ServerStore, *, after: int, limit: int = 500, device: Device | None = None) -> dict[str, Any]:
+    """Versions after the cursor, in change-log order, with the next cursor. Number blocks travel only to
+    the device they were issued to."""
+    limit = max(1, min(limit, MAX_PAGE))
+    blocks = metadata.tables["number_block"]
+    with store.read() as conn:
+        rows = conn.execute(sa.select(field_version).where(field_version.c.log_seq > after)
+                            .order_by(field_version.c.log_seq).limit(limit + 1)).all()
+        mine = set(conn.execute(sa.select(blocks.c.id).where(blocks.c.device_id == (device.id if device else None)))
+                   .scalars())
+    more = len(rows) > limit
+    last = rows[min(len(rows), limit) - 1].log_seq if rows else after
+    rows = [r for r in rows[:limit] if r.record != "number_block" or r.record_id in mine]
+    versions = [Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value,
+                        wall_ms=r.wall_ms, counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
+                        schema_version=r.schema_version) for r in rows]
+    return {"versions": versions, "next": last, "more": more,
+            "server_time_ms": _now_ms()}
+
+
+def list_conflicts(store: ServerStore) -> list[dict[str, Any]]:
+    """Open conflicts with every competing value, who made it and when."""
+    with store.read() as conn:
+        rows = conn.execute(sa.select(open_conflict).order_by(open_conflict.c.record, open_conflict.c.record_id,
+                                                               open_conflict.c.field)).all()
+        ids = [vid for r in rows for vid in r.leaves]
+        found = {r.id: r for r in conn.execute(sa.select(field_version).where(field_version.c.id.in_(ids)))} if ids else {}
+        devices = {d.id: d.label for d in store.list(Device)}
+    out = []
+    for r in rows:
+        out.append({
+            "record": r.record, "record_id": str(r.record_id), "field": r.field,
+            "values": [{"version": vid, "value": found[vid].value, "device": devices.get(found[vid].device, str(found[vid].device)),
+                        "at": dt.datetime.fromtimestamp(found[vid].wall_ms / 1000, dt.timezone.utc).isoformat()}
+                       for vid in r.leaves if vid in found],
+        })
+    return out
+
+
+def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: str, value: Any) -> dict[str, Any]:
+    """A manager's resolution: a new version whose parents are all the current leaves."""
+    from schema.errors import RecordNotFound
+    from schema.sync.replica import load_identity, save_identity
+    from schema.sync.versions import version_id
+
+    with store.atomic() as conn:
+        store._serialize(conn, "changelog")  # noqa: SLF001
+        state = VersionSet.of(record_versions(conn, [record_id]))
+        from schema.sync.merge import leaves
+
+        current = leaves(state.field_versions((record, record_id, field)))
+        if len(current) < 2:
+            raise RecordNotFound(f"{record} {record_id} has no open conflict on {field}; list them first")
+        ident = load_identity(conn)
+        seq, stamp = ident.next()
+        v = Version(id=version_id(ident.device, seq), record=record, record_id=record_id, field=field, value=value,
+                    wall_ms=stamp.wall_ms, counter=stamp.counter, device=ident.device, seq=seq,
+                    parents=tuple(x.id for x in current))
+        top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
+        insert_versions(conn, [v], next_log_seq=top + 1)
+        save_identity(conn, ident)
+        materialize(conn, [(record, record_id)])
+    return {"version": v.id, "value": value}

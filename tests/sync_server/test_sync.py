@@ -1,0 +1,149 @@
+"""Push and pull between real tablet stores and a server store, through the HTTP app."""
+
+from __future__ import annotations
+
+import uuid
+from pathlib import Path
+
+import pytest
+from fastapi.testclient import TestClient
+
+from mobile.store import TabletStore
+from mobile.sync import SyncClient
+from schema.demo_site import build_site
+from schema.errors import SyncError
+from schema.records import Find, NumberBlock, Unit
+from schema.sync import Version, batch_hash
+from sync_server.app import create_app
+from sync_server.store import ServerStore
+from sync_server.sync import list_conflicts
+from tests.helpers import find_data
+
+
+@pytest.fixture
+def camp(tmp_path: Path, server_url: str):  # type: ignore[no-untyped-def]
+    server = ServerStore.open(server_url)
+    demo = build_site()
+    with server.atomic():
+        for record in demo.setup_records():
+            server.add(record)
+    with TestClient(create_app(store=server)) as http:
+        yield server, demo, http, tmp_path
+    server.close()
+
+
+def enrol(server: ServerStore, http: TestClient, tmp: Path, label: str) -> tuple[TabletStore, SyncClient]:
+    device, token = server.add_device(label=label, role="recorder")
+    server.issue_number_block(device_id=device.id, size=100)
+    tablet = TabletStore.open(tmp / f"{label}.sqlite")
+    tablet.set_identity(device=device)
+    client = SyncClient(tablet, http, token, batch_size=50)
+    client.sync()  # the first pull brings the site set-up and this tablet's number block
+    return tablet, client
+
+
+def test_first_pull_provisions_a_tablet(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    tablet, _client = enrol(server, http, tmp, "TAB-1")
+    assert tablet.count(Unit) == 12 and tablet.get(Unit, demo.units["203"].id) == demo.units["203"]
+    (block,) = tablet.list(NumberBlock)
+    assert (block.first, block.last) == (1, 100) and tablet.next_find_number() == 1
+    other, _ = enrol(server, http, tmp, "TAB-2")
+    assert [(b.first, b.last) for b in other.list(NumberBlock)] == [(101, 200)]  # only its own block travels
+
+
+def test_finds_reach_the_server_and_the_other_tablets(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    for _ in range(3):
+        t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    report = c1.sync()
+    assert report.pushed_versions > 0 and report.replayed_batches == 0
+    assert server.count(Find) == 3
+    c2.sync()
+    assert sorted(f.number for f in t2.list(Find)) == [1, 2, 3]
+    assert c1.pending_count() == 0
+
+
+def test_concurrent_edits_become_a_conflict_and_a_resolution_travels(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    c1.sync()
+    c2.sync()
+    # both tablets change the same find's unit while offline
+    t1.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["102"].id, "z": 99.5}))
+    t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["103"].id}))
+    c1.sync()
+    c2.sync()
+    c1.sync()
+    (conflict,) = list_conflicts(server)
+    assert conflict["field"] == "unit_id" and len(conflict["values"]) == 2
+    assert {v["device"] for v in conflict["values"]} == {"TAB-1", "TAB-2"}
+    # every replica shows the same winner
+    assert t1.get(Find, find.id).unit_id == t2.get(Find, find.id).unit_id == server.get(Find, find.id).unit_id
+    manager_token = server.add_device(label="MGR", role="manager")[1]
+    r = http.post("/v1/conflicts/resolve", headers={"Authorization": f"Bearer {manager_token}"},
+                  json={"record": "find", "record_id": str(find.id), "field": "unit_id", "value": str(demo.units["102"].id)})
+    assert r.status_code == 200, r.text
+    c1.sync()
+    c2.sync()
+    assert list_conflicts(server) == []
+    assert t1.get(Find, find.id).unit_id == t2.get(Find, find.id).unit_id == demo.units["102"].id
+    assert t2.get(Find, find.id).z == 99.5  # the other field's edit was never in conflict
+
+
+def test_a_batch_sent_twice_is_applied_once(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    c1.sync()
+    first = c1._batch(1)  # noqa: SLF001
+    token = c1.headers
+    body = {"batch": 1, "hash": batch_hash(first), "versions": [v.model_dump(mode="json") for v in first]}
+    r = http.post("/v1/sync/push", headers=token, json=body)
+    assert r.status_code == 200 and r.json()["replayed"] is True
+    assert server.count(Find) == 1
+
+
+def test_same_batch_different_content_is_refused_with_the_fix(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    c1.sync()
+    versions = c1._batch(1)[:1]  # noqa: SLF001
+    body = {"batch": 1, "hash": batch_hash(versions), "versions": [v.model_dump(mode="json") for v in versions]}
+    r = http.post("/v1/sync/push", headers=c1.headers, json=body)
+    assert r.status_code == 409
+    assert "re-enrol it as a new device" in r.json()["message"]
+
+
+def test_versions_of_another_device_are_refused(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    _t1, c1 = enrol(server, http, tmp, "TAB-1")
+    forged = Version(id=f"{uuid.UUID(int=9)}:1", record="find", record_id=uuid.uuid4(), field="z", value=1.0,
+                     wall_ms=1, counter=0, device=uuid.UUID(int=9), seq=1)
+    r = http.post("/v1/sync/push", headers=c1.headers,
+                  json={"batch": 9, "hash": batch_hash([forged]), "versions": [forged.model_dump(mode="json")]})
+    assert r.status_code == 403 and "a tablet pushes only its own edits" in r.json()["message"]
+
+
+def test_a_cut_connection_is_a_plain_error_and_the_retry_resends_the_same_batch(camp) -> None:  # type: ignore[no-untyped-def]
+    import httpx
+
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+
+    def dead(_request: httpx.Request) -> httpx.Response:
+        raise httpx.ConnectError("no route to host")
+
+    offline = SyncClient(t1, httpx.Client(transport=httpx.MockTransport(dead), base_url="http://camp"), "x")
+    with pytest.raises(SyncError, match="the camp server did not answer"):
+        offline.sync()
+    before = offline.pending_count()
+    assert before > 0
+    report = c1.sync()
+    assert report.pushed_batches == 1 and c1.pending_count() == 0 and server.count(Find) == 1
