@@ -126,7 +126,6 @@ def versions_for_edit(conn: Connection, ident: Identity, record: Record, *, new:
     return out
 
 
-@functools.lru_cache(maxsize=4)
 def _same(record: str, fname: str, a: Any, b: Any) -> bool:
     """Equal as values of the field (the same instant in two time zones is the same time)."""
     if a == b:
@@ -140,6 +139,7 @@ def _same(record: str, fname: str, a: Any, b: Any) -> bool:
         return False
 
 
+@functools.lru_cache(maxsize=4)
 def _insert_stmt(dialect_name: str) -> Any:
     dialect = postgresql if dialect_name == "postgresql" else sqlite
     return dialect.insert(field_version).on_conflict_do_nothing(index_elements=["id"]).returning(field_version.c.id)
