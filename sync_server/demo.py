@@ -21,7 +21,10 @@ from typing import Any, Callable
 from schema import __version__
 import numpy as np
 
+import httpx
+
 from mobile.recording import Reading, record_gnss_find, record_plotted_find, setup_by_backsight, setup_by_resection
+from mobile.sync import SyncClient
 from schema.demo_site import GRID_TIE, SEASON_START, DemoSite, TabletPlan, build_site, plan_finds
 from schema.errors import BaulkError, FixNotAccepted
 from schema.records import Device, Find, GnssFix, Relation, Shot
@@ -30,7 +33,10 @@ from schema.survey.polar import Station
 from schema.survey.recompute import station_of
 from schema.survey.simulate import gga, gst, readings_for, rmc
 
+from .app import create_app
+from .loopback import serve_in_thread
 from .store import ServerStore
+from .validation import run_validation
 
 __all__ = ["DemoResult", "run_demo"]
 
@@ -65,12 +71,19 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
     survey_summary = _fit_site_grid(server, demo)
     summary: dict[str, Any] = {"site": demo.site.code, "version": __version__, "tablets": {}, "survey": survey_summary}
     tablet_counts: dict[str, dict[str, Any]] = {}
-    for label, count, seed in TABLETS:
-        device, _token = server.add_device(label=label, role="recorder")
-        block = server.issue_number_block(device_id=device.id, size=500)
-        progress(f"{label}: enrolled, numbers {block.first}-{block.last}; recording {count} finds")
-        with TabletStore.open(out / "tablets" / f"{label}.sqlite") as tablet:
-            _provision(tablet, demo, device, block)
+    with serve_in_thread(create_app(store=server)) as url:
+        progress(f"camp server: listening on {url} (loopback); tablets sync over real HTTP")
+        tablets = {}
+        for label, count, seed in TABLETS:
+            device, token = server.add_device(label=label, role="recorder")
+            block = server.issue_number_block(device_id=device.id, size=500)
+            progress(f"{label}: enrolled, numbers {block.first}-{block.last}; first sync brings the site set-up")
+            tablet = TabletStore.open(out / "tablets" / f"{label}.sqlite")
+            tablet.set_identity(device=device)
+            client = SyncClient(tablet, httpx.Client(base_url=url, timeout=60), token)
+            client.sync()
+            tablets[label] = (tablet, client)
+            progress(f"{label}: recording {count} finds offline")
             plan = plan_finds(demo, label=label, first_number=block.first, count=count, seed=seed)
             setup, setup_report = _set_up_instrument(tablet, demo, plan)
             survey_summary["setups"][label] = setup_report
@@ -80,13 +93,20 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
             tablet_counts[label]["validation"] = day_report.by_code()
             if label == "TAB-1":
                 summary["age_brackets"] = _brackets(day_report, demo)
+                summary["refused"] = _refusals(tablet, demo)
+        summary["sync"] = _sync_rounds(server, tablets, demo, url, progress)
+        for label, (tablet, client) in tablets.items():
             tablet_counts[label]["integrity"] = tablet.integrity_check()
             tablet_counts[label]["pragmas"] = tablet.pragmas()
-            if label == "TAB-1":
-                summary["refused"] = _refusals(tablet, demo)
+            client.http.close()
+            tablet.close()
+    progress("camp server: checking every find against the stratigraphy")
+    report, run = run_validation(server)
+    summary["server_validation"] = {"finds_checked": report.finds_checked, "by_code": report.by_code(),
+                                    "new": run.new}
     summary["tablets"] = tablet_counts
     summary["server"] = {"counts": server.counts(), "devices": [d.label for d in server.list(Device)]}
-    summary["finds"] = _tables(out, demo)
+    summary["finds"] = _tables(server, demo)
     summary["seconds"] = round(time.perf_counter() - started, 1)
     server.close()
     _write_summary(out, summary)
@@ -94,16 +114,53 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
     return DemoResult(out, summary)
 
 
-def _provision(tablet: Any, demo: DemoSite, device: Any, block: Any) -> None:
-    """Give a new tablet its identity, its number block and the site set-up.
+def _sync_rounds(server: ServerStore, tablets: dict[str, Any], demo: DemoSite, url: str,
+                 progress: Progress) -> dict[str, Any]:
+    """Evening sync in one order; overlapping offline edits; a second sync in another order; convergence."""
+    from .sync import list_conflicts, resolve_conflict
 
-    Until the sync engine lands this copies the records directly; afterwards it is the tablet's first pull.
-    """
-    with tablet.atomic():
-        tablet.set_identity(device=device)
-        tablet.add_number_block(block=block)
-        for record in demo.setup_records():
-            tablet.add(record)
+    rounds: list[list[str]] = []
+    order = ["TAB-3", "TAB-1", "TAB-2"]
+    for label in order:
+        r = tablets[label][1].sync()
+        progress(f"{label}: pushed {r.pushed_versions} versions in {r.pushed_batches} batches, pulled {r.pulled_versions}")
+    rounds.append(order)
+    for label in order:  # everyone pulls what the later tablets sent
+        tablets[label][1].sync()
+    # next morning, offline: two recorders correct the same mislogged find differently, and two tablets
+    # reword the same unit description
+    t1, t2, t3 = (tablets[k][0] for k in ("TAB-1", "TAB-2", "TAB-3"))
+    slip = next(f for f in t1.list(Find) if f.number == 141)
+    t1.put(slip.model_copy(update={"unit_id": demo.units["104"].id, "notes": "unit corrected by AK after checking the section"}))
+    t3.put(t3.get(Find, slip.id).model_copy(update={"unit_id": demo.units["103"].id}))
+    unit = demo.units["102"]
+    t1.put(t1.get(type(unit), unit.id).model_copy(update={"description": "grey vitric tuff, normally graded, 20 cm"}))
+    t2.put(t2.get(type(unit), unit.id).model_copy(update={"description": "grey tuff VL-1, pumice lapilli at base"}))
+    order = ["TAB-2", "TAB-1", "TAB-3"]
+    for label in order:
+        tablets[label][1].sync()
+    rounds.append(order)
+    conflicts = list_conflicts(server)
+    progress(f"camp server: {len(conflicts)} conflicts surfaced for the data manager")
+    # the manager settles the find's unit (the section shows 104); the description waits for the morning meeting
+    settled = None
+    for c in conflicts:
+        if c["record"] == "find" and c["field"] == "unit_id":
+            settled = resolve_conflict(server, record="find", record_id=slip.id, field="unit_id",
+                                       value=str(demo.units["104"].id))
+    for label in order:
+        tablets[label][1].sync()
+    finds_server = sorted(f.number for f in server.list(Find))
+    converged = all(sorted(f.number for f in t.list(Find)) == finds_server for t, _ in tablets.values())
+    same_unit = {str(t.get(Find, slip.id).unit_id) for t, _ in tablets.values()}
+    codes = {str(u.id): u.code for u in demo.units.values()}
+    return {
+        "orders": rounds, "conflicts": [{"record": c["record"], "field": c["field"],
+                                         "values": [f"{v['device']}: {codes.get(str(v['value']), v['value'])}"
+                                                    for v in c["values"]]} for c in conflicts],
+        "resolved": settled, "open_after": len(list_conflicts(server)), "converged": converged,
+        "finds_on_server": len(finds_server), "slip_unit_everywhere": sorted(codes.get(u, u) for u in same_unit),
+    }
 
 
 def _fit_site_grid(server: ServerStore, demo: DemoSite) -> dict[str, Any]:
@@ -290,21 +347,17 @@ def _refusals(tablet: Any, demo: DemoSite) -> list[dict[str, Any]]:
     return out
 
 
-def _tables(out: Path, demo: DemoSite) -> dict[str, Any]:
-    from mobile.store import TabletStore
-
+def _tables(server: ServerStore, demo: DemoSite) -> dict[str, Any]:
     by_unit: collections.Counter[str] = collections.Counter()
     by_horizon: collections.Counter[str] = collections.Counter()
     codes = {u.id: u.code for u in demo.units.values()}
     horizon_of = {u.id: u.horizon_id for u in demo.units.values()}
     hcode = {h.id: h.code for h in demo.horizons.values()}
-    for path in sorted((out / "tablets").glob("*.sqlite")):
-        with TabletStore.open(path) as tablet:
-            for f in tablet.list(Find):
-                if f.voided:
-                    continue
-                by_unit[codes[f.unit_id]] += 1
-                by_horizon[hcode.get(horizon_of[f.unit_id], "none")] += 1  # type: ignore[arg-type]
+    for f in server.list(Find):
+        if f.voided:
+            continue
+        by_unit[codes[f.unit_id]] += 1
+        by_horizon[hcode.get(horizon_of[f.unit_id], "none")] += 1  # type: ignore[arg-type]
     return {"by_unit": dict(sorted(by_unit.items())), "by_horizon": dict(sorted(by_horizon.items()))}
 
 
@@ -318,9 +371,8 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
     lines = [
         f"# Baulk demo: site {s['site']} (invented), Baulk {s['version']}",
         "",
-        "Three tablets recorded finds offline in their own SQLite files; the camp server holds the site set-up,",
-        "the enrolled devices and the find-number blocks it issued. (Merging the tablets into the server comes",
-        "with the sync engine.)",
+        "Three tablets recorded finds offline in their own SQLite files and merged them through the camp server;",
+        "the server holds the site set-up, the enrolled devices, the number blocks it issued and every version.",
         "",
         "| tablet | recorder | trench | finds | numbers | voided | artifacts | fossils | samples | sieved | file check |",
         "|---|---|---|---|---|---|---|---|---|---|---|",
@@ -355,6 +407,18 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
                      + f"; {t['shots']} raw shots and {t['gnss_fixes']} GNSS fixes kept"
                      + (f"; {t['gnss_float_refused_then_overridden']} RTK-float fixes refused, then accepted with the "
                         "recorder's reason" if t["gnss_float_refused_then_overridden"] else "") + ".")
+    sy = s["sync"]
+    lines += ["", "## Sync", "",
+              f"Each tablet's first sync over HTTP (a real server on loopback) brought it the site set-up and its own "
+              f"number block. Evening sync in the order {', '.join(sy['orders'][0])}; the next morning two recorders "
+              f"corrected the same mislogged find differently and two tablets reworded the same unit, offline; then "
+              f"sync in the order {', '.join(sy['orders'][1])}. Conflicts surfaced for the data manager:", ""]
+    for c in sy["conflicts"]:
+        lines.append(f"- {c['record']} {c['field']}: " + " / ".join(c["values"]))
+    lines += ["", f"The manager settled the find's unit ({', '.join(sy['slip_unit_everywhere'])} on every replica); "
+              f"{sy['open_after']} conflict left open for the morning meeting. All replicas converged: "
+              f"{'yes' if sy['converged'] else 'NO'} ({sy['finds_on_server']} finds on the server).",
+              "", "Server validation after the merge: " + (", ".join(f"{k} {v}" for k, v in s["server_validation"]["by_code"].items()) or "no issues")]
     lines += ["", "## Checks", "",
               "Each tablet ran the stratigraphy rules live after every save. The slips planted in this season and "
               "what the recorder was shown at once:", ""]
