@@ -84,3 +84,17 @@ def tablet(tmp_path: Path, demo_site: DemoSite):  # type: ignore[no-untyped-def]
             store.add(record)
     yield store
     store.close()
+
+
+@pytest.fixture(scope="session")
+def demo_out(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """One ``baulk demo`` run shared by the tests that only read its output (it takes ~20 s)."""
+    from click.testing import CliRunner
+
+    from sync_server.cli import cli
+
+    out = tmp_path_factory.mktemp("demo") / "out"
+    result = CliRunner().invoke(cli, ["demo", "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    (out / "cli-output.txt").write_text(result.output)
+    return out

@@ -36,11 +36,9 @@ def test_every_command_has_help(name: str, command: click.Command) -> None:
             assert param.help, f"baulk {name} {param.opts[0]} has no help text"
 
 
-def test_demo_writes_a_summary(tmp_path: Path) -> None:
-    out = tmp_path / "demo"
-    result = CliRunner().invoke(cli, ["demo", "--out", str(out)])
-    assert result.exit_code == 0, result.output
-    assert "[demo] camp server: creating the store and the site set-up" in result.output
+def test_demo_writes_a_summary(demo_out: Path) -> None:
+    out = demo_out
+    assert "[demo] camp server: creating the store and the site set-up" in (out / "cli-output.txt").read_text()
     summary = json.loads((out / "summary.json").read_text())
     assert set(summary["tablets"]) == {"TAB-1", "TAB-2", "TAB-3"}
     assert sum(t["finds"] for t in summary["tablets"].values()) == 370
@@ -66,12 +64,11 @@ def test_demo_writes_a_summary(tmp_path: Path) -> None:
     assert summary["server_validation"]["by_code"]["UNIT_IS_CUT"] == 1
 
 
-def test_demo_refuses_to_overwrite(tmp_path: Path) -> None:
-    CliRunner().invoke(cli, ["demo", "--out", str(tmp_path)])
-    result = CliRunner().invoke(cli, ["demo", "--out", str(tmp_path)])
+def test_demo_refuses_to_overwrite(demo_out: Path) -> None:
+    result = CliRunner().invoke(cli, ["demo", "--out", str(demo_out)])
     assert result.exit_code == 1
     assert result.output == (
-        f"Error: {tmp_path} already holds a demo; choose a new folder or delete {tmp_path / 'server.sqlite'} first\n"
+        f"Error: {demo_out} already holds a demo; choose a new folder or delete {demo_out / 'server.sqlite'} first\n"
     )
 
 
@@ -83,9 +80,8 @@ def test_serve_with_half_a_tls_pair_says_what_to_give(tmp_path: Path) -> None:
     assert result.output == "Error: give both tls_cert and tls_key for HTTPS, or neither for plain HTTP\n"
 
 
-def test_inspect_a_tablet_file(tmp_path: Path) -> None:
-    CliRunner().invoke(cli, ["demo", "--out", str(tmp_path)])
-    result = CliRunner().invoke(cli, ["inspect", str(tmp_path / "tablets" / "TAB-2.sqlite")])
+def test_inspect_a_tablet_file(demo_out: Path) -> None:
+    result = CliRunner().invoke(cli, ["inspect", str(demo_out / "tablets" / "TAB-2.sqlite")])
     assert result.exit_code == 0
     assert "integrity: ok\n" in result.output
     assert "upgrade steps pending: none (up to date)\n" in result.output

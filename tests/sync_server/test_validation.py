@@ -87,9 +87,8 @@ def test_baulk_validate_writes_json_and_csv_and_exits_1_on_errors(tmp_path: Path
     assert json.loads((out / "issues.json").read_text())[0]["label"] == "find 1432"
 
 
-def test_baulk_validate_a_tablet_file_leaves_it_unchanged(tmp_path: Path) -> None:
-    CliRunner().invoke(cli, ["demo", "--out", str(tmp_path / "d")])
-    tab = tmp_path / "d" / "tablets" / "TAB-2.sqlite"
+def test_baulk_validate_a_tablet_file_leaves_it_unchanged(tmp_path: Path, demo_out: Path) -> None:
+    tab = demo_out / "tablets" / "TAB-2.sqlite"
     before = tab.read_bytes()
     result = CliRunner().invoke(cli, ["validate", "--tablet", str(tab), "--out", str(tmp_path / "r")])
     assert result.exit_code == 1  # the demo plants a find in a cut, among others
