@@ -96,6 +96,18 @@ class TabletStore(RecordStore):
             row = conn.exec_driver_sql("SELECT value FROM local_setting WHERE key='device_id'").first()
             return uuid.UUID(row[0]) if row else None
 
+    def set_token(self, token: str) -> None:
+        """Keep the device token issued at enrollment (needed to sync and to seal bundles)."""
+        with self.atomic() as conn:
+            conn.exec_driver_sql(
+                "INSERT INTO local_setting (key, value) VALUES ('token', ?) "
+                "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (token,))
+
+    def token(self) -> str | None:
+        with self.read() as conn:
+            row = conn.exec_driver_sql("SELECT value FROM local_setting WHERE key='token'").first()
+            return row[0] if row else None
+
     def add_number_block(self, *, block: NumberBlock) -> None:
         self.add(block)
 

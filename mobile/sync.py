@@ -21,6 +21,7 @@ from schema.sync import Version, batch_hash
 from schema.sync.replica import insert_versions, load_identity, materialize, retry_pending, state_get, state_set
 from schema.sync.tables import field_version
 
+from . import outbox
 from .store import TabletStore
 
 __all__ = ["SyncClient", "SyncReport"]
@@ -57,28 +58,8 @@ class SyncClient:
                 field_version.c.device == me, sa.or_(field_version.c.batch.is_(None), field_version.c.batch > acked))
             return int(conn.execute(q).scalar_one())
 
-    def _cut_batches(self) -> None:
-        """Number the unsent versions into batches, once (a retry re-sends the same batches)."""
-        with self.store.atomic() as conn:
-            me = load_identity(conn).device
-            last = int(state_get(conn, "last_batch", "0") or 0)
-            ids = conn.execute(sa.select(field_version.c.id).where(field_version.c.device == me,
-                                                                    field_version.c.batch.is_(None))
-                               .order_by(field_version.c.seq)).scalars().all()
-            for i in range(0, len(ids), self.batch_size):
-                last += 1
-                conn.execute(field_version.update().where(field_version.c.id.in_(ids[i:i + self.batch_size]))
-                             .values(batch=last))
-            state_set(conn, "last_batch", last)
-
     def _batch(self, number: int) -> list[Version]:
-        with self.store.read() as conn:
-            rows = conn.execute(sa.select(field_version).where(field_version.c.batch == number,
-                                                               field_version.c.device == load_identity(conn).device)
-                                .order_by(field_version.c.seq)).all()
-        return [Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value,
-                        wall_ms=r.wall_ms, counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
-                        schema_version=r.schema_version) for r in rows]
+        return outbox.batch_versions(self.store, number)
 
     # -- wire -----------------------------------------------------------------------------------------------
     def _call(self, method: str, url: str, **kw: Any) -> dict[str, Any]:
@@ -103,22 +84,19 @@ class SyncClient:
 
     # -- the two halves -------------------------------------------------------------------------------------
     def push(self, report: SyncReport) -> None:
-        self._cut_batches()
-        with self.store.read() as conn:
-            acked = int(state_get(conn, "acked_batch", "0") or 0)
-            last = int(state_get(conn, "last_batch", "0") or 0)
-        for number in range(acked + 1, last + 1):
+        outbox.cut_batches(self.store, size=self.batch_size)
+        todo = outbox.unacked_batches(self.store)
+        for k, number in enumerate(todo, start=1):
             versions = self._batch(number)
             body = {"batch": number, "hash": batch_hash(versions), "versions": [v.model_dump(mode="json") for v in versions]}
             ack = self._call("POST", "/v1/sync/push", json=body)
-            with self.store.atomic() as conn:
-                state_set(conn, "acked_batch", number)
+            outbox.mark_acked(self.store, number)
             report.pushed_batches += 1
             report.pushed_versions += len(versions)
             report.replayed_batches += int(bool(ack.get("replayed")))
             report.conflicts_open = ack.get("conflicts_open")
             report.acks.append(ack)
-            self.progress("push", number - acked, last - acked)
+            self.progress("push", k, len(todo))
 
     def pull(self, report: SyncReport) -> None:
         while True:

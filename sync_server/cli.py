@@ -175,6 +175,42 @@ def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
     return results
 
 
+@cli.group()
+def bundle() -> None:
+    """Carry a tablet's unsent work to the camp server on a USB stick when there is no Wi-Fi."""
+
+
+@bundle.command("export")
+@click.option("--store", "store_path", type=click.Path(exists=True, dir_okay=False, path_type=Path), required=True,
+              help="The tablet's SQLite file.")
+@click.option("--out", type=click.Path(path_type=Path), required=True,
+              help="Bundle file to write, or a folder to write a dated one into.")
+def bundle_export(store_path: Path, out: Path) -> None:
+    """Write every batch the server has not acknowledged into one sealed bundle file."""
+    from mobile.bundles import export_bundle
+    from mobile.store import TabletStore
+
+    with TabletStore.open(store_path) as tablet:
+        m = export_bundle(tablet, out)
+    total = sum(b["versions"] for b in m["batches"])
+    click.echo(f"wrote {m['path']}: {len(m['batches'])} batches, {total} versions from {m['device_label']}")
+
+
+@bundle.command("import")
+@click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+def bundle_import(file: Path, database_url: str | None) -> None:
+    """Check a bundle whole, then apply it exactly like a push (a bad bundle changes nothing)."""
+    from .bundles import import_bundle
+    from .settings import ServerSettings
+    from .store import ServerStore
+
+    with ServerStore.open(database_url or ServerSettings().database_url) as store:
+        r = import_bundle(store, file)
+    click.echo(f"imported {file.name} from {r['device']}: {r['batches']} batches, {r['applied']} new versions"
+               + (f", {r['replayed']} already applied" if r["replayed"] else ""))
+
+
 def _register_groups() -> None:
     from .cli_survey import survey
 

@@ -80,6 +80,7 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
             progress(f"{label}: enrolled, numbers {block.first}-{block.last}; first sync brings the site set-up")
             tablet = TabletStore.open(out / "tablets" / f"{label}.sqlite")
             tablet.set_identity(device=device)
+            tablet.set_token(token)
             client = SyncClient(tablet, httpx.Client(base_url=url, timeout=60), token)
             client.sync()
             tablets[label] = (tablet, client)
@@ -136,9 +137,27 @@ def _sync_rounds(server: ServerStore, tablets: dict[str, Any], demo: DemoSite, u
     unit = demo.units["102"]
     t1.put(t1.get(type(unit), unit.id).model_copy(update={"description": "grey vitric tuff, normally graded, 20 cm"}))
     t2.put(t2.get(type(unit), unit.id).model_copy(update={"description": "grey tuff VL-1, pumice lapilli at base"}))
-    order = ["TAB-2", "TAB-1", "TAB-3"]
-    for label in order:
+    order = ["TAB-2", "TAB-1", "TAB-3 (bundle)"]
+    for label in order[:2]:
         tablets[label][1].sync()
+    # TAB-3's Wi-Fi is down: the day's sieve finds go to the camp laptop in a bundle on a USB stick
+    spit = demo.spits["302"][0]
+    for b in range(5):
+        t3.save_find(find=dict(
+            number=t3.next_find_number(), site_id=demo.site.id, season_id=demo.season.id,
+            trench_id=demo.trenches["TR3"].id, unit_id=demo.units["302"].id, spit_id=spit.id, bucket=f"B{41 + b}",
+            category="fossil", material="tooth", taxon="Cichlidae", element="pharyngeal tooth", recovery="sieved",
+            count=3 + b, found_at=dt.datetime.combine(SEASON_START + dt.timedelta(days=21), dt.time(15, b * 7),
+                                                      dt.timezone(dt.timedelta(hours=3))), recorder="JT"))
+    from mobile.bundles import export_bundle
+
+    from .bundles import import_bundle
+
+    folder = Path(t3.path).parent.parent / "usb"
+    folder.mkdir(exist_ok=True)
+    manifest = export_bundle(t3, folder)
+    imported = import_bundle(server, Path(manifest["path"]))
+    progress(f"TAB-3: bundle {Path(manifest['path']).name} imported: {imported['applied']} versions")
     rounds.append(order)
     conflicts = list_conflicts(server)
     progress(f"camp server: {len(conflicts)} conflicts surfaced for the data manager")
@@ -148,7 +167,7 @@ def _sync_rounds(server: ServerStore, tablets: dict[str, Any], demo: DemoSite, u
         if c["record"] == "find" and c["field"] == "unit_id":
             settled = resolve_conflict(server, record="find", record_id=slip.id, field="unit_id",
                                        value=str(demo.units["104"].id))
-    for label in order:
+    for label in ("TAB-2", "TAB-1", "TAB-3"):  # back on the Wi-Fi: TAB-3's bundled batches are answered from their acks
         tablets[label][1].sync()
     finds_server = sorted(f.number for f in server.list(Find))
     converged = all(sorted(f.number for f in t.list(Find)) == finds_server for t, _ in tablets.values())
@@ -159,6 +178,7 @@ def _sync_rounds(server: ServerStore, tablets: dict[str, Any], demo: DemoSite, u
                                          "values": [f"{v['device']}: {codes.get(str(v['value']), v['value'])}"
                                                     for v in c["values"]]} for c in conflicts],
         "resolved": settled, "open_after": len(list_conflicts(server)), "converged": converged,
+        "bundle": {"file": Path(manifest["path"]).name, "batches": imported["batches"], "versions": imported["applied"]},
         "finds_on_server": len(finds_server), "slip_unit_everywhere": sorted(codes.get(u, u) for u in same_unit),
     }
 
@@ -412,7 +432,9 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
               f"Each tablet's first sync over HTTP (a real server on loopback) brought it the site set-up and its own "
               f"number block. Evening sync in the order {', '.join(sy['orders'][0])}; the next morning two recorders "
               f"corrected the same mislogged find differently and two tablets reworded the same unit, offline; then "
-              f"sync in the order {', '.join(sy['orders'][1])}. Conflicts surfaced for the data manager:", ""]
+              f"sync in the order {', '.join(sy['orders'][1])}: TAB-3's Wi-Fi was down, so its recorder carried bundle "
+              f"{sy['bundle']['file']} ({sy['bundle']['batches']} batches, {sy['bundle']['versions']} versions) on a USB "
+              "stick, imported through the same path as a push. Conflicts surfaced for the data manager:", ""]
     for c in sy["conflicts"]:
         lines.append(f"- {c['record']} {c['field']}: " + " / ".join(c["values"]))
     lines += ["", f"The manager settled the find's unit ({', '.join(sy['slip_unit_everywhere'])} on every replica); "

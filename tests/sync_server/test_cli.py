@@ -58,7 +58,7 @@ def test_demo_writes_a_summary(demo_out: Path) -> None:
     assert summary["tablets"]["TAB-3"]["gnss_fixes"] > 0
     # sync: over real HTTP, in two orders, with the overlapping edits surfaced and the replicas converged
     sync = summary["sync"]
-    assert sync["converged"] and sync["finds_on_server"] == 376
+    assert sync["converged"] and sync["finds_on_server"] == 381 and sync["bundle"]["versions"] > 100
     assert sorted((c["record"], c["field"]) for c in sync["conflicts"]) == [("find", "unit_id"), ("unit", "description")]
     assert sync["open_after"] == 1 and sync["slip_unit_everywhere"] == ["104"]
     assert summary["server_validation"]["by_code"]["UNIT_IS_CUT"] == 1
@@ -85,7 +85,7 @@ def test_inspect_a_tablet_file(demo_out: Path) -> None:
     assert result.exit_code == 0
     assert "integrity: ok\n" in result.output
     assert "upgrade steps pending: none (up to date)\n" in result.output
-    assert "  find           376\n" in result.output  # after sync every tablet holds all 370 + 6 slips
+    assert "  find           381\n" in result.output  # after sync: 370 planned, 6 slips, 5 bundled sieve finds
 
 
 def test_inspect_junk_is_one_clear_error(tmp_path: Path) -> None:
