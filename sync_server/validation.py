@@ -73,6 +73,18 @@ def run_validation(store: ServerStore, *, now: dt.datetime | None = None,
     return report, RunSummary(len(new), len(current) - len(new), len(gone), int(accepted))
 
 
+def validate_after_merge(store: ServerStore) -> None:
+    """Re-run validation once a merge changed something (validation never blocks the merge itself)."""
+    import logging
+
+    try:
+        run_validation(store)
+    except RecordNotFound:
+        pass  # no site set up yet: nothing to check
+    except Exception:  # noqa: BLE001 - a failing check must not take the server down; it is logged
+        logging.getLogger("baulk.validation").exception("validation after a merge failed")
+
+
 def _row(r: Any) -> dict[str, Any]:
     d = dict(r._mapping)
     for k in ("first_seen_at", "last_seen_at", "accepted_at"):

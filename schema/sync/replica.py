@@ -158,14 +158,13 @@ def insert_versions(conn: Connection, versions: Iterable[Version], *, next_log_s
     added: set[str] = set()
     for i in range(0, len(items), 400):
         chunk = items[i:i + 400]
+        # change-log positions go with the insert; a version already held keeps its own (the skipped position
+        # is a harmless gap: pulls ask for positions after a cursor, never for a count)
         rows = [{**v.model_dump(mode="json"), "record_id": v.record_id, "device": v.device,
-                 "parents": list(v.parents), "batch": batch, "log_seq": None} for v in chunk]
+                 "parents": list(v.parents), "batch": batch,
+                 "log_seq": None if next_log_seq is None else next_log_seq + i + k} for k, v in enumerate(chunk)]
         added.update(r[0] for r in conn.execute(_insert_stmt(conn.dialect.name), rows))
-    new = [v for v in items if v.id in added]
-    if next_log_seq is not None:
-        for n, v in enumerate(new):
-            conn.execute(field_version.update().where(field_version.c.id == v.id).values(log_seq=next_log_seq + n))
-    return new
+    return [v for v in items if v.id in added]
 
 
 @functools.lru_cache(maxsize=None)

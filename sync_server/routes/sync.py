@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Depends, Query, Request
+from fastapi import APIRouter, BackgroundTasks, Depends, Query, Request
 from pydantic import BaseModel, ConfigDict, Field
 
 from schema.records import Device
@@ -12,6 +12,7 @@ from schema.sync import Version
 
 from ..auth import require
 from ..sync import MAX_BATCH, MAX_PAGE, apply_push, list_conflicts, pull_page, resolve_conflict
+from ..validation import validate_after_merge
 
 router = APIRouter(prefix="/v1", tags=["sync"])
 
@@ -90,7 +91,7 @@ def _push_schema() -> dict[str, Any]:
 
 @router.post("/sync/push", response_model=PushAck, openapi_extra={
     "requestBody": {"required": True, "content": {"application/json": {"schema": _push_schema()}}}})
-async def push(request: Request, device: Pusher) -> dict[str, Any]:
+async def push(request: Request, device: Pusher, background: BackgroundTasks) -> dict[str, Any]:
     """Apply a batch of this device's versions once; the same batch again returns its first acknowledgement."""
     from fastapi import HTTPException
     from fastapi.concurrency import run_in_threadpool
@@ -105,8 +106,11 @@ async def push(request: Request, device: Pusher) -> dict[str, Any]:
         first = exc.errors()[0]
         where = ".".join(str(p) for p in first["loc"])
         raise HTTPException(422, detail=f"push body refused at {where}: {first['msg']}") from None
-    return await run_in_threadpool(apply_push, request.app.state.store, device=device, batch=body.batch,
-                                   content_hash=body.hash, versions=body.versions)
+    ack = await run_in_threadpool(apply_push, request.app.state.store, device=device, batch=body.batch,
+                                  content_hash=body.hash, versions=body.versions)
+    if ack["applied"]:
+        background.add_task(validate_after_merge, request.app.state.store)  # after the answer is sent
+    return ack
 
 
 @router.get("/sync/pull", response_model=PullPage)

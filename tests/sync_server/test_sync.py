@@ -147,3 +147,13 @@ def test_a_cut_connection_is_a_plain_error_and_the_retry_resends_the_same_batch(
     assert before > 0
     report = c1.sync()
     assert report.pushed_batches == 1 and c1.pending_count() == 0 and server.count(Find) == 1
+
+
+def test_validation_runs_after_every_merge(camp) -> None:  # type: ignore[no-untyped-def]
+    from sync_server.validation import list_issues
+
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1.save_find(find=find_data(demo, number=t1.next_find_number(), z=99.30))  # below its unit
+    c1.sync()
+    assert [r["code"] for r in list_issues(server)] == ["POS_BELOW_UNIT"]
