@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .records import (
-    AgeDetermination, ControlPoint, Find, Horizon, LevelPoint, Relation, Sample, Season, Site, Spit, Trench, Unit,
+    AgeDetermination, ControlPoint, Horizon, LevelPoint, Relation, Season, Site, Spit, Trench, Unit,
 )
 
 __all__ = ["DemoSite", "TabletPlan", "build_site", "plan_finds"]

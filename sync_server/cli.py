@@ -7,10 +7,9 @@ both the tablet and the server packages; they import ``mobile`` lazily inside th
 
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import click
 

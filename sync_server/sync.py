@@ -8,7 +8,6 @@ and committed in order and a pulling tablet never skips a version committed late
 from __future__ import annotations
 
 import datetime as dt
-import hashlib
 import time
 from typing import Any
 

@@ -19,3 +19,28 @@ def find_data(demo: DemoSite, **changes: Any) -> dict[str, Any]:
     )
     data.update(changes)
     return data
+
+
+def seeded_server(url: str) -> tuple[Any, DemoSite]:
+    """A server store at ``url`` holding the invented site's set-up."""
+    from schema.demo_site import build_site
+    from sync_server.store import ServerStore
+
+    server = ServerStore.open(url)
+    demo = build_site()
+    with server.atomic():
+        for record in demo.setup_records():
+            server.add(record)
+    return server, demo
+
+
+def enrolled_tablet(server: Any, path: Any, label: str, *, block: int = 100) -> tuple[Any, Any, str]:
+    """A recorder device with a number block, and a tablet file that knows it is that device."""
+    from mobile.store import TabletStore
+
+    device, token = server.add_device(label=label, role="recorder")
+    server.issue_number_block(device_id=device.id, size=block)
+    tablet = TabletStore.open(path)
+    tablet.set_identity(device=device)
+    tablet.set_token(token)
+    return tablet, device, token

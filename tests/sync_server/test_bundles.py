@@ -12,31 +12,20 @@ from click.testing import CliRunner
 from fastapi.testclient import TestClient
 
 from mobile.bundles import export_bundle
-from mobile.store import TabletStore
 from mobile.sync import SyncClient
-from schema.demo_site import build_site
 from schema.errors import BundleInvalid
 from schema.records import Find
 from sync_server.app import create_app
 from sync_server.bundles import import_bundle
 from sync_server.cli import cli
-from sync_server.store import ServerStore
-from tests.helpers import find_data
+from tests.helpers import enrolled_tablet, find_data, seeded_server
 
 
 @pytest.fixture
 def field(tmp_path: Path):  # type: ignore[no-untyped-def]
     url = f"sqlite:///{tmp_path / 'camp.sqlite'}"
-    server = ServerStore.open(url)
-    demo = build_site()
-    with server.atomic():
-        for record in demo.setup_records():
-            server.add(record)
-    device, token = server.add_device(label="TAB-1", role="recorder")
-    server.issue_number_block(device_id=device.id, size=100)
-    tablet = TabletStore.open(tmp_path / "TAB-1.sqlite")
-    tablet.set_identity(device=device)
-    tablet.set_token(token)
+    server, demo = seeded_server(url)
+    tablet, _device, token = enrolled_tablet(server, tmp_path / "TAB-1.sqlite", "TAB-1")
     with TestClient(create_app(store=server)) as http:
         SyncClient(tablet, http, token).sync()  # enrolled at camp, then off to the trench
         for _ in range(4):

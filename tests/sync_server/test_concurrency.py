@@ -10,9 +10,7 @@ import httpx
 import pytest
 import sqlalchemy as sa
 
-from mobile.store import TabletStore
 from mobile.sync import SyncClient
-from schema.demo_site import build_site
 from schema.records import Find, Unit
 from schema.sync import VersionSet
 from schema.sync.replica import record_versions
@@ -20,23 +18,16 @@ from schema.sync.tables import field_version
 from sync_server.app import create_app
 from sync_server.loopback import serve_in_thread
 from sync_server.store import ServerStore
-from tests.helpers import find_data
+from tests.helpers import enrolled_tablet, find_data, seeded_server
 
 
 @pytest.mark.slow
 def test_eight_pushers_at_once(tmp_path: Path, server_url: str) -> None:
-    server = ServerStore.open(server_url)
-    demo = build_site()
-    with server.atomic():
-        for r in demo.setup_records():
-            server.add(r)
+    server, demo = seeded_server(server_url)
     with serve_in_thread(create_app(store=server)) as url:
         tablets = []
         for i in range(8):
-            device, token = server.add_device(label=f"TAB-{i}", role="recorder")
-            server.issue_number_block(device_id=device.id, size=1000)
-            t = TabletStore.open(tmp_path / f"t{i}.sqlite")
-            t.set_identity(device=device)
+            t, _device, token = enrolled_tablet(server, tmp_path / f"t{i}.sqlite", f"TAB-{i}", block=1000)
             client = SyncClient(t, httpx.Client(base_url=url, timeout=120), token, batch_size=25)
             client.sync()
             tablets.append((t, client))

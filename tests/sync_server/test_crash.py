@@ -25,7 +25,7 @@ from schema.errors import SyncError
 from schema.sync.tables import field_version
 from sync_server.loopback import free_port
 from sync_server.store import ServerStore
-from tests.helpers import find_data
+from tests.helpers import enrolled_tablet, find_data, seeded_server
 
 KILLS = 50
 
@@ -52,15 +52,9 @@ def _ids(conn: sqlite3.Connection, device: str | None = None) -> list[str]:
 @pytest.mark.slow
 def test_server_killed_at_random_points(tmp_path: Path) -> None:
     db = tmp_path / "camp.sqlite"
-    demo = build_site()
-    with ServerStore.open(f"sqlite:///{db}") as server:
-        with server.atomic():
-            for r in demo.setup_records():
-                server.add(r)
-        device, token = server.add_device(label="TAB-1", role="recorder")
-        server.issue_number_block(device_id=device.id, size=100_000)
-    tablet = TabletStore.open(tmp_path / "tab.sqlite")
-    tablet.set_identity(device=device)
+    server, demo = seeded_server(f"sqlite:///{db}")
+    tablet, device, token = enrolled_tablet(server, tmp_path / "tab.sqlite", "TAB-1", block=100_000)
+    server.close()
     port = free_port()
     rng = random.Random(7)
     proc = _start(db, port)

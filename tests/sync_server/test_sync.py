@@ -10,33 +10,25 @@ from fastapi.testclient import TestClient
 
 from mobile.store import TabletStore
 from mobile.sync import SyncClient
-from schema.demo_site import build_site
 from schema.errors import SyncError
 from schema.records import Find, NumberBlock, Unit
 from schema.sync import Version, batch_hash
 from sync_server.app import create_app
 from sync_server.store import ServerStore
 from sync_server.sync import list_conflicts
-from tests.helpers import find_data
+from tests.helpers import enrolled_tablet, find_data, seeded_server
 
 
 @pytest.fixture
 def camp(tmp_path: Path, server_url: str):  # type: ignore[no-untyped-def]
-    server = ServerStore.open(server_url)
-    demo = build_site()
-    with server.atomic():
-        for record in demo.setup_records():
-            server.add(record)
+    server, demo = seeded_server(server_url)
     with TestClient(create_app(store=server)) as http:
         yield server, demo, http, tmp_path
     server.close()
 
 
 def enrol(server: ServerStore, http: TestClient, tmp: Path, label: str) -> tuple[TabletStore, SyncClient]:
-    device, token = server.add_device(label=label, role="recorder")
-    server.issue_number_block(device_id=device.id, size=100)
-    tablet = TabletStore.open(tmp / f"{label}.sqlite")
-    tablet.set_identity(device=device)
+    tablet, _device, token = enrolled_tablet(server, tmp / f"{label}.sqlite", label)
     client = SyncClient(tablet, http, token, batch_size=50)
     client.sync()  # the first pull brings the site set-up and this tablet's number block
     return tablet, client
