@@ -137,6 +137,25 @@ class RecordStore:
                 for name in db.record_names()
             }
 
+    def assign_horizon(self, *, unit_id: "uuid.UUID", horizon_id: "uuid.UUID | None", by: str,
+                       at: "Any", note: str = "") -> "Any":
+        """Put a unit in a horizon (or take it out) and keep who did it, when and why, in one transaction."""
+        from .records import HorizonAssignment, Unit
+
+        with self.atomic() as conn:
+            unit = db.get(conn, Unit, unit_id)
+            entry = check(HorizonAssignment, {"unit_id": unit_id, "horizon_id": horizon_id, "assigned_by": by,
+                                              "assigned_at": at, "note": note})
+            self.save_versioned(conn, check(Unit, {**unit.model_dump(), "horizon_id": horizon_id}), new=False)
+            self.save_versioned(conn, entry, new=True)
+        return entry
+
+    def horizon_history(self, unit_id: "uuid.UUID") -> "list[Any]":
+        """Every horizon assignment of a unit, oldest first."""
+        from .records import HorizonAssignment
+
+        return sorted(self.list(HorizonAssignment, unit_id=unit_id), key=lambda h: h.assigned_at)
+
     def correct_setup(self, setup: "StationSetup", *, curvature_refraction: bool = False) -> dict[str, int]:
         """Store a corrected setup and recompute every find and level point shot from it, in one transaction.
 
