@@ -149,3 +149,24 @@ def test_validation_runs_after_every_merge(camp) -> None:  # type: ignore[no-unt
     t1.save_find(find=find_data(demo, number=t1.next_find_number(), z=99.30))  # below its unit
     c1.sync()
     assert [r["code"] for r in list_issues(server)] == ["POS_BELOW_UNIT"]
+
+
+def test_a_truncated_push_body_is_refused_and_nothing_applied(camp) -> None:  # type: ignore[no-untyped-def]
+    import json
+
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    from mobile import outbox
+
+    outbox.cut_batches(t1)
+    (number,) = outbox.unacked_batches(t1)
+    versions = outbox.batch_versions(t1, number)
+    raw = json.dumps({"batch": number, "hash": batch_hash(versions),
+                      "versions": [v.model_dump(mode="json") for v in versions]}).encode()
+    for cut in (len(raw) // 3, len(raw) - 1):
+        r = http.post("/v1/sync/push", headers={**c1.headers, "content-type": "application/json"}, content=raw[:cut])
+        assert r.status_code == 422 and r.json()["detail"].startswith("push body refused at ")
+    assert server.count(Find) == 0
+    c1.sync()  # the whole batch, sent again intact, is applied once
+    assert server.count(Find) == 1
