@@ -135,13 +135,13 @@ class TabletStore(RecordStore):
     def save_find(self, *, find: Find | dict[str, Any], sample: Sample | dict[str, Any] | None = None) -> Find:
         """Validate and save a find (and its sample details) in one transaction; returns the saved find."""
         data = find.model_dump() if isinstance(find, Find) else dict(find)
-        me = self.device_id()
-        if me is not None:
-            data.setdefault("device_id", me)
-        context = {"number_blocks": self.number_blocks()} if me is not None and data.get("device_id") == me else None
-        saved = check(Find, data, context=context)
-        details = self._sample_for(saved, sample)
-        with self.atomic() as conn:
+        with self.atomic() as conn:  # one transaction (one commit) for the checks and the writes
+            me = self.device_id()
+            if me is not None:
+                data.setdefault("device_id", me)
+            context = {"number_blocks": self.number_blocks()} if me is not None and data.get("device_id") == me else None
+            saved = check(Find, data, context=context)
+            details = self._sample_for(saved, sample)
             self.save_versioned(conn, saved, new=True)
             if details is not None:
                 self.save_versioned(conn, details, new=True)

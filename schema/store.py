@@ -80,7 +80,7 @@ class RecordStore:
 
         if record.record_name in LOCAL_ONLY:
             return
-        ident = load_identity(conn, default_device=self.default_device())
+        ident = load_identity(conn, default_device=self.default_device)
         versions = versions_for_edit(conn, ident, record, new=new)
         if versions:
             insert_versions(conn, versions)

@@ -13,7 +13,7 @@ import functools
 import json
 import uuid
 from dataclasses import dataclass
-from typing import Any, Iterable
+from typing import Any, Callable, Iterable
 
 import sqlalchemy as sa
 from pydantic import TypeAdapter
@@ -58,13 +58,14 @@ class Identity:
         return self.seq, self.clock.tick()
 
 
-def load_identity(conn: Connection, *, default_device: uuid.UUID | None = None) -> Identity:
-    """This store's identity (created on first use); the clock adds the stored server offset."""
+def load_identity(conn: Connection, *, default_device: "Callable[[], uuid.UUID | None] | None" = None) -> Identity:
+    """This store's identity (created on first use, from ``default_device()`` when given); the clock adds the
+    stored server offset."""
     import time
 
     device = state_get(conn, "device")
     if device is None:
-        device = str(default_device or uuid.uuid4())
+        device = str((default_device() if default_device else None) or uuid.uuid4())
         state_set(conn, "device", device)
     offset = int(state_get(conn, "clock_offset_ms", "0") or 0)
     clock = Clock(last=Stamp(int(state_get(conn, "hlc_wall", "0") or 0), int(state_get(conn, "hlc_counter", "0") or 0)),
