@@ -6,7 +6,7 @@ from __future__ import annotations
 import sqlalchemy as sa
 
 from schema.sync import Version
-from schema.sync.replica import load_identity, state_get, state_set
+from schema.sync.replica import load_identity, row_to_version, state_get, state_set
 from schema.sync.tables import field_version
 
 from .store import TabletStore
@@ -34,9 +34,7 @@ def batch_versions(store: TabletStore, number: int) -> list[Version]:
         me = load_identity(conn).device
         rows = conn.execute(sa.select(field_version).where(field_version.c.batch == number, field_version.c.device == me)
                             .order_by(field_version.c.seq)).all()
-    return [Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value, wall_ms=r.wall_ms,
-                    counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
-                    schema_version=r.schema_version) for r in rows]
+    return [row_to_version(r) for r in rows]
 
 
 def acked(store: TabletStore) -> int:

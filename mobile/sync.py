@@ -47,6 +47,7 @@ class SyncClient:
         self.store, self.http, self.batch_size, self.page_size = store, http, batch_size, page_size
         self.headers = {"Authorization": f"Bearer {token}"}
         self.progress = progress or (lambda _stage, _done, _total: None)
+        self._offset: int | None = None
 
     # -- batches ------------------------------------------------------------------------------------------
     def pending_count(self) -> int:
@@ -123,7 +124,7 @@ class SyncClient:
     def sync(self) -> SyncReport:
         """Push everything unsent, then pull everything new; keeps the server clock offset."""
         report = SyncReport()
-        self._offset: int | None = None
+        self._offset = None
         try:
             self.push(report)
             self.pull(report)

@@ -19,7 +19,7 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 
 from schema import db
-from schema.errors import RecordNotFound, StoreError
+from schema.errors import StoreError
 from schema.records import Device, NumberBlock
 from schema.store import RecordStore
 from schema.tables import metadata
@@ -161,9 +161,3 @@ class ServerStore(RecordStore):
 
     def blocks_for(self, device_id: uuid.UUID) -> list[NumberBlock]:
         return self.list(NumberBlock, device_id=device_id, order_by="first")
-
-    def find_device(self, label: str) -> Device:
-        found = self.list(Device, label=label)
-        if not found:
-            raise RecordNotFound(f"no device is labelled {label!r}; list them with the device list command")
-        return found[0]

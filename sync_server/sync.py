@@ -13,10 +13,12 @@ from typing import Any
 
 import sqlalchemy as sa
 
-from schema.errors import BatchClash, WrongDevice
+from schema.errors import BatchClash, RecordNotFound, WrongDevice
 from schema.records import Device, NumberBlock
-from schema.sync import SERVER_OWNED, Version, VersionSet, batch_hash
-from schema.sync.replica import insert_versions, materialize, record_versions, retry_pending
+from schema.sync import SERVER_OWNED, Version, VersionSet, batch_hash, leaves, version_id
+from schema.sync.replica import (
+    insert_versions, load_identity, materialize, record_versions, retry_pending, row_to_version, save_identity,
+)
 from schema.sync.tables import field_version, open_conflict, pending_row
 from schema.tables import metadata
 
@@ -99,9 +101,7 @@ def pull_page(store: ServerStore, *, after: int, limit: int = 500, device: Devic
     more = len(rows) > limit
     last = rows[min(len(rows), limit) - 1].log_seq if rows else after
     rows = [r for r in rows[:limit] if r.record != "number_block" or r.record_id in mine]
-    versions = [Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value,
-                        wall_ms=r.wall_ms, counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
-                        schema_version=r.schema_version) for r in rows]
+    versions = [row_to_version(r) for r in rows]
     return {"versions": versions, "next": last, "more": more,
             "server_time_ms": _now_ms()}
 
@@ -127,15 +127,9 @@ def list_conflicts(store: ServerStore) -> list[dict[str, Any]]:
 
 def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: str, value: Any) -> dict[str, Any]:
     """A manager's resolution: a new version whose parents are all the current leaves."""
-    from schema.errors import RecordNotFound
-    from schema.sync.replica import load_identity, save_identity
-    from schema.sync.versions import version_id
-
     with store.atomic() as conn:
         store._serialize(conn, "changelog")  # noqa: SLF001
         state = VersionSet.of(record_versions(conn, [record_id]))
-        from schema.sync.merge import leaves
-
         current = leaves(state.field_versions((record, record_id, field)))
         if len(current) < 2:
             raise RecordNotFound(f"{record} {record_id} has no open conflict on {field}; list them first")

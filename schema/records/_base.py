@@ -9,7 +9,7 @@ a partial edit). The SQL table (``schema.tables``) and the JSON Schema files (``
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Annotated, Any, ClassVar, Optional
 
 from pydantic import BaseModel, ConfigDict, Field, create_model
@@ -68,7 +68,6 @@ class RecordSpec:
     unique: tuple[tuple[str, ...], ...] = ()
     indexes: tuple[tuple[str, ...], ...] = ()
     key: str = "id"
-    extra: dict[str, Any] = field(default_factory=dict)
 
 
 def spec(

@@ -16,7 +16,6 @@ from typing import Any
 
 import numpy as np
 
-from ..records import Unit
 from .data import SiteData
 from .geometry import Surface, distance_to_ring, points_in_ring
 from .issues import Issue, issue
@@ -288,6 +287,3 @@ def quality_issues(data: SiteData) -> list[Issue]:
                              value=round(abs(worst), 4)))
     return out
 
-
-def unit_label(u: Unit) -> str:
-    return f"unit {u.code}"

@@ -28,7 +28,7 @@ from .merge import VersionSet, leaves
 from .tables import field_version, open_conflict, pending_row, sync_state
 from .versions import SET_FIELDS, Version, version_id
 
-__all__ = ["Identity", "insert_versions", "load_identity", "materialize", "record_versions", "save_identity",
+__all__ = ["Identity", "insert_versions", "load_identity", "materialize", "record_versions", "retry_pending", "row_to_version", "save_identity",
            "state_get", "state_set", "versions_for_edit"]
 
 SCHEMA_VERSION = 1
@@ -79,7 +79,8 @@ def save_identity(conn: Connection, ident: Identity) -> None:
     state_set(conn, "hlc_counter", ident.clock.last.counter)
 
 
-def _to_version(r: Any) -> Version:
+def row_to_version(r: Any) -> Version:
+    """A ``field_version`` row as a Version."""
     return Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value, wall_ms=r.wall_ms,
                    counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
                    schema_version=r.schema_version)
@@ -90,7 +91,7 @@ def record_versions(conn: Connection, record_ids: Iterable[uuid.UUID]) -> list[V
     out: list[Version] = []
     for i in range(0, len(ids), 500):
         q = sa.select(field_version).where(field_version.c.record_id.in_(ids[i:i + 500]))
-        out.extend(_to_version(r) for r in conn.execute(q))
+        out.extend(row_to_version(r) for r in conn.execute(q))
     return out
 
 

@@ -62,11 +62,15 @@ def get_issues(
     """Open validation issues, errors first; filter by code, severity, trench or unit."""
     rows = list_issues(request.app.state.store, code=code, severity=severity, trench=trench, unit=unit,
                        include_closed=include_closed, limit=limit, offset=offset)
-    return IssuesPublic(data=[IssuePublic.model_validate({k: rows_v for k, rows_v in r.items() if k in IssuePublic.model_fields}) for r in rows], count=len(rows))
+    return IssuesPublic(data=[_public(r) for r in rows], count=len(rows))
 
 
 @router.post("/{key}/accept", response_model=IssuePublic)
 def post_accept(request: Request, key: str, body: Acceptance, device: Manager) -> IssuePublic:
     """Accept an issue with a reason; it stays listed, marked accepted."""
     row = accept_issue(request.app.state.store, key=key, by=device.label, reason=body.reason)
+    return _public(row)
+
+
+def _public(row: dict[str, object]) -> IssuePublic:
     return IssuePublic.model_validate({k: v for k, v in row.items() if k in IssuePublic.model_fields})

@@ -6,6 +6,7 @@ import datetime as dt
 import uuid
 
 import pytest
+from pydantic import ValidationError
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -111,7 +112,7 @@ def test_every_record_has_a_family() -> None:
 def test_update_model_keeps_field_checks() -> None:
     update = REGISTRY["unit"].update
     assert update.model_validate({"code": "105"}).code == "105"
-    with pytest.raises(Exception):
+    with pytest.raises(ValidationError, match="is not Munsell notation"):
         update.model_validate({"munsell": "blue"})
 
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import uuid
 
 import pytest
 import sqlalchemy as sa
@@ -59,8 +58,6 @@ def test_vocabulary_is_checked_by_the_database_too(tmp_path) -> None:  # type: i
     md.create_all(engine)
     with pytest.raises(sa.exc.IntegrityError, match="CHECK constraint failed"):
         with engine.begin() as conn:
-            conn.execute(md.tables["horizon"].insert(), dict(
-                id=uuid.uuid4(), site_id=uuid.uuid4(), code="H", label="x", order=1))
             conn.execute(sa.text(
                 "INSERT INTO relation (id, site_id, upper_unit_id, lower_unit_id, kind) "
                 "VALUES ('a', 'b', 'c', 'd', 'overlaps')"))

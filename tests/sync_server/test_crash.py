@@ -83,13 +83,12 @@ def test_server_killed_at_random_points(tmp_path: Path) -> None:
             kills += 1
             worker.join()
             proc = _start(db, port)
-        report = client.sync()  # the server stays up now: everything arrives
-        assert report.pulled_versions >= 0 and client.pending_count() == 0
+        client.sync()  # the server stays up now: everything arrives
+        assert client.pending_count() == 0
     finally:
         proc.send_signal(signal.SIGKILL)
         proc.wait()
         client.http.close()
-    mine = str(device.id).replace("-", "")
     with sqlite3.connect(db) as raw:
         assert raw.execute("PRAGMA integrity_check").fetchone() == ("ok",)
         on_server = _ids(raw)
@@ -102,7 +101,7 @@ def test_server_killed_at_random_points(tmp_path: Path) -> None:
         own = set(conn.execute(sa.select(field_version.c.id).where(field_version.c.device == device.id)).scalars())
     assert own <= set(on_server), f"{len(own - set(on_server))} versions never reached the server"
     assert tablet.integrity_check() == "ok"
-    assert kills == KILLS and mine
+    assert kills == KILLS
     tablet.close()
 
 
@@ -159,5 +158,4 @@ def test_tablet_killed_mid_sync(tmp_path: Path) -> None:
         on_server = set(conn.execute(sa.select(field_version.c.id)).scalars())
     server.close()
     assert own <= on_server
-    numbers_of_others: set[str] = set()  # (none here: one tablet)
-    assert everything >= on_server - numbers_of_others  # the tablet pulled everything
+    assert everything >= on_server  # one tablet: it pulled everything the server holds
