@@ -15,7 +15,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from schema import db
-from schema.errors import FieldProblem, NoNumbersLeft, RecordInvalid, StoreError
+from schema.errors import DuplicateRecord, FieldProblem, NoNumbersLeft, RecordInvalid, StoreError
 from schema.records import REGISTRY, Device, Find, NumberBlock, Sample
 from schema.store import RecordStore
 from schema.tables import metadata
@@ -141,11 +141,23 @@ class TabletStore(RecordStore):
                 data.setdefault("device_id", me)
             context = {"number_blocks": self.number_blocks()} if me is not None and data.get("device_id") == me else None
             saved = check(Find, data, context=context)
+            self._refuse_taken_number(conn, saved)
             details = self._sample_for(saved, sample)
             self.save_versioned(conn, saved, new=True)
             if details is not None:
                 self.save_versioned(conn, details, new=True)
         return saved
+
+    @staticmethod
+    def _refuse_taken_number(conn: Connection, find: Find) -> None:
+        """A number already used at the site is refused here (the table allows it, for clashes that arrive by
+        sync and must stay visible)."""
+        t = metadata.tables["find"]
+        taken = conn.execute(sa.select(t.c.id).where(t.c.site_id == find.site_id, t.c.number == find.number,
+                                                     t.c.id != find.id).limit(1)).first()
+        if taken is not None:
+            raise DuplicateRecord(f"find with number={find.number} already exists; choose another number or edit "
+                                  "the existing record")
 
     @staticmethod
     def _sample_for(find: Find, sample: Sample | dict[str, Any] | None) -> Sample | None:

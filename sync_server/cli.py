@@ -210,6 +210,43 @@ def bundle_import(file: Path, database_url: str | None) -> None:
                + (f", {r['replayed']} already applied" if r["replayed"] else ""))
 
 
+@cli.group()
+def season() -> None:
+    """Carry one server store's work into another: last season's units, finds and numbering into this one."""
+
+
+@season.command("archive")
+@click.option("--out", type=click.Path(dir_okay=False, path_type=Path), required=True, help="Archive file to write.")
+@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+def season_archive(out: Path, database_url: str | None) -> None:
+    """Write this store's whole version log (and its highest find number) into one archive file."""
+    from .seasons import write_archive
+    from .settings import ServerSettings
+    from .store import ServerStore
+
+    with ServerStore.open(database_url or ServerSettings().database_url) as store:
+        m = write_archive(store, out, progress=lambda n, total: click.echo(f"  {n}/{total} versions", err=True))
+    click.echo(f"wrote {m['path']}: {m['versions']} versions, numbers up to {m['number_floor']}")
+
+
+@season.command("import")
+@click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+def season_import(file: Path, database_url: str | None) -> None:
+    """Check an archive whole, then merge it into this store (clashes become conflicts; a bad archive changes nothing)."""
+    from .seasons import import_archive
+    from .settings import ServerSettings
+    from .store import ServerStore
+    from .validation import run_validation
+
+    with ServerStore.open(database_url or ServerSettings().database_url) as store:
+        r = import_archive(store, file)
+        run_validation(store)
+    click.echo(f"imported {file.name}: {r['applied']} new versions ({r['already_held']} already here), "
+               f"{r['rows_written']} rows written, {r['conflicts_open']} conflicts open "
+               f"({r['number_clashes']} number clashes); new number blocks start above {r['number_floor']}")
+
+
 def _register_groups() -> None:
     from .cli_survey import survey
 

@@ -81,6 +81,17 @@ def head_revision() -> str:
     return head
 
 
+def number_floor(conn: sa.Connection) -> int:
+    """The highest find number this store has issued, seen used or imported (``sync_server.seasons``): new
+    blocks start above it, so a number is never issued twice, even across seasons."""
+    from schema.sync.replica import state_get
+
+    blocks, finds = metadata.tables["number_block"], metadata.tables["find"]
+    return max(int(conn.execute(sa.select(sa.func.max(blocks.c["last"]))).scalar() or 0),
+               int(conn.execute(sa.select(sa.func.max(finds.c.number))).scalar() or 0),
+               int(state_get(conn, "number_floor", "0") or 0))
+
+
 class ServerStore(RecordStore):
     """The camp server's database."""
 
@@ -138,10 +149,9 @@ class ServerStore(RecordStore):
         if size < 1:
             raise ValueError(f"block size {size} must be at least 1")
         self.get(Device, device_id)  # RecordNotFound names the device
-        t = metadata.tables["number_block"]
         with self.atomic() as conn:
             self._serialize(conn, "number_block")
-            top = conn.execute(sa.select(sa.func.max(t.c["last"]))).scalar() or 0
+            top = number_floor(conn)
             block = NumberBlock(
                 device_id=device_id, first=top + 1, last=top + size,
                 issued_at=now or dt.datetime.now(dt.timezone.utc),

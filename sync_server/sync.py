@@ -15,7 +15,7 @@ import sqlalchemy as sa
 
 from schema.errors import BatchClash, RecordNotFound, WrongDevice
 from schema.records import Device, NumberBlock
-from schema.sync import SERVER_OWNED, Version, VersionSet, batch_hash, leaves, version_id
+from schema.sync import SERVER_OWNED, Version, VersionSet, batch_hash, edit_parents, resolution_parents, version_id
 from schema.sync.replica import (
     insert_versions, load_identity, materialize, record_versions, retry_pending, row_to_version, save_identity,
 )
@@ -117,8 +117,9 @@ def list_conflicts(store: ServerStore) -> list[dict[str, Any]]:
     out = []
     for r in rows:
         out.append({
-            "record": r.record, "record_id": str(r.record_id), "field": r.field,
-            "values": [{"version": vid, "value": found[vid].value, "device": devices.get(found[vid].device, str(found[vid].device)),
+            "record": r.record, "record_id": str(r.record_id), "field": r.field, "kind": r.kind,
+            "values": [{"version": vid, "record_id": str(found[vid].record_id), "field": found[vid].field,
+                        "value": found[vid].value, "device": devices.get(found[vid].device, str(found[vid].device)),
                         "at": dt.datetime.fromtimestamp(found[vid].wall_ms / 1000, dt.timezone.utc).isoformat()}
                        for vid in r.leaves if vid in found],
         })
@@ -126,20 +127,32 @@ def list_conflicts(store: ServerStore) -> list[dict[str, Any]]:
 
 
 def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: str, value: Any) -> dict[str, Any]:
-    """A manager's resolution: a new version whose parents are all the current leaves."""
+    """A manager's resolution: a new version of the field naming every competing version as a parent.
+
+    - concurrent values of one field: ``value`` is the chosen (or edited) value;
+    - a void against edits it did not see (field ``voided``): ``True`` keeps the void, ``False`` restores the find;
+    - finds sharing a number (field ``number``): ``value`` is the new number for this find (the others keep theirs).
+    """
     with store.atomic() as conn:
         store._serialize(conn, "changelog")  # noqa: SLF001
         state = VersionSet.of(record_versions(conn, [record_id]))
-        current = leaves(state.field_versions((record, record_id, field)))
-        if len(current) < 2:
+        key = (record, record_id, field)
+        listed = conn.execute(sa.select(open_conflict.c.kind).where(
+            open_conflict.c.record == record, open_conflict.c.record_id == record_id, open_conflict.c.field == field)).scalar()
+        if listed is None:
             raise RecordNotFound(f"{record} {record_id} has no open conflict on {field}; list them first")
+        if listed == "duplicate_number":
+            parents = edit_parents(state, key)
+        else:
+            parents = resolution_parents(state, key)
         ident = load_identity(conn)
         seq, stamp = ident.next()
         v = Version(id=version_id(ident.device, seq), record=record, record_id=record_id, field=field, value=value,
-                    wall_ms=stamp.wall_ms, counter=stamp.counter, device=ident.device, seq=seq,
-                    parents=tuple(x.id for x in current))
+                    wall_ms=stamp.wall_ms, counter=stamp.counter, device=ident.device, seq=seq, parents=parents)
         top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
         insert_versions(conn, [v], next_log_seq=top + 1)
         save_identity(conn, ident)
         materialize(conn, [(record, record_id)])
-    return {"version": v.id, "value": value}
+        still = conn.execute(sa.select(open_conflict.c.kind).where(
+            open_conflict.c.record == record, open_conflict.c.record_id == record_id, open_conflict.c.field == field)).scalar()
+    return {"version": v.id, "value": value, "kind": listed, "still_open": still}

@@ -130,8 +130,11 @@ class Sample(SampleBase):
 
 SPECS = (
     spec(
-        "find", FindBase, Find, unique=(("site_id", "number"),),
-        indexes=(("unit_id",), ("trench_id",), ("category",), ("found_at",)),
+        # (site_id, number) is indexed, not unique: numbers come from never-reissued blocks and the tablet refuses
+        # a duplicate on save, but a clash arriving by sync or a season import must stay visible (it becomes a
+        # ``duplicate_number`` conflict and a NUMBER_DUPLICATE check), not be hidden by the table
+        "find", FindBase, Find,
+        indexes=(("site_id", "number"), ("unit_id",), ("trench_id",), ("category",), ("found_at",)),
     ),
     spec("sample", SampleBase, Sample, unique=(("find_id",),)),
 )

@@ -6,6 +6,11 @@
 - Causality comes from parents, never from clocks: a skewed clock only changes which of two concurrent
   values shows first, and both stay flagged.
 - Set fields: an item is present when some 'add' of it is not named as a parent by a 'remove'.
+- Edit against void: a record is voided by a version of its ``voided`` field whose parents name every version
+  the voider saw, on every field. An edit of another field that the winning void did not see, and that did not
+  see the void (an edit made after seeing it names the void as a parent), is concurrent with it: a conflict on
+  ``voided`` whose competing versions are the void and those edits. Choosing a value for ``voided`` (keep the
+  void or restore the record) is a new version naming them all.
 """
 
 from __future__ import annotations
@@ -17,9 +22,12 @@ from typing import Any, Iterable
 
 from .versions import SET_FIELDS, Version
 
-__all__ = ["Conflict", "FieldKey", "MergeResult", "VersionSet", "leaves", "merge", "set_value", "winner"]
+__all__ = ["VOID_FIELD", "Conflict", "FieldKey", "MergeResult", "VersionSet", "edit_parents", "leaves", "merge",
+           "resolution_parents", "set_value", "void_parents", "void_seen", "winner"]
 
 FieldKey = tuple[str, uuid.UUID, str]  # (record, record id, field)
+VOID_FIELD = "voided"
+VOID_COMPANIONS = frozenset({VOID_FIELD, "void_reason"})  # fields written with a void; never against it
 
 
 def leaves(versions: Iterable[Version]) -> list[Version]:
@@ -51,6 +59,7 @@ class Conflict:
 
     key: FieldKey
     leaves: tuple[Version, ...]
+    kind: str = "concurrent"  # "concurrent" (two values of one field) | "void" (edits the void did not see)
 
 
 @dataclass
@@ -59,6 +68,7 @@ class VersionSet:
 
     by_id: dict[str, Version] = field(default_factory=dict)
     by_field: dict[FieldKey, list[Version]] = field(default_factory=lambda: defaultdict(list))
+    by_record: dict[tuple[str, uuid.UUID], set[str]] = field(default_factory=lambda: defaultdict(set))
 
     @classmethod
     def of(cls, versions: Iterable[Version]) -> "VersionSet":
@@ -77,14 +87,50 @@ class VersionSet:
         w = winner(vs)
         return None if w is None else w.value
 
-    def conflicts(self) -> list[Conflict]:
+    def fields_of(self, record: str, rid: uuid.UUID) -> list[FieldKey]:
+        return [(record, rid, f) for f in sorted(self.by_record.get((record, rid), ()))]
+
+    def ancestors(self, start: Iterable[str]) -> set[str]:
+        """Every version id reachable through parents from ``start`` (held versions only)."""
+        seen: set[str] = set()
+        todo = list(start)
+        while todo:
+            vid = todo.pop()
+            if vid in seen:
+                continue
+            seen.add(vid)
+            v = self.by_id.get(vid)
+            if v is not None:
+                todo.extend(v.parents)
+        return seen
+
+    def conflict_at(self, key: FieldKey) -> Conflict | None:
+        """The open conflict on one field, if any."""
+        record, rid, fname = key
+        if fname in SET_FIELDS.get(record, ()):
+            return None  # sets merge by union; nothing to choose
+        top = leaves(self.field_versions(key))
+        if len(top) > 1:
+            return Conflict(key, tuple(top))
+        if fname == VOID_FIELD and top and top[0].value is True:
+            unseen = self._unseen_by_void(record, rid, top[0])
+            if unseen:
+                return Conflict(key, (top[0], *unseen), kind="void")
+        return None
+
+    def _unseen_by_void(self, record: str, rid: uuid.UUID, void: Version) -> list[Version]:
+        saw = self.ancestors([void.id])
         out = []
-        for key, vs in self.by_field.items():
-            if key[2] in SET_FIELDS.get(key[0], ()):
-                continue  # sets merge by union; nothing to choose
-            top = leaves(vs)
-            if len(top) > 1:
-                out.append(Conflict(key, tuple(top)))
+        for key in self.fields_of(record, rid):
+            if key[2] in VOID_COMPANIONS:
+                continue
+            vs = self.field_versions(key)
+            current = vs if key[2] in SET_FIELDS.get(record, ()) else leaves(vs)
+            out.extend(v for v in current if v.id not in saw and void.id not in self.ancestors(v.parents))
+        return sorted(out, key=lambda v: v.order_key, reverse=True)
+
+    def conflicts(self) -> list[Conflict]:
+        out = [c for key in self.by_field if (c := self.conflict_at(key)) is not None]
         return sorted(out, key=lambda c: (c.key[0], str(c.key[1]), c.key[2]))
 
     def records(self) -> dict[tuple[str, uuid.UUID], dict[str, Any]]:
@@ -93,6 +139,35 @@ class VersionSet:
         for key in self.by_field:
             out[(key[0], key[1])][key[2]] = self.value(key)
         return dict(out)
+
+
+def edit_parents(state: VersionSet, key: FieldKey) -> tuple[str, ...]:
+    """What a plain edit of one field names as parents: the winner it replaces, and the winning void when the
+    record is voided (the editor saw the void, so the edit is not against it)."""
+    record, rid, fname = key
+    top = leaves(state.field_versions(key))
+    return tuple(v.id for v in top[:1]) + (() if fname in VOID_COMPANIONS else void_seen(state, record, rid))
+
+
+def void_seen(state: VersionSet, record: str, rid: uuid.UUID) -> tuple[str, ...]:
+    """The winning void of a voided record, as an extra parent of edits made while looking at it."""
+    void = winner(state.field_versions((record, rid, VOID_FIELD)))
+    return (void.id,) if void is not None and void.value is True else ()
+
+
+def void_parents(state: VersionSet, record: str, rid: uuid.UUID) -> tuple[str, ...]:
+    """What a void names as parents: every current version of every field of the record (what the voider saw)."""
+    out: list[str] = []
+    for key in state.fields_of(record, rid):
+        vs = state.field_versions(key)
+        out.extend(v.id for v in (vs if key[2] in SET_FIELDS.get(record, ()) else leaves(vs)))
+    return tuple(out)
+
+
+def resolution_parents(state: VersionSet, key: FieldKey) -> tuple[str, ...]:
+    """What a resolution names: every competing version of the field's conflict (all its leaves otherwise)."""
+    c = state.conflict_at(key)
+    return tuple(v.id for v in (c.leaves if c else leaves(state.field_versions(key))))
 
 
 @dataclass(frozen=True)
@@ -109,5 +184,6 @@ def merge(state: VersionSet, incoming: Iterable[Version]) -> MergeResult:
             continue
         state.by_id[v.id] = v
         state.by_field[(v.record, v.record_id, v.field)].append(v)
+        state.by_record[(v.record, v.record_id)].add(v.field)
         added.append(v)
     return MergeResult(tuple(added), frozenset((v.record, v.record_id, v.field) for v in added))

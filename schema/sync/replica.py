@@ -24,7 +24,7 @@ from .. import db
 from ..records import REGISTRY, Record
 from ..tables import metadata
 from .clock import Clock, Stamp
-from .merge import VersionSet, leaves
+from .merge import VOID_FIELD, VersionSet, edit_parents, leaves, merge, void_parents, void_seen
 from .tables import field_version, open_conflict, pending_row, sync_state
 from .versions import SET_FIELDS, Version, version_id
 
@@ -110,22 +110,33 @@ def versions_for_edit(conn: Connection, ident: Identity, record: Record, *, new:
                            wall_ms=stamp.wall_ms, counter=stamp.counter, device=ident.device, seq=seq,
                            parents=parents, schema_version=SCHEMA_VERSION))
 
+    seen_void = void_seen(state, name, rid)
+    void_value = values.pop(VOID_FIELD, None) if VOID_FIELD in values else _ABSENT
     for fname, value in values.items():
         key = (name, rid, fname)
         if fname in sets:
             present = {json.dumps(x, sort_keys=True): x for x in state.value(key) or []}
             wanted = {json.dumps(x, sort_keys=True): x for x in value or []}
             for k in wanted.keys() - present.keys():
-                add(fname, {"op": "add", "item": wanted[k]}, ())
+                add(fname, {"op": "add", "item": wanted[k]}, seen_void)
             for k in present.keys() - wanted.keys():
                 adds = tuple(v.id for v in state.field_versions(key)
                              if v.value.get("op") == "add" and json.dumps(v.value.get("item"), sort_keys=True) == k)
-                add(fname, {"op": "remove", "item": present[k]}, adds)
+                add(fname, {"op": "remove", "item": present[k]}, adds + seen_void)
             continue
         current = leaves(state.field_versions(key))
         if not current or not _same(name, fname, current[0].value, value):
-            add(fname, value, tuple(v.id for v in current[:1]))
+            add(fname, value, edit_parents(state, key))
+    if void_value is not _ABSENT:  # last: a void names everything this save and earlier ones set
+        key = (name, rid, VOID_FIELD)
+        current = leaves(state.field_versions(key))
+        if not current or not _same(name, VOID_FIELD, current[0].value, void_value):
+            merge(state, out)
+            add(VOID_FIELD, void_value, void_parents(state, name, rid) if void_value is True else edit_parents(state, key))
     return out
+
+
+_ABSENT = object()
 
 
 def _same(record: str, fname: str, a: Any, b: Any) -> bool:
@@ -224,6 +235,8 @@ def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]]) -> dict
     conflicts: dict[tuple[str, uuid.UUID], list[Any]] = {}
     for c in by_record.conflicts():
         conflicts.setdefault((c.key[0], c.key[1]), []).append(c)
+    finds = [rid for r, rid in todo if r == "find"]
+    numbers = _number_pairs(conn, finds)  # before: a renumbered find may end a clash
     for record, rid in todo:
         values = grouped.get((record, rid), {})
         _conflicts(conn, conflicts.get((record, rid), []), record, rid)
@@ -250,7 +263,50 @@ def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]]) -> dict
             continue
         conn.execute(pending_row.delete().where(pending_row.c.record == record, pending_row.c.record_id == rid))
         stats["written"] += 1
+    if finds:
+        stats["number_clashes"] = _number_clashes(conn, numbers | _number_pairs(conn, finds))
     return stats
+
+
+def _number_pairs(conn: Connection, find_ids: list[uuid.UUID]) -> set[tuple[uuid.UUID, int]]:
+    t = metadata.tables["find"]
+    out: set[tuple[uuid.UUID, int]] = set()
+    for i in range(0, len(find_ids), 500):
+        q = sa.select(t.c.site_id, t.c.number).where(t.c.id.in_(find_ids[i:i + 500]))
+        out.update((r.site_id, r.number) for r in conn.execute(q))
+    return out
+
+
+def _number_clashes(conn: Connection, pairs: set[tuple[uuid.UUID, int]]) -> int:
+    """List finds sharing a site and number as conflicts on ``number`` (kind ``duplicate_number``), each
+    naming the number versions of every find in the clash; clear those that no longer clash."""
+    t = metadata.tables["find"]
+    groups: dict[tuple[uuid.UUID, int], list[uuid.UUID]] = {}
+    items = sorted(pairs, key=lambda p: (str(p[0]), p[1]))
+    for i in range(0, len(items), 300):
+        q = sa.select(t.c.id, t.c.site_id, t.c.number).where(sa.tuple_(t.c.site_id, t.c.number).in_(items[i:i + 300]))
+        for r in conn.execute(q):
+            groups.setdefault((r.site_id, r.number), []).append(r.id)
+    ids = [rid for g in groups.values() for rid in g]
+    for i in range(0, len(ids), 500):
+        conn.execute(open_conflict.delete().where(open_conflict.c.kind == "duplicate_number",
+                                                  open_conflict.c.record == "find",
+                                                  open_conflict.c.record_id.in_(ids[i:i + 500])))
+    clashing = {k: g for k, g in groups.items() if len(g) > 1}
+    if not clashing:
+        return 0
+    held = VersionSet.of(v for v in record_versions(conn, [rid for g in clashing.values() for rid in g])
+                         if v.field == "number")
+    busy = {r.record_id for r in conn.execute(sa.select(open_conflict.c.record_id).where(
+        open_conflict.c.record == "find", open_conflict.c.field == "number"))}
+    for group in clashing.values():
+        tops = [w for rid in group if (w := leaves(held.field_versions(("find", rid, "number")))[:1])]
+        competing = [w[0].id for w in sorted(tops, key=lambda w: w[0].order_key, reverse=True)]
+        for rid in group:
+            if rid not in busy:  # a concurrent edit of the number is listed first; the clash shows after
+                conn.execute(open_conflict.insert().values(record="find", record_id=rid, field="number",
+                                                           leaves=competing, kind="duplicate_number"))
+    return len(clashing)
 
 
 def retry_pending(conn: Connection) -> dict[str, int]:
@@ -270,7 +326,7 @@ def _conflicts(conn: Connection, found: list[Any], record: str, rid: uuid.UUID) 
     conn.execute(open_conflict.delete().where(open_conflict.c.record == record, open_conflict.c.record_id == rid))
     for c in found:
         conn.execute(open_conflict.insert().values(record=record, record_id=rid, field=c.key[2],
-                                                   leaves=[v.id for v in c.leaves]))
+                                                   leaves=[v.id for v in c.leaves], kind=c.kind))
 
 
 def assign_log_positions(conn: Connection) -> int:

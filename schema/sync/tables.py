@@ -52,5 +52,7 @@ open_conflict = sa.Table(
     sa.Column("record_id", sa.Uuid(), primary_key=True),
     sa.Column("field", sa.String(60), primary_key=True),
     sa.Column("leaves", sa.JSON(), nullable=False, comment="competing version ids, highest first"),
+    sa.Column("kind", sa.String(20), nullable=False, server_default="concurrent",
+              comment="concurrent | void (edits the void did not see) | duplicate_number (finds sharing a number)"),
     comment="Fields with more than one current value, for the data manager",
 )

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, BackgroundTasks, Depends, Query, Request
 from pydantic import BaseModel, ConfigDict, Field
@@ -53,6 +53,8 @@ class PullPage(BaseModel):
 
 class ConflictValue(BaseModel):
     version: str
+    record_id: str = Field(description="the record that holds this value (for a number clash, each find)")
+    field: str
     value: Any
     device: str
     at: str
@@ -62,6 +64,9 @@ class ConflictPublic(BaseModel):
     record: str
     record_id: str
     field: str
+    kind: Literal["concurrent", "void", "duplicate_number"] = Field(
+        description="concurrent: two values of one field; void: edits the void did not see; "
+                    "duplicate_number: finds sharing a site and number")
     values: list[ConflictValue]
 
 

@@ -43,12 +43,16 @@ def _all_fks():  # type: ignore[no-untyped-def]
         yield from t.foreign_keys
 
 
-def test_unique_groups_from_spec() -> None:
-    uniques = {
-        tuple(c.name for c in con.columns)
-        for con in metadata.tables["find"].constraints if isinstance(con, sa.UniqueConstraint)
-    }
-    assert ("site_id", "number") in uniques
+def test_unique_and_index_groups_from_spec() -> None:
+    def uniques(name: str) -> set[tuple[str, ...]]:
+        return {tuple(c.name for c in con.columns)
+                for con in metadata.tables[name].constraints if isinstance(con, sa.UniqueConstraint)}
+
+    assert ("find_id",) in uniques("sample")
+    # find numbers are indexed, not unique: a clash arriving by sync must stay visible as a conflict
+    assert ("site_id", "number") not in uniques("find")
+    indexed = {tuple(c.name for c in ix.columns) for ix in metadata.tables["find"].indexes}
+    assert ("site_id", "number") in indexed
 
 
 def test_vocabulary_is_checked_by_the_database_too(tmp_path) -> None:  # type: ignore[no-untyped-def]

@@ -170,3 +170,79 @@ def test_a_truncated_push_body_is_refused_and_nothing_applied(camp) -> None:  # 
     assert server.count(Find) == 0
     c1.sync()  # the whole batch, sent again intact, is applied once
     assert server.count(Find) == 1
+
+
+def test_a_number_used_twice_reaches_the_server_as_a_conflict_and_is_renumbered(camp) -> None:  # type: ignore[no-untyped-def]
+    import datetime as dt
+
+    from sync_server.validation import list_issues
+
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    # TAB-2 was given an overlapping block by hand in camp (the mistake this guards against)
+    t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
+                                          issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
+    a = t1.save_find(find=find_data(demo, number=1))
+    b = t2.save_find(find=find_data(demo, number=1, material="chert"))
+    c1.sync()
+    c2.sync()
+    c1.sync()
+    # both finds are visible everywhere, and the clash is listed for the data manager
+    assert server.get(Find, a.id).number == server.get(Find, b.id).number == 1
+    assert t1.get(Find, b.id).number == 1
+    clashes = list_conflicts(server)
+    assert {c["record_id"] for c in clashes} == {str(a.id), str(b.id)}
+    assert {c["kind"] for c in clashes} == {"duplicate_number"} and {c["field"] for c in clashes} == {"number"}
+    assert sorted(v["record_id"] for v in clashes[0]["values"]) == sorted([str(a.id), str(b.id)])
+    assert "NUMBER_DUPLICATE" in {r["code"] for r in list_issues(server)}
+    manager_token = server.add_device(label="MGR", role="manager")[1]
+    listed = http.get("/v1/conflicts", headers={"Authorization": f"Bearer {manager_token}"}).json()
+    assert {c["kind"] for c in listed["data"]} == {"duplicate_number"}
+    r = http.post("/v1/conflicts/resolve", headers={"Authorization": f"Bearer {manager_token}"},
+                  json={"record": "find", "record_id": str(b.id), "field": "number", "value": 9001})
+    assert r.status_code == 200 and r.json()["still_open"] is None, r.text
+    assert list_conflicts(server) == []
+    c2.sync()
+    assert t2.get(Find, b.id).number == 9001 and t2.get(Find, a.id).number == 1
+
+
+def test_a_void_against_an_unseen_edit_is_a_conflict_and_a_restore_travels(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    c1.sync()
+    c2.sync()
+    t1.void_find(find_id=find.id, reason="logged twice")  # TAB-1 thinks it is a double entry
+    t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["102"].id}))  # TAB-2 moves it
+    c1.sync()
+    c2.sync()
+    (conflict,) = list_conflicts(server)
+    assert (conflict["kind"], conflict["field"]) == ("void", "voided")
+    assert sorted(v["field"] for v in conflict["values"]) == ["unit_id", "voided"]
+    manager_token = server.add_device(label="MGR", role="manager")[1]
+    r = http.post("/v1/conflicts/resolve", headers={"Authorization": f"Bearer {manager_token}"},
+                  json={"record": "find", "record_id": str(find.id), "field": "voided", "value": False})
+    assert r.status_code == 200, r.text
+    assert list_conflicts(server) == []
+    c1.sync()
+    c2.sync()
+    for replica in (t1, t2, server):
+        shown = replica.get(Find, find.id)
+        assert shown.voided is False and shown.unit_id == demo.units["102"].id
+
+
+def test_a_void_made_after_seeing_an_edit_raises_no_conflict(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    c1.sync()
+    c2.sync()
+    t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["102"].id}))
+    c2.sync()
+    c1.sync()
+    t1.void_find(find_id=find.id, reason="logged twice")
+    c1.sync()
+    assert list_conflicts(server) == [] and server.get(Find, find.id).voided is True

@@ -140,3 +140,53 @@ def test_clock_rules_and_bound() -> None:
     assert c.last == Stamp(1050, 5)
     now[0] = 2000
     assert c.tick() == Stamp(2000, 0)
+
+
+# -- edit against void (DESIGN.md section 3) ------------------------------------------------------------------
+def _v(dev: int, seq: int, fname: str, value: object, parents: tuple[str, ...] = (), wall: int = 0) -> Version:
+    device = uuid.UUID(int=dev)
+    return Version(id=version_id(device, seq), record="find", record_id=RID, field=fname, value=value,
+                   wall_ms=wall or seq, counter=0, device=device, seq=seq, parents=parents)
+
+
+def test_a_void_that_did_not_see_an_edit_is_a_conflict_until_resolved() -> None:
+    from schema.sync import edit_parents, resolution_parents, void_parents
+
+    base = [_v(1, 1, "unit_id", "u1"), _v(1, 2, "voided", False), _v(1, 3, "z", 99.8)]
+    a, b = VersionSet.of(base), VersionSet.of(base)
+    # tablet A voids the find; tablet B, offline, moves it to another unit
+    void = _v(1, 4, "voided", True, void_parents(a, "find", RID), wall=10)
+    edit = _v(2, 1, "unit_id", "u2", edit_parents(b, ("find", RID, "unit_id")), wall=11)
+    merged = VersionSet.of([*base, void, edit])
+    (c,) = merged.conflicts()
+    assert c.kind == "void" and c.key == ("find", RID, "voided")
+    assert [v.id for v in c.leaves] == [void.id, edit.id]
+    # the manager keeps the void: a new void naming both; no conflict is left
+    keep = _v(3, 1, "voided", True, resolution_parents(merged, c.key), wall=12)
+    merge(merged, [keep])
+    assert merged.conflicts() == []
+    assert merged.value(("find", RID, "voided")) is True and merged.value(("find", RID, "unit_id")) == "u2"
+
+
+def test_an_edit_made_after_seeing_the_void_is_not_against_it() -> None:
+    from schema.sync import edit_parents, void_parents
+
+    base = [_v(1, 1, "unit_id", "u1"), _v(1, 2, "voided", False)]
+    s = VersionSet.of(base)
+    merge(s, [_v(1, 3, "voided", True, void_parents(s, "find", RID))])
+    later = _v(2, 1, "notes", "seen voided", edit_parents(s, ("find", RID, "notes")))
+    assert later.parents == (version_id(uuid.UUID(int=1), 3),)  # no notes version yet: only the void
+    merge(s, [later])
+    assert s.conflicts() == []
+
+
+def test_edits_the_void_saw_and_unvoided_records_raise_nothing() -> None:
+    from schema.sync import void_parents
+
+    base = [_v(1, 1, "unit_id", "u1"), _v(2, 1, "z", 99.0), _v(1, 2, "voided", False)]
+    s = VersionSet.of(base)
+    merge(s, [_v(1, 3, "voided", True, void_parents(s, "find", RID))])
+    assert s.conflicts() == []  # the z edit by device 2 was held when the void was made
+    concurrent = _v(2, 2, "z", 98.0, (version_id(uuid.UUID(int=2), 1),))
+    merge(s, [concurrent, _v(3, 1, "voided", False, (version_id(uuid.UUID(int=1), 3), concurrent.id))])
+    assert s.conflicts() == []  # restored: an edit cannot be against a void that no longer wins

@@ -1,0 +1,138 @@
+"""Season archives: carrying one server store's work into another (last season's laptop into this season's).
+
+An archive is a zip holding ``manifest.json`` and ``versions.jsonl`` (every field version the source store
+holds, in change-log order, one JSON object a line). The manifest names the format and its version, the source
+store's identity, the highest find number ever issued or used there, the count of versions and the SHA-256 of
+``versions.jsonl``. The archive is checked whole (zip checksums, format, hash, every version's shape) before
+anything is applied; a bad archive changes nothing. It carries no seal: it moves between two stores the same
+data manager runs, on the server machine's own command line, not over the network.
+
+Importing applies the versions through the shared merge (``insert_versions`` + ``materialize``), in one
+transaction: records both stores hold merge by their versions (edits made in both become conflicts), finds
+sharing a number become ``duplicate_number`` conflicts, units and horizons carry over, and new number blocks
+start above every number the archive knew (``number_floor``). Importing the same archive again applies nothing.
+Device rows and number blocks stay behind (server-owned: tablets are enrolled afresh each season).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import json
+import os
+import zipfile
+from pathlib import Path
+from typing import Any, Callable
+
+import sqlalchemy as sa
+from pydantic import ValidationError
+
+from schema.errors import BundleInvalid
+from schema.sync import SERVER_OWNED, Version
+from schema.sync.replica import insert_versions, load_identity, materialize, retry_pending, row_to_version, state_get, state_set
+from schema.sync.tables import field_version, open_conflict, pending_row
+
+from .store import ServerStore, number_floor
+
+__all__ = ["ARCHIVE_FORMAT", "ARCHIVE_VERSION", "import_archive", "number_floor", "read_archive", "write_archive"]
+
+ARCHIVE_FORMAT = "baulk-season-archive"
+ARCHIVE_VERSION = 1
+_PAGE = 5000
+
+
+def write_archive(store: ServerStore, path: Path, *, progress: Callable[[int, int], None] | None = None) -> dict[str, Any]:
+    """Write the store's whole version log as an archive (atomically: a temporary file renamed into place)."""
+    path = Path(path)
+    tmp = path.with_name(path.name + ".part")
+    h = hashlib.sha256()
+    count = 0
+    with store.read() as conn:
+        total = int(conn.execute(sa.select(sa.func.count()).select_from(field_version)
+                                 .where(field_version.c.record.notin_(SERVER_OWNED))).scalar_one())
+        floor = number_floor(conn)
+        source = str(load_identity(conn).device) if state_get(conn, "device") else None
+        with zipfile.ZipFile(tmp, "w", compression=zipfile.ZIP_DEFLATED) as z:
+            with z.open("versions.jsonl", "w") as out:
+                after = -1
+                while True:
+                    rows = conn.execute(sa.select(field_version).where(
+                        field_version.c.log_seq > after, field_version.c.record.notin_(SERVER_OWNED))
+                        .order_by(field_version.c.log_seq).limit(_PAGE)).all()
+                    if not rows:
+                        break
+                    for r in rows:
+                        line = (row_to_version(r).canonical() + "\n").encode()
+                        h.update(line)
+                        out.write(line)
+                    count += len(rows)
+                    after = rows[-1].log_seq
+                    if progress:
+                        progress(count, total)
+            manifest = {
+                "format": ARCHIVE_FORMAT, "format_version": ARCHIVE_VERSION, "source": source,
+                "created_at": dt.datetime.now(dt.timezone.utc).isoformat(), "versions": count,
+                "versions_sha256": h.hexdigest(), "number_floor": floor,
+            }
+            z.writestr("manifest.json", json.dumps(manifest, indent=2))
+    with open(tmp, "rb") as fh:
+        os.fsync(fh.fileno())
+    tmp.replace(path)
+    return {**manifest, "path": str(path)}
+
+
+def read_archive(path: Path) -> tuple[dict[str, Any], list[Version]]:
+    """Check the whole archive; ``BundleInvalid`` names what is wrong."""
+    path = Path(path)
+    try:
+        z = zipfile.ZipFile(path)
+    except (zipfile.BadZipFile, OSError) as exc:
+        raise BundleInvalid(f"{path.name} is not a readable season archive ({exc}); write it again from the old store") from None
+    with z:
+        bad = z.testzip()
+        if bad is not None:
+            raise BundleInvalid(f"{path.name} is damaged (entry {bad} fails its checksum); write it again from the old store")
+        try:
+            manifest = json.loads(z.read("manifest.json"))
+            raw = z.read("versions.jsonl")
+        except (KeyError, ValueError):
+            raise BundleInvalid(f"{path.name} has no readable manifest or version log; it is not a season archive "
+                                "or it was cut short") from None
+    if manifest.get("format") != ARCHIVE_FORMAT:
+        raise BundleInvalid(f"{path.name} is not a season archive (format {manifest.get('format')!r})")
+    if manifest.get("format_version") != ARCHIVE_VERSION:
+        raise BundleInvalid(f"{path.name} has archive format {manifest.get('format_version')}; this server reads "
+                            f"format {ARCHIVE_VERSION}: update Baulk on the server")
+    if hashlib.sha256(raw).hexdigest() != manifest.get("versions_sha256"):
+        raise BundleInvalid(f"{path.name}: the version log does not match its hash; nothing was imported")
+    versions = []
+    for n, line in enumerate(raw.splitlines(), start=1):
+        try:
+            versions.append(Version.model_validate_json(line))
+        except ValidationError as exc:
+            where = ".".join(str(p) for p in exc.errors()[0]["loc"])
+            raise BundleInvalid(f"{path.name}: line {n} of the version log is not a version ({where}); "
+                                "nothing was imported") from None
+    if len(versions) != manifest.get("versions"):
+        raise BundleInvalid(f"{path.name}: {len(versions)} versions where the manifest says {manifest.get('versions')}")
+    return manifest, versions
+
+
+def import_archive(store: ServerStore, path: Path) -> dict[str, Any]:
+    """Check, then apply an archive in one transaction; returns what happened."""
+    manifest, versions = read_archive(path)
+    accepted = [v for v in versions if v.record not in SERVER_OWNED]
+    with store.atomic() as conn:
+        store._serialize(conn, "changelog")  # noqa: SLF001
+        store._serialize(conn, "number_block")  # noqa: SLF001
+        top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
+        new = insert_versions(conn, accepted, next_log_seq=top + 1)
+        stats = materialize(conn, {(v.record, v.record_id) for v in new})
+        retry_pending(conn)
+        floor = max(number_floor(conn), int(manifest.get("number_floor") or 0))
+        state_set(conn, "number_floor", floor)
+        conflicts = int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one())
+        pending = int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one())
+    return {"versions": len(versions), "applied": len(new), "already_held": len(accepted) - len(new),
+            "rows_written": stats["written"], "pending_rows": pending, "conflicts_open": conflicts,
+            "number_clashes": stats.get("number_clashes", 0), "number_floor": floor}
