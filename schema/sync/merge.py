@@ -87,6 +87,9 @@ class VersionSet:
         w = winner(vs)
         return None if w is None else w.value
 
+    def versions_of(self, record: str, rid: uuid.UUID) -> list[Version]:
+        return [v for key in self.fields_of(record, rid) for v in self.field_versions(key)]
+
     def fields_of(self, record: str, rid: uuid.UUID) -> list[FieldKey]:
         return [(record, rid, f) for f in sorted(self.by_record.get((record, rid), ()))]
 
@@ -126,7 +129,8 @@ class VersionSet:
                 continue
             vs = self.field_versions(key)
             current = vs if key[2] in SET_FIELDS.get(record, ()) else leaves(vs)
-            out.extend(v for v in current if v.id not in saw and void.id not in self.ancestors(v.parents))
+            out.extend(v for v in current if v.device != void.device  # a device sees its own edits, in order
+                       and v.id not in saw and void.id not in self.ancestors(v.parents))
         return sorted(out, key=lambda v: v.order_key, reverse=True)
 
     def conflicts(self) -> list[Conflict]:

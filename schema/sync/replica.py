@@ -20,18 +20,18 @@ from pydantic import TypeAdapter
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.engine import Connection
 
-from .. import db
+from .. import SCHEMA_VERSION, db
 from ..records import REGISTRY, Record
 from ..tables import metadata
 from .clock import Clock, Stamp
 from .merge import VOID_FIELD, VersionSet, edit_parents, leaves, merge, void_parents, void_seen
 from .tables import field_version, open_conflict, pending_row, sync_state
+from .upgrade import upgrade
 from .versions import SET_FIELDS, Version, version_id
 
 __all__ = ["Identity", "insert_versions", "load_identity", "materialize", "record_versions", "retry_pending", "row_to_version", "save_identity",
            "state_get", "state_set", "versions_for_edit"]
 
-SCHEMA_VERSION = 1
 
 
 def state_get(conn: Connection, key: str, default: str | None = None) -> str | None:
@@ -161,9 +161,10 @@ def _insert_stmt(dialect_name: str) -> Any:
 def insert_versions(conn: Connection, versions: Iterable[Version], *, next_log_seq: int | None = None,
                     batch: int | None = None) -> list[Version]:
     """Insert versions not yet held; returns those that were new. With ``next_log_seq`` (server), new versions
-    get consecutive change-log positions from it (the caller holds the change-log lock)."""
+    get consecutive change-log positions from it (the caller holds the change-log lock). Versions written at
+    an older schema are stored upgraded (``schema.sync.upgrade``)."""
     unique: dict[str, Version] = {}
-    for v in versions:
+    for v in upgrade(versions):
         unique.setdefault(v.id, v)  # collapse the batch to one row per key first
     if not unique:
         return []
@@ -249,7 +250,14 @@ def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]]) -> dict
             stats["pending"] += 1
             continue
         values = _with_defaults(record, values)
-        row = _row(record, values, rid)
+        try:
+            row = _row(record, values, rid)
+        except ValueError as exc:  # a value in a shape this Baulk cannot read (a newer tablet's)
+            newest = max((v.schema_version for v in by_record.versions_of(record, rid)), default=SCHEMA_VERSION)
+            _pending(conn, record, rid, f"a value this Baulk cannot read (schema {newest}, this Baulk reads "
+                                        f"{SCHEMA_VERSION}): update Baulk here; {str(exc).splitlines()[0][:200]}")
+            stats["pending"] += 1
+            continue
         try:
             with conn.begin_nested():
                 exists = conn.execute(sa.select(table.c.id).where(table.c.id == rid)).first()
