@@ -110,7 +110,7 @@ class SyncClient:
                 for v in versions:
                     ident.clock.observe(v.stamp)
                 new = insert_versions(conn, versions)
-                materialize(conn, {(v.record, v.record_id) for v in new})
+                materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
                 retry_pending(conn)
                 state_set(conn, "cursor", page["next"])
                 state_set(conn, "hlc_wall", ident.clock.last.wall_ms)

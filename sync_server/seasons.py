@@ -127,7 +127,7 @@ def import_archive(store: ServerStore, path: Path) -> dict[str, Any]:
         store._serialize(conn, "number_block")  # noqa: SLF001
         top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
         new = insert_versions(conn, accepted, next_log_seq=top + 1)
-        stats = materialize(conn, {(v.record, v.record_id) for v in new})
+        stats = materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
         retry_pending(conn)
         floor = max(number_floor(conn), int(manifest.get("number_floor") or 0))
         state_set(conn, "number_floor", floor)

@@ -37,9 +37,11 @@ def _now_ms() -> int:
 
 def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: str, versions: list[Version],
                now: dt.datetime | None = None) -> dict[str, Any]:
-    """Apply one push batch exactly once; the same batch again returns the stored acknowledgement."""
-    if batch_hash(versions) != content_hash:
-        raise BatchClash(f"batch {batch} does not match its own hash; it was damaged in transfer, send it again")
+    """Apply one push batch exactly once; the same batch again returns the stored acknowledgement.
+
+    A batch already applied is answered from its stored acknowledgement when the hash it names is the one
+    applied (nothing is applied either way, so its versions need not be hashed again); a new batch must match
+    its hash before anything is written."""
     foreign = sorted({str(v.device) for v in versions if v.device != device.id})
     if foreign:
         raise WrongDevice(f"batch {batch} carries versions of device {foreign[0]}, not of {device.label}; "
@@ -54,10 +56,12 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
                     "probably restored from an old copy. The data manager must re-enrol it as a new device"
                 )
             return {**done.ack, "replayed": True, "server_time_ms": _now_ms()}
+        if batch_hash(versions) != content_hash:
+            raise BatchClash(f"batch {batch} does not match its own hash; it was damaged in transfer, send it again")
         accepted = [v for v in versions if v.record not in SERVER_OWNED]  # server-owned: never taken from tablets
         top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
         new = insert_versions(conn, accepted, next_log_seq=top + 1, batch=batch)
-        stats = materialize(conn, {(v.record, v.record_id) for v in new})
+        stats = materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
         retry_pending(conn)
         blocks = _top_up(store, conn, device, now)
         ack = {

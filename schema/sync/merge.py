@@ -32,7 +32,9 @@ VOID_COMPANIONS = frozenset({VOID_FIELD, "void_reason"})  # fields written with 
 
 def leaves(versions: Iterable[Version]) -> list[Version]:
     """Versions of one field that no other version of it names as a parent, highest first."""
-    vs = list(versions)
+    vs = versions if isinstance(versions, list) else list(versions)
+    if len(vs) < 2:
+        return list(vs)  # the common case: one version, its own leaf
     named = {p for v in vs for p in v.parents}
     return sorted((v for v in vs if v.id not in named), key=lambda v: v.order_key, reverse=True)
 
@@ -134,14 +136,19 @@ class VersionSet:
         return sorted(out, key=lambda v: v.order_key, reverse=True)
 
     def conflicts(self) -> list[Conflict]:
-        out = [c for key in self.by_field if (c := self.conflict_at(key)) is not None]
+        out = [c for key, vs in self.by_field.items()
+               if (len(vs) > 1 or key[2] == VOID_FIELD) and (c := self.conflict_at(key)) is not None]
         return sorted(out, key=lambda c: (c.key[0], str(c.key[1]), c.key[2]))
 
     def records(self) -> dict[tuple[str, uuid.UUID], dict[str, Any]]:
         """Each record's visible field values."""
         out: dict[tuple[str, uuid.UUID], dict[str, Any]] = defaultdict(dict)
-        for key in self.by_field:
-            out[(key[0], key[1])][key[2]] = self.value(key)
+        for key, vs in self.by_field.items():
+            record, rid, fname = key
+            if len(vs) == 1 and fname not in SET_FIELDS.get(record, ()):
+                out[(record, rid)][fname] = vs[0].value  # one version: it is the value
+            else:
+                out[(record, rid)][fname] = self.value(key)
         return dict(out)
 
 
@@ -177,17 +184,24 @@ def resolution_parents(state: VersionSet, key: FieldKey) -> tuple[str, ...]:
 @dataclass(frozen=True)
 class MergeResult:
     added: tuple[Version, ...]  # versions new to this replica
-    touched: frozenset[FieldKey]  # fields whose version set grew
+
+    @property
+    def touched(self) -> frozenset[FieldKey]:
+        """Fields whose version set grew."""
+        return frozenset((v.record, v.record_id, v.field) for v in self.added)
 
 
 def merge(state: VersionSet, incoming: Iterable[Version]) -> MergeResult:
     """Add incoming versions to ``state`` (in place); idempotent, order-independent, loses nothing."""
     added = []
+    by_id, by_field, by_record = state.by_id, state.by_field, state.by_record
     for v in incoming:
-        if v.id in state.by_id:
+        vid = v.id
+        if vid in by_id:
             continue
-        state.by_id[v.id] = v
-        state.by_field[(v.record, v.record_id, v.field)].append(v)
-        state.by_record[(v.record, v.record_id)].add(v.field)
+        by_id[vid] = v
+        record, rid, fname = v.record, v.record_id, v.field
+        by_field[(record, rid, fname)].append(v)
+        by_record[(record, rid)].add(fname)
         added.append(v)
-    return MergeResult(tuple(added), frozenset((v.record, v.record_id, v.field) for v in added))
+    return MergeResult(tuple(added))

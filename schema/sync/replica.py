@@ -13,7 +13,7 @@ import functools
 import json
 import uuid
 from dataclasses import dataclass
-from typing import Any, Callable, Iterable
+from typing import Any, Callable, Iterable, Iterator
 
 import sqlalchemy as sa
 from pydantic import TypeAdapter
@@ -80,10 +80,10 @@ def save_identity(conn: Connection, ident: Identity) -> None:
 
 
 def row_to_version(r: Any) -> Version:
-    """A ``field_version`` row as a Version."""
-    return Version(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value, wall_ms=r.wall_ms,
-                   counter=r.counter, device=r.device, seq=r.seq, parents=tuple(r.parents),
-                   schema_version=r.schema_version)
+    """A ``field_version`` row as a Version (the row was validated on its way in, so it is not checked again)."""
+    return Version.model_construct(id=r.id, record=r.record, record_id=r.record_id, field=r.field, value=r.value,
+                                   wall_ms=r.wall_ms, counter=r.counter, device=r.device, seq=r.seq,
+                                   parents=tuple(r.parents), schema_version=r.schema_version)
 
 
 def record_versions(conn: Connection, record_ids: Iterable[uuid.UUID]) -> list[Version]:
@@ -174,8 +174,9 @@ def insert_versions(conn: Connection, versions: Iterable[Version], *, next_log_s
         chunk = items[i:i + 400]
         # change-log positions go with the insert; a version already held keeps its own (the skipped position
         # is a harmless gap: pulls ask for positions after a cursor, never for a count)
-        rows = [{**v.model_dump(mode="json"), "record_id": v.record_id, "device": v.device,
-                 "parents": list(v.parents), "batch": batch,
+        rows = [{"id": v.id, "record": v.record, "record_id": v.record_id, "field": v.field, "value": v.value,
+                 "wall_ms": v.wall_ms, "counter": v.counter, "device": v.device, "seq": v.seq,
+                 "parents": list(v.parents), "schema_version": v.schema_version, "batch": batch,
                  "log_seq": None if next_log_seq is None else next_log_seq + i + k} for k, v in enumerate(chunk)]
         added.update(r[0] for r in conn.execute(_insert_stmt(conn.dialect.name), rows))
     return [v for v in items if v.id in added]
@@ -226,54 +227,127 @@ def _dependency_rank() -> dict[str, int]:
     return {name: i for i, name in enumerate(db.record_names())}
 
 
-def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]]) -> dict[str, int]:
-    """Rebuild the visible rows of these records from their versions; returns counts of what happened."""
+def _chunks(items: list[Any], n: int = 500) -> Iterator[list[Any]]:
+    for i in range(0, len(items), n):
+        yield items[i:i + n]
+
+
+def _version_set(conn: Connection, todo: list[tuple[str, uuid.UUID]], known: list[Version]) -> VersionSet:
+    """The versions of these records: ``known`` (just inserted) plus, only for records that had versions
+    before, what the log holds."""
+    ids = [rid for _r, rid in todo]
+    if not known:
+        return VersionSet.of(record_versions(conn, ids))
+    counts: dict[uuid.UUID, int] = {}
+    for v in known:
+        counts[v.record_id] = counts.get(v.record_id, 0) + 1
+    older: list[uuid.UUID] = []
+    for chunk in _chunks(ids):
+        q = (sa.select(field_version.c.record_id, sa.func.count()).where(field_version.c.record_id.in_(chunk))
+             .group_by(field_version.c.record_id))
+        older.extend(rid for rid, n in conn.execute(q) if n != counts.get(rid, 0))
+    return VersionSet.of([*known, *record_versions(conn, older)])
+
+
+def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]], *,
+                known: Iterable[Version] = ()) -> dict[str, int]:
+    """Rebuild the visible rows of these records from their versions; returns counts of what happened.
+
+    ``known``: versions of these records the caller has just inserted (saves reading them back). Rows are
+    written table by table in dependency order, in bulk; a table whose bulk write hits a constraint is redone
+    row by row so that only the offending rows become pending.
+    """
     rank = _dependency_rank()
     todo = sorted(set(keys), key=lambda k: (rank.get(k[0], 99), str(k[1])))
     stats = {"written": 0, "pending": 0}
-    by_record = VersionSet.of(record_versions(conn, [rid for _r, rid in todo]))
+    by_record = _version_set(conn, todo, list(known))
     grouped = by_record.records()
-    conflicts: dict[tuple[str, uuid.UUID], list[Any]] = {}
-    for c in by_record.conflicts():
-        conflicts.setdefault((c.key[0], c.key[1]), []).append(c)
     finds = [rid for r, rid in todo if r == "find"]
     numbers = _number_pairs(conn, finds)  # before: a renumbered find may end a clash
+    _replace_conflicts(conn, todo, by_record)
+    pending: dict[tuple[str, uuid.UUID], str] = {}
+    ready: dict[str, list[dict[str, Any]]] = {}
     for record, rid in todo:
         values = grouped.get((record, rid), {})
-        _conflicts(conn, conflicts.get((record, rid), []), record, rid)
         spec = REGISTRY[record]
-        required = [f for f, info in spec.model.model_fields.items() if info.is_required() and f != "id"]
-        missing = [f for f in required if f not in values]
-        table = metadata.tables[record]
+        missing = [f for f, info in spec.model.model_fields.items() if info.is_required() and f != "id" and f not in values]
         if missing:
-            _pending(conn, record, rid, f"waiting for fields: {', '.join(missing)}")
-            stats["pending"] += 1
+            pending[(record, rid)] = f"waiting for fields: {', '.join(missing)}"
             continue
-        values = _with_defaults(record, values)
         try:
-            row = _row(record, values, rid)
+            ready.setdefault(record, []).append(_row(record, _with_defaults(record, values), rid))
         except ValueError as exc:  # a value in a shape this Baulk cannot read (a newer tablet's)
             newest = max((v.schema_version for v in by_record.versions_of(record, rid)), default=SCHEMA_VERSION)
-            _pending(conn, record, rid, f"a value this Baulk cannot read (schema {newest}, this Baulk reads "
-                                        f"{SCHEMA_VERSION}): update Baulk here; {str(exc).splitlines()[0][:200]}")
-            stats["pending"] += 1
-            continue
-        try:
-            with conn.begin_nested():
-                exists = conn.execute(sa.select(table.c.id).where(table.c.id == rid)).first()
-                if exists:
-                    conn.execute(table.update().where(table.c.id == rid).values(row))
-                else:
-                    conn.execute(table.insert().values(row))
-        except sa.exc.IntegrityError as exc:
-            _pending(conn, record, rid, str(exc.orig).splitlines()[0][:300])
-            stats["pending"] += 1
-            continue
-        conn.execute(pending_row.delete().where(pending_row.c.record == record, pending_row.c.record_id == rid))
-        stats["written"] += 1
+            pending[(record, rid)] = (f"a value this Baulk cannot read (schema {newest}, this Baulk reads "
+                                      f"{SCHEMA_VERSION}): update Baulk here; {str(exc).splitlines()[0][:200]}")
+    written: list[tuple[str, uuid.UUID]] = []
+    for record in sorted(ready, key=lambda r: rank.get(r, 99)):
+        ok, failed = _write_rows(conn, metadata.tables[record], ready[record])
+        written.extend((record, rid) for rid in ok)
+        pending.update({(record, rid): why for rid, why in failed.items()})
+    for (record, rid), why in pending.items():
+        _pending(conn, record, rid, why)
+    for record in {r for r, _ in written}:
+        for chunk in _chunks([rid for r, rid in written if r == record]):
+            conn.execute(pending_row.delete().where(pending_row.c.record == record, pending_row.c.record_id.in_(chunk)))
+    stats["written"], stats["pending"] = len(written), len(pending)
     if finds:
         stats["number_clashes"] = _number_clashes(conn, numbers | _number_pairs(conn, finds))
     return stats
+
+
+def _write_rows(conn: Connection, table: sa.Table, rows: list[dict[str, Any]]) -> tuple[list[uuid.UUID], dict[uuid.UUID, str]]:
+    """Insert the new rows and update the existing ones; returns (written ids, {refused id: reason})."""
+    existing: set[uuid.UUID] = set()
+    for chunk in _chunks([r["id"] for r in rows]):
+        existing.update(conn.execute(sa.select(table.c.id).where(table.c.id.in_(chunk))).scalars())
+    inserts = [r for r in rows if r["id"] not in existing]
+    updates = [{**{k: v for k, v in r.items() if k != "id"}, "_rid": r["id"]} for r in rows if r["id"] in existing]
+    update_stmt = table.update().where(table.c.id == sa.bindparam("_rid"))
+    try:
+        with conn.begin_nested():
+            if inserts:
+                conn.execute(table.insert(), inserts)
+            for shape in _by_keys(updates):
+                conn.execute(update_stmt, shape)
+        return [r["id"] for r in rows], {}
+    except sa.exc.IntegrityError:
+        pass  # find which rows: one at a time
+    ok: list[uuid.UUID] = []
+    failed: dict[uuid.UUID, str] = {}
+    for r in rows:
+        try:
+            with conn.begin_nested():
+                if r["id"] in existing:
+                    conn.execute(table.update().where(table.c.id == r["id"]).values(r))
+                else:
+                    conn.execute(table.insert().values(r))
+            ok.append(r["id"])
+        except sa.exc.IntegrityError as exc:
+            failed[r["id"]] = str(exc.orig).splitlines()[0][:300]
+    return ok, failed
+
+
+def _by_keys(rows: list[dict[str, Any]]) -> list[list[dict[str, Any]]]:
+    """Rows grouped by their key sets (an executemany needs one shape)."""
+    out: dict[tuple[str, ...], list[dict[str, Any]]] = {}
+    for r in rows:
+        out.setdefault(tuple(sorted(r)), []).append(r)
+    return list(out.values())
+
+
+def _replace_conflicts(conn: Connection, todo: list[tuple[str, uuid.UUID]], state: VersionSet) -> None:
+    """The open conflicts of these records, as the version set says now."""
+    wanted = set(todo)
+    found = [c for c in state.conflicts() if (c.key[0], c.key[1]) in wanted]
+    for record in {r for r, _ in todo}:
+        for chunk in _chunks([rid for r, rid in todo if r == record]):
+            conn.execute(open_conflict.delete().where(open_conflict.c.record == record,
+                                                      open_conflict.c.record_id.in_(chunk)))
+    if found:
+        conn.execute(open_conflict.insert(), [
+            {"record": c.key[0], "record_id": c.key[1], "field": c.key[2], "leaves": [v.id for v in c.leaves],
+             "kind": c.kind} for c in found])
 
 
 def _number_pairs(conn: Connection, find_ids: list[uuid.UUID]) -> set[tuple[uuid.UUID, int]]:
@@ -328,13 +402,6 @@ def _pending(conn: Connection, record: str, rid: uuid.UUID, reason: str) -> None
                         .values(reason=reason))
     if done.rowcount == 0:
         conn.execute(pending_row.insert().values(record=record, record_id=rid, reason=reason))
-
-
-def _conflicts(conn: Connection, found: list[Any], record: str, rid: uuid.UUID) -> None:
-    conn.execute(open_conflict.delete().where(open_conflict.c.record == record, open_conflict.c.record_id == rid))
-    for c in found:
-        conn.execute(open_conflict.insert().values(record=record, record_id=rid, field=c.key[2],
-                                                   leaves=[v.id for v in c.leaves], kind=c.kind))
 
 
 def assign_log_positions(conn: Connection) -> int:

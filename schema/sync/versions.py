@@ -28,6 +28,26 @@ LOCAL_ONLY: frozenset[str] = frozenset({"device"})
 SERVER_OWNED: frozenset[str] = frozenset({"device", "number_block"})
 
 
+_CANONICAL = json.JSONEncoder(sort_keys=True, separators=(",", ":"))  # one encoder, reused
+_quote = json.encoder.encode_basestring_ascii  # type: ignore[attr-defined]
+
+
+def _json_value(value: Any) -> str:
+    """``_CANONICAL.encode(value)``, with the common scalars done directly."""
+    if value is None:
+        return "null"
+    if value is True:
+        return "true"
+    if value is False:
+        return "false"
+    t = type(value)
+    if t is str:
+        return _quote(value)
+    if t is int:
+        return int.__repr__(value)
+    return _CANONICAL.encode(value)
+
+
 def batch_hash(versions: "list[Version]") -> str:
     """SHA-256 over the versions' canonical JSON, one per line, in the order sent."""
     import hashlib
@@ -70,5 +90,12 @@ class Version(BaseModel):
         return (self.wall_ms, self.counter, str(self.device))
 
     def canonical(self) -> str:
-        """The version as canonical JSON (for batch hashes)."""
-        return json.dumps(self.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+        """The version as canonical JSON (for batch hashes): its JSON form with keys sorted and no spaces, the
+        text ``json.dumps(self.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))`` gives
+        (``tests/schema/sync/test_versions.py`` holds it to that), assembled piece by piece because pushes hash
+        tens of thousands of versions."""
+        q = _quote
+        return (f'{{"counter":{self.counter},"device":"{self.device}","field":{q(self.field)},"id":{q(self.id)},'
+                f'"parents":[{",".join(q(p) for p in self.parents)}],"record":{q(self.record)},'
+                f'"record_id":"{self.record_id}","schema_version":{self.schema_version},"seq":{self.seq},'
+                f'"value":{_json_value(self.value)},"wall_ms":{self.wall_ms}}}')
