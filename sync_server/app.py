@@ -16,6 +16,7 @@ from schema.errors import BatchClash, BaulkError, DuplicateRecord, RecordInvalid
 
 from .settings import ServerSettings
 from .store import ServerStore
+from .validation import Revalidator
 
 __all__ = ["ROUTE_ROLES", "create_app"]
 
@@ -51,6 +52,7 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         own = store is None
         app.state.store = store or ServerStore.open(settings.database_url)
+        app.state.revalidate = Revalidator(app.state.store)
         try:
             yield
         finally:

@@ -85,6 +85,45 @@ def validate_after_merge(store: ServerStore) -> None:
         logging.getLogger("baulk.validation").exception("validation after a merge failed")
 
 
+class Revalidator:
+    """Validation after merges, coalesced: however many pushes land while a run is going, one more run follows
+    it, never a queue of them (a run reads the whole site; twenty tablets syncing at once must not start twenty).
+
+    Call it after every merge that changed something (from a background task); it returns at once when a run is
+    already going, and that run goes round again to pick the new data up.
+    """
+
+    def __init__(self, store: ServerStore) -> None:
+        import threading
+
+        self.store = store
+        self._running = threading.Lock()
+        self._flag = threading.Lock()
+        self._dirty = False
+        self.runs = 0
+
+    def __call__(self) -> None:
+        with self._flag:
+            self._dirty = True
+        while True:
+            if not self._running.acquire(blocking=False):
+                return  # the run in progress will see the flag
+            try:
+                while self._take():
+                    validate_after_merge(self.store)
+                    self.runs += 1
+            finally:
+                self._running.release()
+            with self._flag:  # a request that came between the last check and the release
+                if not self._dirty:
+                    return
+
+    def _take(self) -> bool:
+        with self._flag:
+            dirty, self._dirty = self._dirty, False
+            return dirty
+
+
 def _row(r: Any) -> dict[str, Any]:
     d = dict(r._mapping)
     for k in ("first_seen_at", "last_seen_at", "accepted_at"):

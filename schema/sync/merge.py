@@ -16,9 +16,8 @@
 from __future__ import annotations
 
 import uuid
-from collections import defaultdict
 from dataclasses import dataclass, field
-from typing import Any, Iterable
+from typing import Any, Iterable, Iterator
 
 from .versions import SET_FIELDS, Version
 
@@ -69,8 +68,7 @@ class VersionSet:
     """All versions a replica holds, indexed by field."""
 
     by_id: dict[str, Version] = field(default_factory=dict)
-    by_field: dict[FieldKey, list[Version]] = field(default_factory=lambda: defaultdict(list))
-    by_record: dict[tuple[str, uuid.UUID], set[str]] = field(default_factory=lambda: defaultdict(set))
+    by_record: dict[tuple[str, uuid.UUID], dict[str, list[Version]]] = field(default_factory=dict)
 
     @classmethod
     def of(cls, versions: Iterable[Version]) -> "VersionSet":
@@ -79,7 +77,8 @@ class VersionSet:
         return s
 
     def field_versions(self, key: FieldKey) -> list[Version]:
-        return self.by_field.get(key, [])
+        fields = self.by_record.get((key[0], key[1]))
+        return fields.get(key[2], []) if fields else []
 
     def value(self, key: FieldKey) -> Any:
         record, _rid, fname = key
@@ -94,6 +93,11 @@ class VersionSet:
 
     def fields_of(self, record: str, rid: uuid.UUID) -> list[FieldKey]:
         return [(record, rid, f) for f in sorted(self.by_record.get((record, rid), ()))]
+
+    def field_keys(self) -> Iterator[tuple[FieldKey, list[Version]]]:
+        for (record, rid), fields in self.by_record.items():
+            for fname, vs in fields.items():
+                yield (record, rid, fname), vs
 
     def ancestors(self, start: Iterable[str]) -> set[str]:
         """Every version id reachable through parents from ``start`` (held versions only)."""
@@ -136,20 +140,20 @@ class VersionSet:
         return sorted(out, key=lambda v: v.order_key, reverse=True)
 
     def conflicts(self) -> list[Conflict]:
-        out = [c for key, vs in self.by_field.items()
+        out = [c for key, vs in self.field_keys()
                if (len(vs) > 1 or key[2] == VOID_FIELD) and (c := self.conflict_at(key)) is not None]
         return sorted(out, key=lambda c: (c.key[0], str(c.key[1]), c.key[2]))
 
     def records(self) -> dict[tuple[str, uuid.UUID], dict[str, Any]]:
         """Each record's visible field values."""
-        out: dict[tuple[str, uuid.UUID], dict[str, Any]] = defaultdict(dict)
-        for key, vs in self.by_field.items():
-            record, rid, fname = key
-            if len(vs) == 1 and fname not in SET_FIELDS.get(record, ()):
-                out[(record, rid)][fname] = vs[0].value  # one version: it is the value
-            else:
-                out[(record, rid)][fname] = self.value(key)
-        return dict(out)
+        out: dict[tuple[str, uuid.UUID], dict[str, Any]] = {}
+        for (record, rid), fields in self.by_record.items():
+            sets = SET_FIELDS.get(record, ())
+            out[(record, rid)] = {
+                fname: vs[0].value if len(vs) == 1 and fname not in sets else self.value((record, rid, fname))
+                for fname, vs in fields.items()
+            }
+        return out
 
 
 def edit_parents(state: VersionSet, key: FieldKey) -> tuple[str, ...]:
@@ -194,14 +198,20 @@ class MergeResult:
 def merge(state: VersionSet, incoming: Iterable[Version]) -> MergeResult:
     """Add incoming versions to ``state`` (in place); idempotent, order-independent, loses nothing."""
     added = []
-    by_id, by_field, by_record = state.by_id, state.by_field, state.by_record
+    by_id, by_record = state.by_id, state.by_record
     for v in incoming:
         vid = v.id
         if vid in by_id:
             continue
         by_id[vid] = v
-        record, rid, fname = v.record, v.record_id, v.field
-        by_field[(record, rid, fname)].append(v)
-        by_record[(record, rid)].add(fname)
+        rk = (v.record, v.record_id)
+        fields = by_record.get(rk)
+        if fields is None:
+            fields = by_record[rk] = {}
+        vs = fields.get(v.field)
+        if vs is None:
+            fields[v.field] = [v]
+        else:
+            vs.append(v)
         added.append(v)
     return MergeResult(tuple(added))

@@ -96,7 +96,8 @@ def record_versions(conn: Connection, record_ids: Iterable[uuid.UUID]) -> list[V
 
 
 def versions_for_edit(conn: Connection, ident: Identity, record: Record, *, new: bool) -> list[Version]:
-    """The versions one local save appends: every field of a new record, the changed fields of an edit."""
+    """The versions one local save appends: the fields of a new record that differ from the model's default
+    (a field no version has set reads as its default, ``_with_defaults``), the changed fields of an edit."""
     name = record.record_name
     values = record.model_dump(mode="json")
     rid = uuid.UUID(values.pop("id"))
@@ -124,19 +125,37 @@ def versions_for_edit(conn: Connection, ident: Identity, record: Record, *, new:
                              if v.value.get("op") == "add" and json.dumps(v.value.get("item"), sort_keys=True) == k)
                 add(fname, {"op": "remove", "item": present[k]}, adds + seen_void)
             continue
-        current = leaves(state.field_versions(key))
-        if not current or not _same(name, fname, current[0].value, value):
+        if not _same(name, fname, _shown(state, key), value):
             add(fname, value, edit_parents(state, key))
     if void_value is not _ABSENT:  # last: a void names everything this save and earlier ones set
         key = (name, rid, VOID_FIELD)
-        current = leaves(state.field_versions(key))
-        if not current or not _same(name, VOID_FIELD, current[0].value, void_value):
+        if not _same(name, VOID_FIELD, _shown(state, key), void_value):
             merge(state, out)
             add(VOID_FIELD, void_value, void_parents(state, name, rid) if void_value is True else edit_parents(state, key))
     return out
 
 
 _ABSENT = object()
+_REQUIRED = object()
+
+
+def _shown(state: VersionSet, key: tuple[str, uuid.UUID, str]) -> Any:
+    """The field's current value: its winner, else its default (a required field with no version: none)."""
+    current = leaves(state.field_versions(key))
+    if current:
+        return current[0].value
+    return _default_json(key[0], key[2])
+
+
+@functools.lru_cache(maxsize=None)
+def _default_json(record: str, fname: str) -> Any:
+    info = REGISTRY[record].model.model_fields.get(fname)
+    if info is None or info.is_required():
+        return _REQUIRED
+    if fname in SET_FIELDS.get(record, ()):
+        return []
+    default = info.get_default(call_default_factory=True)
+    return TypeAdapter(type(default)).dump_python(default, mode="json") if default is not None else None
 
 
 def _same(record: str, fname: str, a: Any, b: Any) -> bool:
@@ -215,11 +234,8 @@ def _with_defaults(record: str, values: dict[str, Any]) -> dict[str, Any]:
     for fname, info in REGISTRY[record].model.model_fields.items():
         if fname in out or fname == "id" or info.is_required():
             continue
-        if fname in SET_FIELDS.get(record, ()):
-            out[fname] = []
-            continue
-        default = info.get_default(call_default_factory=True)
-        out[fname] = TypeAdapter(type(default)).dump_python(default, mode="json") if default is not None else None
+        default = _default_json(record, fname)
+        out[fname] = list(default) if isinstance(default, list) else default
     return out
 
 

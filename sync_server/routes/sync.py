@@ -12,7 +12,6 @@ from schema.sync import Version
 
 from ..auth import require
 from ..sync import MAX_BATCH, MAX_PAGE, apply_push, list_conflicts, pull_page, resolve_conflict
-from ..validation import validate_after_merge
 
 router = APIRouter(prefix="/v1", tags=["sync"])
 
@@ -114,7 +113,7 @@ async def push(request: Request, device: Pusher, background: BackgroundTasks) ->
     ack = await run_in_threadpool(apply_push, request.app.state.store, device=device, batch=body.batch,
                                   content_hash=body.hash, versions=body.versions)
     if ack["applied"]:
-        background.add_task(validate_after_merge, request.app.state.store)  # after the answer is sent
+        background.add_task(request.app.state.revalidate)  # after the answer is sent; runs coalesced
     return ack
 
 

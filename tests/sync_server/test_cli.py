@@ -58,7 +58,8 @@ def test_demo_writes_a_summary(demo_out: Path) -> None:
     assert summary["tablets"]["TAB-3"]["gnss_fixes"] > 0
     # sync: over real HTTP, in two orders, with the overlapping edits surfaced and the replicas converged
     sync = summary["sync"]
-    assert sync["converged"] and sync["finds_on_server"] == 381 and sync["bundle"]["versions"] > 100
+    assert sync["converged"] and sync["finds_on_server"] == 381
+    assert sync["bundle"]["batches"] >= 1 and sync["bundle"]["versions"] > 50  # the day's sieve finds, field by field
     assert sorted((c["record"], c["field"]) for c in sync["conflicts"]) == [("find", "unit_id"), ("unit", "description")]
     assert sync["open_after"] == 1 and sync["slip_unit_everywhere"] == ["104"]
     assert summary["server_validation"]["by_code"]["UNIT_IS_CUT"] == 1

@@ -56,6 +56,15 @@ def test_finds_reach_the_server_and_the_other_tablets(camp) -> None:  # type: ig
     c2.sync()
     assert sorted(f.number for f in t2.list(Find)) == [1, 2, 3]
     assert c1.pending_count() == 0
+    # a new find sends only the fields that differ from the model's defaults; every replica reads the rest
+    # as the default, so the three copies are equal field for field
+    (first,) = [f for f in t1.list(Find) if f.number == 1]
+    assert t2.get(Find, first.id) == server.get(Find, first.id) == first
+    from schema.sync.replica import record_versions
+
+    with t1.read() as conn:
+        sent = {v.field for v in record_versions(conn, [first.id])}
+    assert "notes" not in sent and "voided" not in sent and {"number", "unit_id", "z"} <= sent
 
 
 def test_concurrent_edits_become_a_conflict_and_a_resolution_travels(camp) -> None:  # type: ignore[no-untyped-def]

@@ -94,3 +94,35 @@ def test_baulk_validate_a_tablet_file_leaves_it_unchanged(tmp_path: Path, demo_o
     assert result.exit_code == 1  # the demo plants a find in a cut, among others
     assert "UNIT_IS_CUT" in result.output
     assert tab.read_bytes() == before
+
+
+def test_revalidation_is_coalesced_while_a_run_is_going(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """Ten merges landing during one validation run lead to one more run, not ten."""
+    import threading
+
+    from sync_server import validation
+    from sync_server.validation import Revalidator
+
+    started, release = threading.Event(), threading.Event()
+    calls: list[int] = []
+
+    def slow_run(_store) -> None:  # type: ignore[no-untyped-def]
+        calls.append(1)
+        if len(calls) == 1:
+            started.set()
+            release.wait(10)
+
+    original = validation.validate_after_merge
+    validation.validate_after_merge = slow_run  # type: ignore[assignment]
+    try:
+        r = Revalidator(store=None)  # type: ignore[arg-type]
+        first = threading.Thread(target=r)
+        first.start()
+        assert started.wait(10)
+        for _ in range(10):
+            r()  # each returns at once: a run is going
+        release.set()
+        first.join(10)
+    finally:
+        validation.validate_after_merge = original  # type: ignore[assignment]
+    assert len(calls) == 2 and r.runs == 2
