@@ -40,6 +40,7 @@ class Bench:
     """One measurement: ``setup(size, workdir)`` returns state; ``subject`` and ``baseline`` time one run each.
 
     ``subject(state, workdir, i)`` and ``baseline(state, workdir, i)`` must do the same work; ``i`` is the repeat.
+    Either may return a float: the seconds of the part that counts, timed by itself (set-up left out).
     """
 
     name: str
@@ -50,6 +51,7 @@ class Bench:
     baseline: Callable[[Any, Path, int], Any]
     repeats: int = 3
     doc: str = ""
+    after: Callable[[Any, Path], None] | None = None  # after the timed runs: may add to state["report"]
 
 
 BENCHMARKS: dict[str, Bench] = {}
@@ -64,9 +66,11 @@ def benchmark(bench: Bench) -> Bench:
 
 
 def _timed(fn: Callable[..., Any], *args: Any) -> float:
+    """Seconds one run took; a run that returns a float has timed its own core (e.g. without starting a server)."""
     t0 = time.perf_counter()
-    fn(*args)
-    return time.perf_counter() - t0
+    own = fn(*args)
+    elapsed = time.perf_counter() - t0
+    return own if isinstance(own, float) else elapsed
 
 
 def _measure(bench: Bench, size: int, queue: Any) -> None:
@@ -78,6 +82,8 @@ def _measure(bench: Bench, size: int, queue: Any) -> None:
             for i in range(bench.repeats):  # interleaved so drift hits both alike
                 base.append(_timed(bench.baseline, state, work, i))
                 subj.append(_timed(bench.subject, state, work, i))
+            if bench.after is not None:
+                bench.after(state, work)
             peak_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
             s, b = statistics.median(subj), statistics.median(base)
             extra = state.get("report", {}) if isinstance(state, dict) else {}
@@ -112,6 +118,7 @@ def format_line(r: Result) -> str:
     return (
         f"{r.name:<24} size={r.size:<7} subject={r.subject_s * 1000:9.1f} ms  "
         f"baseline({r.baseline})={r.baseline_s * 1000:9.1f} ms  peak_rss={r.peak_rss_mb:7.1f} MB  ratio={r.ratio:.2f}"
+        + "".join(f"  {k}={v}" for k, v in r.extra.items() if isinstance(v, (int, float)) and k not in ("versions", "finds"))
     )
 
 

@@ -36,6 +36,10 @@ class RecordStore:
     def __init__(self, engine: sa.Engine):
         self.engine = engine
         self._local = threading.local()
+        # SQLite has one writer at a time. Writers of this process queue here, without a time limit, rather than
+        # in SQLite's busy handler, whose timeout would turn a long queue (twenty tablets pushing at once) into
+        # "database is locked" errors; the busy timeout still covers writers in other processes.
+        self._writer = threading.Lock() if engine.dialect.name == "sqlite" else contextlib.nullcontext()
 
     def close(self) -> None:
         self.engine.dispose()
@@ -54,7 +58,7 @@ class RecordStore:
             with conn.begin_nested():
                 yield conn
             return
-        with self.engine.begin() as conn:
+        with self._writer, self.engine.begin() as conn:
             self._local.conn = conn
             try:
                 yield conn

@@ -20,8 +20,8 @@ from .sync import apply_push
 REPEATS = 3
 
 
-def _versions(demo: Any, n: int, device: uuid.UUID) -> list[Version]:
-    plan = plan_finds(demo, label="TAB-1", first_number=1, count=n, seed=9)
+def _versions(demo: Any, n: int, device: uuid.UUID, *, first_number: int = 1) -> list[Version]:
+    plan = plan_finds(demo, label="TAB-1", first_number=first_number, count=n, seed=9)
     ident = Identity(device, 0, Clock())
     out: list[Version] = []
     for f in plan.finds:

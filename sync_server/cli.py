@@ -257,6 +257,7 @@ def _load_benchmarks() -> None:
     """Each part registers its own benchmarks when imported."""
     import mobile.benchmarks  # noqa: F401
     import schema.benchmarks  # noqa: F401
+    import sync_server.bench_http  # noqa: F401
     import sync_server.benchmarks  # noqa: F401
 
 

@@ -55,15 +55,23 @@ def run_validation(store: ServerStore, *, now: dt.datetime | None = None,
         store._serialize(conn, "validation")  # noqa: SLF001 - one run at a time
         existing = {r.key: r for r in conn.execute(sa.select(T).where(T.c.site_id == data.site.id))}
         new = [k for k in current if k not in existing]
+        unchanged: list[str] = []
+        inserts: list[dict[str, Any]] = []
         for key, i in current.items():
             trench, unit = ctx.get(i.record_id or "", (None, None))
             values = dict(code=i.code, severity=i.severity, record=i.record, record_id=i.record_id, label=i.label,
                           message=i.message, fix=i.fix, value=None if i.value is None else str(i.value),
-                          site_id=data.site.id, trench=trench, unit=unit, last_seen_at=now, open=True)
-            if key in existing:
-                conn.execute(T.update().where(T.c.key == key).values(**values))
+                          site_id=data.site.id, trench=trench, unit=unit, open=True)
+            if key not in existing:
+                inserts.append({"key": key, "first_seen_at": now, "last_seen_at": now, **values})
+            elif all(getattr(existing[key], k) == v for k, v in values.items()):
+                unchanged.append(key)  # still there, as it was: only its last-seen time moves (in bulk below)
             else:
-                conn.execute(T.insert().values(key=key, first_seen_at=now, **values))
+                conn.execute(T.update().where(T.c.key == key).values(last_seen_at=now, **values))
+        if inserts:
+            conn.execute(T.insert(), inserts)
+        for k in range(0, len(unchanged), 500):
+            conn.execute(T.update().where(T.c.key.in_(unchanged[k:k + 500])).values(last_seen_at=now))
         gone = [k for k, r in existing.items() if k not in current and r.open]
         if gone:
             conn.execute(T.update().where(T.c.key.in_(gone)).values(open=False))

@@ -2,7 +2,8 @@
 
 The find table loses ``UNIQUE (site_id, number)`` (an index on the pair replaces it) so that two finds sharing
 a number, pulled from two tablets, are both shown and listed as a ``duplicate_number`` conflict instead of one
-being held back; the tablet still refuses a duplicate number on save. Open conflicts gain their kind.
+being held back; the tablet still refuses a duplicate number on save. (device_id, number) is indexed too (the
+highest number a device has used is asked at every sync). Open conflicts gain their kind.
 
 SQLite cannot drop a constraint, so the table is rebuilt: the file's own CREATE statement minus the constraint,
 rows copied, old table dropped, new one renamed, indexes made again ("Making Other Kinds Of Table Schema
@@ -19,6 +20,7 @@ NAME = "0008_number_clashes_visible"
 _UNIQUE = "CONSTRAINT uq_find_site_id_number UNIQUE (site_id, number),"
 _INDEXES = (
     "CREATE INDEX ix_find_site_id_number ON find (site_id, number)",
+    "CREATE INDEX ix_find_device_id_number ON find (device_id, number)",
     "CREATE INDEX ix_find_unit_id ON find (unit_id)",
     "CREATE INDEX ix_find_trench_id ON find (trench_id)",
     "CREATE INDEX ix_find_category ON find (category)",

@@ -134,7 +134,8 @@ SPECS = (
         # a duplicate on save, but a clash arriving by sync or a season import must stay visible (it becomes a
         # ``duplicate_number`` conflict and a NUMBER_DUPLICATE check), not be hidden by the table
         "find", FindBase, Find,
-        indexes=(("site_id", "number"), ("unit_id",), ("trench_id",), ("category",), ("found_at",)),
+        indexes=(("site_id", "number"), ("device_id", "number"), ("unit_id",), ("trench_id",), ("category",),
+                 ("found_at",)),
     ),
     spec("sample", SampleBase, Sample, unique=(("find_id",),)),
 )

@@ -380,11 +380,14 @@ def _number_clashes(conn: Connection, pairs: set[tuple[uuid.UUID, int]]) -> int:
     naming the number versions of every find in the clash; clear those that no longer clash."""
     t = metadata.tables["find"]
     groups: dict[tuple[uuid.UUID, int], list[uuid.UUID]] = {}
-    items = sorted(pairs, key=lambda p: (str(p[0]), p[1]))
-    for i in range(0, len(items), 300):
-        q = sa.select(t.c.id, t.c.site_id, t.c.number).where(sa.tuple_(t.c.site_id, t.c.number).in_(items[i:i + 300]))
-        for r in conn.execute(q):
-            groups.setdefault((r.site_id, r.number), []).append(r.id)
+    by_site: dict[uuid.UUID, list[int]] = {}
+    for site, number in pairs:
+        by_site.setdefault(site, []).append(number)
+    for site, numbers in by_site.items():  # site = ? AND number IN (...): the (site_id, number) index serves it
+        for chunk in _chunks(sorted(numbers)):
+            q = sa.select(t.c.id, t.c.site_id, t.c.number).where(t.c.site_id == site, t.c.number.in_(chunk))
+            for r in conn.execute(q):
+                groups.setdefault((r.site_id, r.number), []).append(r.id)
     ids = [rid for g in groups.values() for rid in g]
     for i in range(0, len(ids), 500):
         conn.execute(open_conflict.delete().where(open_conflict.c.kind == "duplicate_number",

@@ -1,7 +1,8 @@
 """find numbers clash visibly; open conflicts carry their kind
 
 A find number clash arriving by sync or a season import must be shown and listed as a conflict, so the find
-table's UNIQUE (site_id, number) becomes a plain index. On SQLite the table is rebuilt (batch mode) with the
+table's UNIQUE (site_id, number) becomes a plain index; (device_id, number) is indexed for the
+highest number a device has used, asked at every push. On SQLite the table is rebuilt (batch mode) with the
 foreign keys that point at finds deferred to the commit.
 
 Revision ID: 0008
@@ -25,6 +26,7 @@ def upgrade() -> None:
     with op.batch_alter_table('find', recreate='auto') as batch_op:
         batch_op.drop_constraint(op.f('uq_find_site_id_number'), type_='unique')
         batch_op.create_index(op.f('ix_find_site_id_number'), ['site_id', 'number'], unique=False)
+        batch_op.create_index(op.f('ix_find_device_id_number'), ['device_id', 'number'], unique=False)
     with op.batch_alter_table('open_conflict') as batch_op:
         batch_op.add_column(sa.Column('kind', sa.String(length=20), server_default='concurrent', nullable=False,
                                       comment='concurrent | void (edits the void did not see) | duplicate_number (finds sharing a number)'))
@@ -35,4 +37,5 @@ def downgrade() -> None:
         batch_op.drop_column('kind')
     with op.batch_alter_table('find', recreate='auto') as batch_op:
         batch_op.drop_index(op.f('ix_find_site_id_number'))
+        batch_op.drop_index(op.f('ix_find_device_id_number'))
         batch_op.create_unique_constraint(op.f('uq_find_site_id_number'), ['site_id', 'number'])

@@ -1,0 +1,189 @@
+"""End-to-end sync benchmark (``baulk bench sync.http``): 20 simulated tablets push their finds at once over
+loopback HTTP to a real ``baulk serve`` process.
+
+Each simulated tablet is a thread with its own HTTP client, pushing the batches a tablet would cut (500
+versions each, the tablet's default) with its own device token. The server runs in its own process, so its
+memory is its own: the report gives its resident memory when idle and its peak (``VmHWM``) during the run.
+The baseline is one SQLAlchemy Core insert of the same version rows in one transaction (no HTTP, no merge).
+Linearity: after the timed runs the same job is run with half the finds per tablet; ``growth_2x`` is the
+full time over the half time (goal <= 2.2). Request latencies give ``push_p50_ms`` and ``push_p95_ms``.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import statistics
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+from typing import Any
+
+from schema.benchkit import Bench, benchmark
+from schema.demo_site import build_site
+from schema.sync import batch_hash
+from schema.sync.tables import field_version
+
+from .loopback import free_port
+from .store import ServerStore
+
+TABLETS = 20
+BATCH = 500
+
+
+def _rss_kb(pid: int) -> dict[str, int]:
+    out = {}
+    for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+        key, _, rest = line.partition(":")
+        if key in ("VmRSS", "VmHWM"):
+            out[key] = int(rest.split()[0])
+    return out
+
+
+def _workload(demo: Any, devices: list[tuple[Any, str, int]], per_tablet: int) -> list[dict[str, Any]]:
+    from .benchmarks import _versions
+
+    tablets = []
+    for device, token, first in devices:
+        versions = _versions(demo, per_tablet, device.id, first_number=first)
+        bodies = []
+        for n, i in enumerate(range(0, len(versions), BATCH), start=1):
+            chunk = versions[i:i + BATCH]
+            bodies.append(json.dumps({"batch": n, "hash": batch_hash(chunk),
+                                      "versions": [json.loads(v.canonical()) for v in chunk]}).encode())
+        tablets.append({"token": token, "bodies": bodies, "versions": versions})
+    return tablets
+
+
+def _setup(size: int, work: Path) -> dict[str, Any]:
+    template = work / "template.sqlite"
+    demo = build_site()
+    devices = []
+    with ServerStore.open(f"sqlite:///{template}") as server:
+        with server.atomic():
+            for r in demo.setup_records():
+                server.add(r)
+        for k in range(TABLETS):
+            device, token = server.add_device(label=f"TAB-{k + 1}", role="recorder")
+            block = server.issue_number_block(device_id=device.id, size=size)
+            devices.append((device, token, block.first))
+    full = _workload(demo, devices, size)
+    half = [{**t, "bodies": t["bodies"][: max(1, len(t["bodies"]) // 2)]} for t in full]
+    rows = [{**json.loads(v.canonical()), "record_id": v.record_id, "device": v.device, "batch": 1, "log_seq": None}
+            for t in full for v in t["versions"]]
+    for t in full:
+        del t["versions"]
+    finds = TABLETS * size
+    return {"template": template, "full": full, "half": half, "rows": rows,
+            "report": {"tablets": TABLETS, "finds": finds, "versions": len(rows), "runs": []}}
+
+
+def _serve(db: Path, port: int, log: Path) -> subprocess.Popen[bytes]:
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    cmd = [sys.executable, "-m", "sync_server.cli", "serve", "--db", f"sqlite:///{db}", "--host", "127.0.0.1",
+           "--port", str(port)]
+    return subprocess.Popen(cmd, stdout=log.open("wb"), stderr=subprocess.STDOUT, env=env,
+                            cwd=Path(__file__).resolve().parent.parent)
+
+
+def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str, Any]]) -> dict[str, Any]:
+    """Start a server on a copy of the template, let every tablet push all its batches at once, stop it."""
+    import httpx
+
+    db = work / f"{tag}.sqlite"
+    shutil.copy(state["template"], db)
+    port = free_port()
+    proc = _serve(db, port, work / f"{tag}.log")
+    base = f"http://127.0.0.1:{port}"
+    try:
+        deadline = time.monotonic() + 60
+        while True:
+            try:
+                if httpx.get(f"{base}/v1/status", timeout=2).status_code == 200:
+                    break
+            except httpx.HTTPError:
+                pass
+            if proc.poll() is not None or time.monotonic() > deadline:
+                raise RuntimeError(f"the server did not start: {(work / f'{tag}.log').read_text()[-2000:]}")
+            time.sleep(0.1)
+        idle = _rss_kb(proc.pid)["VmRSS"]
+        latencies: list[float] = []
+        failures: list[str] = []
+        lock = threading.Lock()
+
+        def tablet(t: dict[str, Any]) -> None:
+            with httpx.Client(base_url=base, timeout=600, headers={"Authorization": f"Bearer {t['token']}",
+                                                                   "content-type": "application/json"}) as http:
+                for body in t["bodies"]:
+                    t0 = time.perf_counter()
+                    r = http.post("/v1/sync/push", content=body)
+                    dt_s = time.perf_counter() - t0
+                    with lock:
+                        latencies.append(dt_s)
+                        if r.status_code != 200:
+                            failures.append(f"{r.status_code}: {r.text[:200]}")
+
+        t0 = time.perf_counter()
+        threads = [threading.Thread(target=tablet, args=(t,)) for t in tablets]
+        for th in threads:
+            th.start()
+        for th in threads:
+            th.join()
+        elapsed = time.perf_counter() - t0
+        peak = _rss_kb(proc.pid)["VmHWM"]
+    finally:
+        proc.terminate()
+        proc.wait(timeout=60)
+    if failures:
+        log = (work / f"{tag}.log").read_text(errors="replace")
+        raise RuntimeError(f"{len(failures)} pushes failed, first: {failures[0]}; server log ends: {log[-3000:]}")
+    import sqlalchemy as sa
+
+    expected = sum(len(json.loads(b)["versions"]) for t in tablets for b in t["bodies"])
+    with ServerStore.open(f"sqlite:///{db}", upgrade=False) as check:
+        with check.read() as conn:
+            held = int(conn.execute(sa.select(sa.func.count()).select_from(field_version)
+                                    .where(field_version.c.record == "find")).scalar_one())
+    if held != expected:
+        raise RuntimeError(f"the server holds {held} find versions; the tablets sent {expected}")
+    return {"elapsed_s": elapsed, "idle_mb": idle / 1024, "peak_mb": peak / 1024, "latencies": latencies}
+
+
+def _subject(state: dict[str, Any], work: Path, i: int) -> float:
+    run = run_e2e(state, work, f"full-{i}", state["full"])
+    state["report"]["runs"].append(run)
+    return float(run["elapsed_s"])  # the pushes only: not the server's start or the count check
+
+
+def _baseline(state: dict[str, Any], work: Path, i: int) -> None:
+    db = work / f"raw-{i}.sqlite"
+    shutil.copy(state["template"], db)
+    with ServerStore.open(f"sqlite:///{db}", upgrade=False) as store:
+        with store.engine.begin() as conn:
+            conn.execute(field_version.insert(), state["rows"])
+
+
+def _after(state: dict[str, Any], work: Path) -> None:
+    """Summarise the timed runs, then time the same job at half the data for the growth figure."""
+    runs = state["report"].pop("runs")
+    halves = [run_e2e(state, work, f"half-{k}", state["half"])["elapsed_s"] for k in range(len(runs))]
+    lat = sorted(x for r in runs for x in r["latencies"])
+    full = statistics.median(r["elapsed_s"] for r in runs)
+    state["report"].update({
+        "push_p50_ms": round(1000 * lat[len(lat) // 2], 1),
+        "push_p95_ms": round(1000 * lat[min(len(lat) - 1, int(len(lat) * 0.95))], 1),
+        "server_idle_mb": round(max(r["idle_mb"] for r in runs), 1),
+        "server_peak_over_idle_mb": round(max(r["peak_mb"] - r["idle_mb"] for r in runs), 1),
+        "growth_2x": round(full / statistics.median(halves), 2),
+    })
+
+
+benchmark(Bench(
+    name="sync.http", baseline_name="one-txn Core insert of the same rows", sizes=(50, 5000), setup=_setup,
+    subject=_subject, baseline=_baseline, repeats=2, after=_after,
+    doc=f"{TABLETS} tablets push at once over loopback HTTP to a real server process; reports push p50/p95, "
+        "server memory over idle (goal <= 150 MB) and growth_2x (time at 2x data / 1x; goal <= 2.2)",
+))
