@@ -17,6 +17,7 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      |    +-- BatchClash        the same (device, batch) with different content: a restored tablet
      |    +-- WrongDevice       versions that claim another device than the one authenticated
      |    +-- BundleInvalid     a bundle file that is corrupt, truncated or tampered with
+     +-- EnrolmentRefused       an enrolment code that is unknown, used already or expired
      +-- SurveyError            survey input or a survey result that cannot be used
           +-- ObservationInvalid  a reading outside its range (zenith, distance, ...)
           +-- WeakGeometry        control points duplicated, coincident or on one line
@@ -35,6 +36,7 @@ __all__ = [
     "BaulkError",
     "BundleInvalid",
     "DuplicateRecord",
+    "EnrolmentRefused",
     "FieldProblem",
     "FixNotAccepted",
     "InputFileInvalid",
@@ -160,3 +162,7 @@ class WrongDevice(SyncError):
 
 class BundleInvalid(SyncError):
     """A bundle that fails its format or hash checks; nothing of it was applied."""
+
+
+class EnrolmentRefused(BaulkError):
+    """An enrolment code that is unknown, already used or expired; nothing was enrolled."""

@@ -8,14 +8,21 @@ import contextlib
 from typing import Any, AsyncIterator
 
 from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
-from pydantic import BaseModel
+from pydantic import BaseModel, Field
+from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from schema import SCHEMA_VERSION, __version__
-from schema.errors import BatchClash, BaulkError, DuplicateRecord, RecordInvalid, RecordNotFound, WrongDevice
+from schema.errors import (
+    BatchClash, BaulkError, DuplicateRecord, EnrolmentRefused, RecordInvalid, RecordNotFound, WrongDevice,
+)
 
 from .settings import ServerSettings
 from .store import ServerStore
+from .devices import EnrolRateLimit
+from .limits import BodyLimit
+from .tls import cert_fingerprint
 from .validation import Revalidator
 
 __all__ = ["ROUTE_ROLES", "create_app"]
@@ -29,9 +36,30 @@ ROUTE_ROLES: dict[str, str] = {
     "GET /v1/sync/pull": "recorder, manager, analyst",
     "GET /v1/conflicts": "manager",
     "POST /v1/conflicts/resolve": "manager",
+    "POST /v1/enrol": "public (a one-time code; rate-limited per address)",
+    "GET /v1/devices": "manager",
+    "POST /v1/devices": "manager",
+    "POST /v1/devices/{device_id}/revoke": "manager",
+    "GET /v1/audit": "manager",
 }
 
-_STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403}
+_STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403,
+           EnrolmentRefused: 401}
+
+
+class ErrorOut(BaseModel):
+    """Every error answer: a stable code scripts can test, and a message that says what to do."""
+
+    code: str = Field(examples=["Forbidden"])
+    message: str = Field(examples=["a recorder device cannot do this; it needs the role manager"])
+
+
+_HTTP_CODES = {400: "BadRequest", 401: "Unauthenticated", 403: "Forbidden", 404: "NotFound", 405: "MethodNotAllowed",
+               409: "Conflict", 413: "BodyTooLarge", 422: "InputInvalid", 429: "TooManyRequests"}
+ERROR_RESPONSES: dict[int | str, dict[str, Any]] = {
+    status: {"model": ErrorOut, "description": name} for status, name in _HTTP_CODES.items()
+    if status != 405
+}
 
 
 class Status(BaseModel):
@@ -48,11 +76,15 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
     """The app; opens the store named by ``settings`` unless one is given."""
     settings = settings or ServerSettings()
 
+    def attach(app: FastAPI, st: ServerStore) -> None:
+        app.state.store = st
+        app.state.revalidate = Revalidator(st)
+
     @contextlib.asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         own = store is None
-        app.state.store = store or ServerStore.open(settings.database_url)
-        app.state.revalidate = Revalidator(app.state.store)
+        if own:
+            attach(app, ServerStore.open(settings.database_url))
         try:
             yield
         finally:
@@ -60,13 +92,38 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
                 app.state.store.close()
 
     app = FastAPI(title="Baulk camp server", version=__version__, lifespan=lifespan)
+    app.state.enrol_limit = EnrolRateLimit(limit=settings.enrol_attempts_per_minute)
+    app.state.cert_fingerprint = cert_fingerprint(settings.tls_cert) if settings.tls_cert else None
+    if store is not None:  # a given store is ready at once (in-process clients that run no lifespan)
+        attach(app, store)
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http_error(_request: Request, exc: StarletteHTTPException) -> JSONResponse:
+        message = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
+        headers = dict(getattr(exc, "headers", None) or {})
+        if exc.status_code == 405:  # every method the path answers, not just those of the first route matched
+            from starlette.routing import Match
+
+            allowed = {m for r in _request.app.routes if r.matches(_request.scope)[0] != Match.NONE
+                       for m in (getattr(r, "methods", None) or ())}
+            headers["Allow"] = ", ".join(sorted(allowed))
+        return JSONResponse({"code": _HTTP_CODES.get(exc.status_code, "HTTPError"), "message": message},
+                            status_code=exc.status_code, headers=headers or None)
+
+    @app.exception_handler(RequestValidationError)
+    async def _invalid(_request: Request, exc: RequestValidationError) -> JSONResponse:
+        errors = exc.errors()
+        first = errors[0] if errors else {"loc": (), "msg": "invalid request"}
+        where = ".".join(str(p) for p in first.get("loc", ()) if p != "body") or "request"
+        more = f" (and {len(errors) - 1} more)" if len(errors) > 1 else ""
+        return JSONResponse({"code": "InputInvalid", "message": f"{where}: {first.get('msg')}{more}"}, status_code=422)
 
     @app.exception_handler(BaulkError)
     async def _baulk_error(_request: Request, exc: BaulkError) -> JSONResponse:
         code = type(exc).__name__
         return JSONResponse({"code": code, "message": str(exc)}, status_code=_STATUS.get(type(exc), 400))
 
-    @app.get("/v1/status", response_model=Status)
+    @app.get("/v1/status", response_model=Status, responses={413: ERROR_RESPONSES[413]})
     def status(request: Request) -> Status:
         """Service name, versions and the sites this server holds."""
         from schema.records import Site
@@ -77,10 +134,11 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
             site_codes=sorted(s.code for s in st.list(Site)),
         )
 
-    from .routes import issues, sync
+    from .routes import devices, issues, sync
 
-    app.include_router(issues.router)
-    app.include_router(sync.router)
+    for module in (issues, sync, devices):
+        app.include_router(module.router, responses=ERROR_RESPONSES)
+    app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     return app
 
 

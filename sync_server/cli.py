@@ -75,6 +75,7 @@ def serve(host: str | None, port: int | None, database_url: str | None, tls_cert
     click.echo(f"Baulk camp server {__version__} listening on {scheme}://{settings.host}:{settings.port}/v1/")
     click.echo(f"database: {_redact(settings.database_url)}")
     click.echo("Tablets on the camp Wi-Fi reach it at this machine's address; stop it with Ctrl+C.")
+    click.echo("Enrol a tablet: baulk device add --role recorder --label TAB-1 (prints a one-time code and a QR code)")
     uvicorn.run(
         create_app(settings), host=settings.host, port=settings.port, log_level="info",
         ssl_certfile=str(settings.tls_cert) if settings.tls_cert else None,
@@ -245,6 +246,113 @@ def season_import(file: Path, database_url: str | None) -> None:
     click.echo(f"imported {file.name}: {r['applied']} new versions ({r['already_held']} already here), "
                f"{r['rows_written']} rows written, {r['conflicts_open']} conflicts open "
                f"({r['number_clashes']} number clashes); new number blocks start above {r['number_floor']}")
+
+
+def _server_store(database_url: str | None) -> Any:
+    from .settings import ServerSettings
+    from .store import ServerStore
+
+    return ServerStore.open(database_url or ServerSettings().database_url)
+
+
+def _public_url(server: str | None) -> tuple[str, str | None]:
+    """The address tablets use, and the certificate fingerprint when the server serves HTTPS."""
+    import socket
+
+    from .settings import ServerSettings
+    from .tls import cert_fingerprint
+
+    settings = ServerSettings()
+    fingerprint = cert_fingerprint(settings.tls_cert) if settings.tls_cert else None
+    if server:
+        return server.rstrip("/"), fingerprint
+    host = settings.host
+    if host in ("0.0.0.0", "::"):
+        try:
+            host = socket.gethostbyname(socket.gethostname())
+        except OSError:
+            host = "127.0.0.1"
+    return f"{'https' if settings.tls_cert else 'http'}://{host}:{settings.port}", fingerprint
+
+
+@cli.group()
+def device() -> None:
+    """Enrol, list and revoke the tablets and laptops that may talk to this server."""
+
+
+@device.command("add")
+@click.option("--role", type=click.Choice(["recorder", "manager", "analyst"]), required=True,
+              help="recorder: a trench tablet; manager: the data manager; analyst: read and export only.")
+@click.option("--label", required=True, help="A name people will recognise, e.g. TAB-4.")
+@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@click.option("--server", default=None, help="The address tablets use [default: from the server settings].")
+@click.option("--png", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Also write the QR code as a PNG image here (to print or show on another screen).")
+def device_add(role: str, label: str, database_url: str | None, server: str | None, png: Path | None) -> None:
+    """Register a device and print its one-time enrolment code, as text and as a QR code."""
+    from .devices import CODE_TTL, code_qr, enrol_line, make_code
+
+    url, fingerprint = _public_url(server)
+    with _server_store(database_url) as store:
+        dev, code, expires = make_code(store, label=label, role=role)
+    line = enrol_line(url, code, fingerprint=fingerprint)
+    click.echo(code_qr(line, png=png))
+    click.echo(f"device {dev.label} ({dev.role}) registered; enrolment code: {code}")
+    click.echo(f"good once, until {expires:%Y-%m-%d %H:%M} UTC ({int(CODE_TTL.total_seconds() // 60)} minutes); "
+               f"server {url}" + (f"; certificate sha256 {fingerprint}" if fingerprint else ""))
+    if png is not None:
+        click.echo(f"QR code written to {png}")
+
+
+@device.command("list")
+@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+def device_list(database_url: str | None) -> None:
+    """Every device, its role, when it enrolled and whether it is revoked."""
+    from .devices import list_devices
+
+    with _server_store(database_url) as store:
+        rows = list_devices(store)
+    click.echo(f"{'label':<16} {'role':<9} {'enrolled':<17} {'revoked':<17} id")
+    for d in rows:
+        when = (lambda t: t.strftime("%Y-%m-%d %H:%M") if t else "-")
+        click.echo(f"{d.label:<16} {d.role:<9} {when(d.enrolled_at) if d.enrolled_at else 'code not used':<17} "
+                   f"{when(d.revoked_at):<17} {d.id}")
+
+
+@device.command("revoke")
+@click.argument("which")
+@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+def device_revoke(which: str, database_url: str | None) -> None:
+    """Revoke a device by label or id: its token is refused from the next request on."""
+    from .devices import revoke_device
+
+    with _server_store(database_url) as store:
+        d = revoke_device(store, which)
+    click.echo(f"device {d.label} revoked at {d.revoked_at:%Y-%m-%d %H:%M} UTC; enrol it again with a new code to let it back")
+
+
+@cli.group()
+def server() -> None:
+    """Set up the camp server machine."""
+
+
+@server.command("make-cert")
+@click.option("--host", "hostnames", multiple=True, help="Host name tablets use for this laptop (repeatable).")
+@click.option("--ip", "ips", multiple=True, help="Address tablets use for this laptop (repeatable).")
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True, help="Folder for the files.")
+@click.option("--days", type=int, default=400, show_default=True, help="How long the certificates are valid.")
+def server_make_cert(hostnames: tuple[str, ...], ips: tuple[str, ...], out: Path, days: int) -> None:
+    """Make a private camp CA and a server certificate for this laptop (for baulk serve --tls-cert/--tls-key)."""
+    from .tls import make_camp_certificates
+
+    try:
+        r = make_camp_certificates(out, hostnames=list(hostnames), ips=list(ips), days=days)
+    except ValueError as exc:
+        raise click.ClickException(str(exc)) from None
+    click.echo(f"camp CA: {r['ca']} (keep camp-ca.key off the camp Wi-Fi)")
+    click.echo(f"server certificate: {r['cert']} and key {r['key']} for {', '.join(r['names'])}, valid until {r['expires']}")
+    click.echo(f"fingerprint (sha256): {r['fingerprint']}")
+    click.echo(f"start: baulk serve --host 0.0.0.0 --tls-cert {r['cert']} --tls-key {r['key']}")
 
 
 def _register_groups() -> None:

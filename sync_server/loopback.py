@@ -18,12 +18,15 @@ def free_port() -> int:
 
 
 @contextlib.contextmanager
-def serve_in_thread(app: Any, *, port: int | None = None, timeout_s: float = 20.0) -> Iterator[str]:
-    """Serve ``app`` with uvicorn on 127.0.0.1; yields the base URL; stops the server on exit."""
+def serve_in_thread(app: Any, *, port: int | None = None, timeout_s: float = 20.0,
+                    tls: tuple[str, str] | None = None) -> Iterator[str]:
+    """Serve ``app`` with uvicorn on 127.0.0.1 (HTTPS with ``tls=(cert, key)``); yields the base URL; stops
+    the server on exit."""
     import uvicorn
 
     port = port or free_port()
-    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning", lifespan="on"))
+    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning", lifespan="on",
+                                           ssl_certfile=tls[0] if tls else None, ssl_keyfile=tls[1] if tls else None))
     thread = threading.Thread(target=server.run, name="baulk-loopback", daemon=True)
     thread.start()
     deadline = time.monotonic() + timeout_s
@@ -32,7 +35,7 @@ def serve_in_thread(app: Any, *, port: int | None = None, timeout_s: float = 20.
             raise RuntimeError(f"the camp server did not start on 127.0.0.1:{port}")
         time.sleep(0.02)
     try:
-        yield f"http://127.0.0.1:{port}"
+        yield f"{'https' if tls else 'http'}://127.0.0.1:{port}"
     finally:
         server.should_exit = True
         thread.join(timeout=timeout_s)

@@ -29,7 +29,8 @@ class ServerSettings(BaseSettings):
     port: int = Field(default=8765, ge=1, le=65535)
     tls_cert: Path | None = Field(default=None, description="PEM certificate file for HTTPS")
     tls_key: Path | None = Field(default=None, description="PEM private key file for HTTPS")
-    max_body_bytes: int = Field(default=8 * 1024 * 1024, ge=1024, description="largest request body accepted")
+    max_body_bytes: int = Field(default=16 * 1024 * 1024, ge=1024, description="largest request body accepted")
+    enrol_attempts_per_minute: int = Field(default=10, ge=1, description="enrolment attempts allowed per address")
 
     @model_validator(mode="after")
     def _tls_pair(self) -> "ServerSettings":

@@ -8,7 +8,7 @@ import sqlalchemy as sa
 from schema.sync.tables import sync_metadata
 from schema.tables import UTCDateTime, build_metadata
 
-__all__ = ["push_batch", "server_metadata", "validation_issue"]
+__all__ = ["enrolment_code", "push_batch", "server_metadata", "validation_issue"]
 
 server_metadata = build_metadata()
 for _t in sync_metadata.tables.values():
@@ -49,4 +49,17 @@ validation_issue = sa.Table(
     sa.Index(None, "code"),
     sa.Index(None, "record_id"),
     comment="Validation issues of the latest run, with managers' acceptances",
+)
+
+# One-time enrolment codes: only a SHA-256 of the code is kept; a code works once, before it expires.
+enrolment_code = sa.Table(
+    "enrolment_code", server_metadata,
+    sa.Column("code_hash", sa.String(64), primary_key=True, comment="SHA-256 of the normalised code"),
+    sa.Column("device_id", sa.Uuid(), sa.ForeignKey("device.id"), nullable=False,
+              comment="the device the code enrols (made when the code is)"),
+    sa.Column("created_at", UTCDateTime(), nullable=False),
+    sa.Column("expires_at", UTCDateTime(), nullable=False),
+    sa.Column("used_at", UTCDateTime(), nullable=True),
+    sa.Column("created_by", sa.String(), nullable=False, comment="who made it: a manager device's label, or 'console'"),
+    comment="One-time enrolment codes for new devices",
 )

@@ -285,7 +285,10 @@ def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]], *,
     ready: dict[str, list[dict[str, Any]]] = {}
     for record, rid in todo:
         values = grouped.get((record, rid), {})
-        spec = REGISTRY[record]
+        spec = REGISTRY.get(record)
+        if spec is None:  # a record type from a newer Baulk: its versions are kept and passed on, not shown
+            pending[(record, rid)] = f"record type {record!r} is unknown to this Baulk (schema {SCHEMA_VERSION}): update Baulk here"
+            continue
         missing = [f for f, info in spec.model.model_fields.items() if info.is_required() and f != "id" and f not in values]
         if missing:
             pending[(record, rid)] = f"waiting for fields: {', '.join(missing)}"

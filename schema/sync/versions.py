@@ -12,7 +12,9 @@ import json
 import uuid
 from typing import Any
 
-from pydantic import BaseModel, ConfigDict, Field
+from typing import Annotated
+
+from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict, Field
 
 from .clock import Stamp
 
@@ -63,22 +65,41 @@ def version_id(device: uuid.UUID, seq: int) -> str:
     return f"{device}:{seq}"
 
 
+def _integral(value: Any) -> Any:
+    """A JSON number with nothing after the point (``12.0``) is that integer; anything else is left to strict
+    validation (so ``"12"`` and ``true`` are still refused)."""
+    return int(value) if isinstance(value, float) and value.is_integer() else value
+
+
+def _printable(value: str) -> str:
+    if any(ord(c) < 32 or 0xD800 <= ord(c) <= 0xDFFF for c in value):
+        raise ValueError("control characters and unpaired surrogates are not allowed here")
+    return value
+
+
+Whole = Annotated[int, BeforeValidator(_integral)]
+# the check, and the same rule stated in the JSON Schema (so API clients and fuzzers know it)
+Name = Annotated[str, AfterValidator(_printable),
+                 Field(json_schema_extra={"pattern": "^[^\\u0000-\\u001f]*$"})]
+_MAX = 2**53 - 1  # the largest integer every JSON reader keeps exactly
+
+
 class Version(BaseModel):
     """One field's value as set by one edit on one device."""
 
     model_config = ConfigDict(strict=True, extra="forbid", frozen=True)
 
-    id: str = Field(description="<device uuid>:<device sequence>")
-    record: str = Field(description="record type, e.g. 'find'")
+    id: Name = Field(min_length=3, max_length=80, description="<device uuid>:<device sequence>")
+    record: Name = Field(min_length=1, max_length=40, description="record type, e.g. 'find'")
     record_id: uuid.UUID
-    field: str
+    field: Name = Field(min_length=1, max_length=60)
     value: Any = Field(description="the field's JSON value; for set fields {'op': 'add'|'remove', 'item': ...}")
-    wall_ms: int = Field(ge=0, description="hybrid logical clock: milliseconds")
-    counter: int = Field(ge=0, description="hybrid logical clock: counter")
+    wall_ms: Whole = Field(ge=0, le=_MAX, description="hybrid logical clock: milliseconds")
+    counter: Whole = Field(ge=0, le=_MAX, description="hybrid logical clock: counter")
     device: uuid.UUID
-    seq: int = Field(ge=1, description="the device's own sequence number")
-    parents: tuple[str, ...] = ()
-    schema_version: int = Field(ge=1, default=1)
+    seq: Whole = Field(ge=1, le=_MAX, description="the device's own sequence number")
+    parents: tuple[Annotated[Name, Field(max_length=80)], ...] = Field(default=(), max_length=10_000)
+    schema_version: Whole = Field(ge=1, le=10_000, default=1)
 
     @property
     def stamp(self) -> Stamp:

@@ -57,7 +57,7 @@ def get_issues(
     request: Request, _device: Reader,
     code: str | None = None, severity: Literal["error", "warning", "info"] | None = None,
     trench: str | None = None, unit: str | None = None, include_closed: bool = False,
-    limit: Annotated[int, Query(ge=1, le=1000)] = 200, offset: Annotated[int, Query(ge=0)] = 0,
+    limit: Annotated[int, Query(ge=1, le=1000)] = 200, offset: Annotated[int, Query(ge=0, le=2**53 - 1)] = 0,
 ) -> IssuesPublic:
     """Open validation issues, errors first; filter by code, severity, trench or unit."""
     rows = list_issues(request.app.state.store, code=code, severity=severity, trench=trench, unit=unit,

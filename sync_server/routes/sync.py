@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import uuid
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, BackgroundTasks, Depends, Query, Request
@@ -9,6 +10,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from schema.records import Device
 from schema.sync import Version
+from schema.sync.versions import Whole
 
 from ..auth import require
 from ..sync import MAX_BATCH, MAX_PAGE, apply_push, list_conflicts, pull_page, resolve_conflict
@@ -24,7 +26,7 @@ class PushBody(BaseModel):
     """One batch of the device's own versions, keyed by (device, batch), with its content hash."""
 
     model_config = ConfigDict(extra="forbid")
-    batch: int = Field(ge=1)
+    batch: Whole = Field(ge=1, le=2**53 - 1)
     hash: str = Field(pattern=r"^[0-9a-f]{64}$", description="SHA-256 of the versions' canonical JSON lines")
     versions: list[Version] = Field(max_length=MAX_BATCH)
 
@@ -78,13 +80,10 @@ class Resolution(BaseModel):
     """The value chosen (or typed) for a conflicting field."""
 
     model_config = ConfigDict(extra="forbid")
-    record: str
-    record_id: str
-    field: str
+    record: str = Field(max_length=40, examples=["find"])
+    record_id: uuid.UUID
+    field: str = Field(max_length=60, examples=["unit_id"])
     value: Any
-
-
-MAX_PUSH_BYTES = 16 * 1024 * 1024
 
 
 def _push_schema() -> dict[str, Any]:
@@ -102,8 +101,6 @@ async def push(request: Request, device: Pusher, background: BackgroundTasks) ->
     from pydantic import ValidationError
 
     raw = await request.body()
-    if len(raw) > MAX_PUSH_BYTES:
-        raise HTTPException(413, detail=f"a push body is at most {MAX_PUSH_BYTES} bytes; send smaller batches")
     try:
         body = PushBody.model_validate_json(raw)  # JSON mode: strict types, UUIDs as strings
     except ValidationError as exc:
@@ -118,7 +115,7 @@ async def push(request: Request, device: Pusher, background: BackgroundTasks) ->
 
 
 @router.get("/sync/pull", response_model=PullPage)
-def pull(request: Request, device: Puller, after: Annotated[int, Query(ge=0)] = 0,
+def pull(request: Request, device: Puller, after: Annotated[int, Query(ge=0, le=2**53 - 1)] = 0,
          limit: Annotated[int, Query(ge=1, le=MAX_PAGE)] = 500) -> dict[str, Any]:
     """Versions after the cursor, in change-log order."""
     return pull_page(request.app.state.store, after=after, limit=limit, device=device)
@@ -134,7 +131,5 @@ def conflicts(request: Request, _device: Manager) -> ConflictsPublic:
 @router.post("/conflicts/resolve")
 def resolve(request: Request, body: Resolution, _device: Manager) -> dict[str, Any]:
     """Resolve a conflict with a value: a new version whose parents are all the competing ones."""
-    import uuid
-
-    return resolve_conflict(request.app.state.store, record=body.record, record_id=uuid.UUID(body.record_id),
+    return resolve_conflict(request.app.state.store, record=body.record, record_id=body.record_id,
                             field=body.field, value=body.value)

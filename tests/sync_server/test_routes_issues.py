@@ -39,7 +39,7 @@ def test_reading_needs_manager_or_analyst(camp) -> None:  # type: ignore[no-unty
     assert r.status_code == 401 and r.headers["www-authenticate"] == "Bearer"
     assert client.get("/v1/issues", headers=auth("nonsense")).status_code == 401
     r = client.get("/v1/issues", headers=auth(tokens["recorder"]))
-    assert r.status_code == 403 and r.json()["detail"] == "a recorder device cannot do this; it needs the role manager or analyst"
+    assert r.status_code == 403 and r.json()["code"] == "Forbidden" and r.json()["message"] == "a recorder device cannot do this; it needs the role manager or analyst"
     body = client.get("/v1/issues", headers=auth(tokens["analyst"])).json()
     assert body["count"] == 1 and body["data"][0]["label"] == "find 1432"
 

@@ -175,7 +175,7 @@ def test_a_truncated_push_body_is_refused_and_nothing_applied(camp) -> None:  # 
                       "versions": [v.model_dump(mode="json") for v in versions]}).encode()
     for cut in (len(raw) // 3, len(raw) - 1):
         r = http.post("/v1/sync/push", headers={**c1.headers, "content-type": "application/json"}, content=raw[:cut])
-        assert r.status_code == 422 and r.json()["detail"].startswith("push body refused at ")
+        assert r.status_code == 422 and r.json()["message"].startswith("push body refused at ")
     assert server.count(Find) == 0
     c1.sync()  # the whole batch, sent again intact, is applied once
     assert server.count(Find) == 1

@@ -18,8 +18,11 @@ json_values = st.recursive(
 )
 
 
+names = st.text(st.characters(exclude_categories=("Cc", "Cs")), min_size=1, max_size=12)  # what Version admits
+
+
 @settings(max_examples=400, deadline=None)
-@given(value=json_values, field=st.text(min_size=1, max_size=12), parents=st.lists(st.text(max_size=20), max_size=3),
+@given(value=json_values, field=names, parents=st.lists(names, max_size=3),
        seq=st.integers(1, 2**40), wall=st.integers(0, 2**45), counter=st.integers(0, 2**20))
 def test_canonical_is_the_sorted_compact_json_of_the_model(value, field, parents, seq, wall, counter) -> None:  # type: ignore[no-untyped-def]
     device = uuid.uuid4()
@@ -28,3 +31,17 @@ def test_canonical_is_the_sorted_compact_json_of_the_model(value, field, parents
     reference = json.dumps(v.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
     assert v.canonical() == reference
     assert json.loads(v.canonical())["value"] == json.loads(reference)["value"]
+
+
+def test_names_with_control_characters_and_integral_floats() -> None:
+    import pytest
+    from pydantic import ValidationError
+
+    base = dict(id=f"{uuid.UUID(int=1)}:1", record="find", record_id=uuid.UUID(int=2), field="z", value=1,
+                wall_ms=1, counter=0, device=uuid.UUID(int=1), seq=1)
+    assert Version.model_validate_json(json.dumps({**base, "record_id": str(base["record_id"]),
+                                                   "device": str(base["device"]), "seq": 7.0})).seq == 7
+    for bad in ({"field": "z\u0000"}, {"seq": "7"}, {"seq": 7.5}, {"seq": True}, {"record": "x" * 41}):
+        with pytest.raises(ValidationError):
+            Version.model_validate_json(json.dumps({**base, "record_id": str(base["record_id"]),
+                                                    "device": str(base["device"]), **bad}))

@@ -1,0 +1,53 @@
+"""Enrolling this tablet with a camp server: the one-time code in, the device id and token kept.
+
+The code comes typed or scanned from the data manager's QR code (a ``baulk-enrol:?server=...&code=...`` line;
+``parse_enrol_line`` reads it). When the line carries the server certificate's SHA-256 fingerprint, the caller
+builds its HTTP client to accept exactly that certificate (the app does; tests use plain loopback HTTP).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import uuid
+from typing import Any
+from urllib.parse import parse_qs, urlsplit
+
+import httpx
+
+from schema.errors import EnrolmentRefused, SyncError
+from schema.records import Device
+
+from .store import TabletStore
+
+__all__ = ["enrol", "parse_enrol_line"]
+
+
+def parse_enrol_line(line: str) -> dict[str, str]:
+    """``{"server", "code"[, "sha256"]}`` from the QR code's text; a bare code gives just ``{"code"}``."""
+    line = line.strip()
+    if not line.startswith("baulk-enrol:"):
+        return {"code": line}
+    query = parse_qs(urlsplit(line.removeprefix("baulk-enrol:")).query)
+    out = {k: v[0] for k, v in query.items() if v}
+    if "code" not in out:
+        raise EnrolmentRefused("the scanned enrolment code holds no code; scan it again or type the code")
+    return out
+
+
+def enrol(store: TabletStore, http: httpx.Client, code: str) -> Device:
+    """Exchange the code; this tablet becomes the device it names (number blocks arrive with the first sync)."""
+    try:
+        r = http.post("/v1/enrol", json={"code": code.strip()})
+    except httpx.HTTPError as exc:
+        raise SyncError(f"cannot reach the camp server to enrol ({type(exc).__name__}); check the Wi-Fi and the "
+                        "server address, then try again") from None
+    body: dict[str, Any] = r.json() if r.headers.get("content-type", "").startswith("application/json") else {}
+    if r.status_code == 429:
+        raise EnrolmentRefused("the server refused more enrolment attempts for a minute; wait, then try again")
+    if r.status_code != 200:
+        raise EnrolmentRefused(body.get("message") or body.get("detail") or f"the server refused the code ({r.status_code})")
+    device = Device(id=uuid.UUID(body["device_id"]), label=body["label"], role=body["role"],
+                    enrolled_at=dt.datetime.now(dt.timezone.utc))
+    store.set_identity(device=device)
+    store.set_token(body["token"])
+    return device
