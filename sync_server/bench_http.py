@@ -1,12 +1,15 @@
-"""End-to-end sync benchmark (``baulk bench sync.http``): 20 simulated tablets push their finds at once over
-loopback HTTP to a real ``baulk serve`` process.
+"""End-to-end sync benchmark (``baulk bench sync.http``): 20 simulated tablets sync at once over loopback HTTP
+with a real ``baulk serve`` process.
 
-Each simulated tablet is a thread with its own HTTP client, pushing the batches a tablet would cut (500
-versions each, the tablet's default) with its own device token. The server runs in its own process, so its
+Each simulated tablet is a thread with its own HTTP client and device token: it pushes the batches a tablet
+would cut (500 versions each, the tablet's default) and after each one pulls a page after its cursor. The run
+fails on any answer other than 200, on a pull that serves a version twice, and when the server ends up with
+other than every version sent. The server runs in its own process, so its
 memory is its own: the report gives its resident memory when idle and its peak (``VmHWM``) during the run.
 The baseline is one SQLAlchemy Core insert of the same version rows in one transaction (no HTTP, no merge).
 Linearity: after the timed runs the same job is run with half the finds per tablet; ``growth_2x`` is the
-full time over the half time (goal <= 2.2). Request latencies give ``push_p50_ms`` and ``push_p95_ms``.
+full time over the half time (goal <= 2.2). Request latencies give ``push_p50_ms``, ``push_p95_ms``,
+``pull_p50_ms`` and ``pull_p95_ms``.
 """
 
 from __future__ import annotations
@@ -32,6 +35,7 @@ from .store import ServerStore
 
 TABLETS = 20
 BATCH = 500
+PAGE = 500
 
 
 def _rss_kb(pid: int) -> dict[str, int]:
@@ -114,17 +118,33 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
         failures: list[str] = []
         lock = threading.Lock()
 
+        pulls: list[float] = []
+
         def tablet(t: dict[str, Any]) -> None:
+            """Push each batch, then pull one page after this tablet's cursor, as a syncing tablet does."""
+            cursor, seen = 0, set()
             with httpx.Client(base_url=base, timeout=600, headers={"Authorization": f"Bearer {t['token']}",
                                                                    "content-type": "application/json"}) as http:
                 for body in t["bodies"]:
                     t0 = time.perf_counter()
                     r = http.post("/v1/sync/push", content=body)
-                    dt_s = time.perf_counter() - t0
+                    t1 = time.perf_counter()
+                    page = http.get("/v1/sync/pull", params={"after": cursor, "limit": PAGE})
+                    t2 = time.perf_counter()
                     with lock:
-                        latencies.append(dt_s)
-                        if r.status_code != 200:
-                            failures.append(f"{r.status_code}: {r.text[:200]}")
+                        latencies.append(t1 - t0)
+                        pulls.append(t2 - t1)
+                        for resp in (r, page):
+                            if resp.status_code != 200:
+                                failures.append(f"{resp.status_code}: {resp.text[:200]}")
+                    if page.status_code == 200:
+                        got = page.json()
+                        ids = [v["id"] for v in got["versions"]]
+                        if seen.intersection(ids) or len(set(ids)) != len(ids):
+                            with lock:
+                                failures.append("a pull served a version this tablet had already been given")
+                        seen.update(ids)
+                        cursor = got["next"]
 
         t0 = time.perf_counter()
         threads = [threading.Thread(target=tablet, args=(t,)) for t in tablets]
@@ -149,7 +169,8 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
                                     .where(field_version.c.record == "find")).scalar_one())
     if held != expected:
         raise RuntimeError(f"the server holds {held} find versions; the tablets sent {expected}")
-    return {"elapsed_s": elapsed, "idle_mb": idle / 1024, "peak_mb": peak / 1024, "latencies": latencies}
+    return {"elapsed_s": elapsed, "idle_mb": idle / 1024, "peak_mb": peak / 1024, "latencies": latencies,
+            "pulls": pulls}
 
 
 def _subject(state: dict[str, Any], work: Path, i: int) -> float:
@@ -171,10 +192,13 @@ def _after(state: dict[str, Any], work: Path) -> None:
     runs = state["report"].pop("runs")
     halves = [run_e2e(state, work, f"half-{k}", state["half"])["elapsed_s"] for k in range(len(runs))]
     lat = sorted(x for r in runs for x in r["latencies"])
+    pulled = sorted(x for r in runs for x in r["pulls"])
     full = statistics.median(r["elapsed_s"] for r in runs)
     state["report"].update({
         "push_p50_ms": round(1000 * lat[len(lat) // 2], 1),
         "push_p95_ms": round(1000 * lat[min(len(lat) - 1, int(len(lat) * 0.95))], 1),
+        "pull_p50_ms": round(1000 * pulled[len(pulled) // 2], 1),
+        "pull_p95_ms": round(1000 * pulled[min(len(pulled) - 1, int(len(pulled) * 0.95))], 1),
         "server_idle_mb": round(max(r["idle_mb"] for r in runs), 1),
         "server_peak_over_idle_mb": round(max(r["peak_mb"] - r["idle_mb"] for r in runs), 1),
         "growth_2x": round(full / statistics.median(halves), 2),

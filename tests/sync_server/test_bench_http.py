@@ -16,7 +16,8 @@ def test_twenty_tablets_push_at_once_and_nothing_is_lost(monkeypatch: pytest.Mon
     monkeypatch.setattr(benchkit.BENCHMARKS["sync.http"], "repeats", 1)
     (r,) = benchkit.run(["sync.http"], quick=True)  # raises when a push failed or a version is missing
     assert r.extra["tablets"] == 20 and r.extra["finds"] == 600
-    assert {"push_p50_ms", "push_p95_ms", "server_idle_mb", "server_peak_over_idle_mb", "growth_2x"} <= set(r.extra)
+    assert {"push_p50_ms", "push_p95_ms", "pull_p50_ms", "pull_p95_ms", "server_idle_mb", "server_peak_over_idle_mb",
+            "growth_2x"} <= set(r.extra)
     assert 0 < r.extra["push_p50_ms"] <= r.extra["push_p95_ms"]
     assert r.extra["server_idle_mb"] > 20  # a real server process was measured, not this one
     assert r.ratio > 1  # over HTTP with a merge cannot beat a bare insert of the same rows
