@@ -175,6 +175,13 @@ def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
     return results
 
 
+def _server_store(database_url: str | None) -> Any:
+    from .settings import ServerSettings
+    from .store import ServerStore
+
+    return ServerStore.open(database_url or ServerSettings().database_url)
+
+
 @cli.group()
 def bundle() -> None:
     """Carry a tablet's unsent work to the camp server on a USB stick when there is no Wi-Fi."""
@@ -202,10 +209,8 @@ def bundle_export(store_path: Path, out: Path) -> None:
 def bundle_import(file: Path, database_url: str | None) -> None:
     """Check a bundle whole, then apply it exactly like a push (a bad bundle changes nothing)."""
     from .bundles import import_bundle
-    from .settings import ServerSettings
-    from .store import ServerStore
 
-    with ServerStore.open(database_url or ServerSettings().database_url) as store:
+    with _server_store(database_url) as store:
         r = import_bundle(store, file)
     click.echo(f"imported {file.name} from {r['device']}: {r['batches']} batches, {r['applied']} new versions"
                + (f", {r['replayed']} already applied" if r["replayed"] else ""))
@@ -222,10 +227,8 @@ def season() -> None:
 def season_archive(out: Path, database_url: str | None) -> None:
     """Write this store's whole version log (and its highest find number) into one archive file."""
     from .seasons import write_archive
-    from .settings import ServerSettings
-    from .store import ServerStore
 
-    with ServerStore.open(database_url or ServerSettings().database_url) as store:
+    with _server_store(database_url) as store:
         m = write_archive(store, out, progress=lambda n, total: click.echo(f"  {n}/{total} versions", err=True))
     click.echo(f"wrote {m['path']}: {m['versions']} versions, numbers up to {m['number_floor']}")
 
@@ -236,23 +239,14 @@ def season_archive(out: Path, database_url: str | None) -> None:
 def season_import(file: Path, database_url: str | None) -> None:
     """Check an archive whole, then merge it into this store (clashes become conflicts; a bad archive changes nothing)."""
     from .seasons import import_archive
-    from .settings import ServerSettings
-    from .store import ServerStore
     from .validation import run_validation
 
-    with ServerStore.open(database_url or ServerSettings().database_url) as store:
+    with _server_store(database_url) as store:
         r = import_archive(store, file)
         run_validation(store)
     click.echo(f"imported {file.name}: {r['applied']} new versions ({r['already_held']} already here), "
                f"{r['rows_written']} rows written, {r['conflicts_open']} conflicts open "
                f"({r['number_clashes']} number clashes); new number blocks start above {r['number_floor']}")
-
-
-def _server_store(database_url: str | None) -> Any:
-    from .settings import ServerSettings
-    from .store import ServerStore
-
-    return ServerStore.open(database_url or ServerSettings().database_url)
 
 
 def _public_url(server: str | None) -> tuple[str, str | None]:

@@ -29,6 +29,7 @@ from pydantic import ValidationError
 
 from schema.errors import BundleInvalid
 from schema.sync import SERVER_OWNED, Version
+from schema.sync.bundle import open_checked_zip
 from schema.sync.replica import insert_versions, load_identity, materialize, retry_pending, row_to_version, state_get, state_set
 from schema.sync.tables import field_version, open_conflict, pending_row
 
@@ -84,20 +85,12 @@ def write_archive(store: ServerStore, path: Path, *, progress: Callable[[int, in
 def read_archive(path: Path) -> tuple[dict[str, Any], list[Version]]:
     """Check the whole archive; ``BundleInvalid`` names what is wrong."""
     path = Path(path)
-    try:
-        z = zipfile.ZipFile(path)
-    except (zipfile.BadZipFile, OSError) as exc:
-        raise BundleInvalid(f"{path.name} is not a readable season archive ({exc}); write it again from the old store") from None
+    z, manifest = open_checked_zip(path, what="season archive", again="write it again from the old store")
     with z:
-        bad = z.testzip()
-        if bad is not None:
-            raise BundleInvalid(f"{path.name} is damaged (entry {bad} fails its checksum); write it again from the old store")
         try:
-            manifest = json.loads(z.read("manifest.json"))
             raw = z.read("versions.jsonl")
-        except (KeyError, ValueError):
-            raise BundleInvalid(f"{path.name} has no readable manifest or version log; it is not a season archive "
-                                "or it was cut short") from None
+        except KeyError:
+            raise BundleInvalid(f"{path.name} has no version log; it is not a season archive or it was cut short") from None
     if manifest.get("format") != ARCHIVE_FORMAT:
         raise BundleInvalid(f"{path.name} is not a season archive (format {manifest.get('format')!r})")
     if manifest.get("format_version") != ARCHIVE_VERSION:

@@ -25,7 +25,7 @@ from pydantic import ValidationError
 from ..errors import BundleInvalid
 from .versions import Version, batch_hash
 
-__all__ = ["BUNDLE_FORMAT", "BUNDLE_VERSION", "read_bundle", "write_bundle"]
+__all__ = ["BUNDLE_FORMAT", "BUNDLE_VERSION", "open_checked_zip", "read_bundle", "write_bundle"]
 
 BUNDLE_FORMAT = "baulk-bundle"
 BUNDLE_VERSION = 1
@@ -58,21 +58,33 @@ def write_bundle(path: Path, *, device: uuid.UUID, label: str, token: str,
     return manifest
 
 
-def read_bundle(path: Path, token_hash_of: Callable[[uuid.UUID], str | None]) -> tuple[dict[str, Any], list[tuple[int, list[Version]]]]:
-    """Check the whole bundle and return its manifest and batches; ``BundleInvalid`` names what is wrong."""
+def open_checked_zip(path: Path, *, what: str, again: str) -> tuple[zipfile.ZipFile, dict[str, Any]]:
+    """Open a Baulk zip (bundle, season archive), check every entry's checksum and read its manifest;
+    ``BundleInvalid`` says which, and ``again`` (e.g. "copy it from the tablet again") says what to do."""
     path = Path(path)
     try:
         z = zipfile.ZipFile(path)
     except (zipfile.BadZipFile, OSError) as exc:
-        raise BundleInvalid(f"{path.name} is not a readable bundle ({exc}); copy it from the tablet again") from None
-    with z:
+        raise BundleInvalid(f"{path.name} is not a readable {what} ({exc}); {again}") from None
+    try:
         bad = z.testzip()
         if bad is not None:
-            raise BundleInvalid(f"{path.name} is damaged (entry {bad} fails its checksum); copy it from the tablet again")
+            raise BundleInvalid(f"{path.name} is damaged (entry {bad} fails its checksum); {again}")
         try:
             manifest = json.loads(z.read("manifest.json"))
         except (KeyError, ValueError):
-            raise BundleInvalid(f"{path.name} has no readable manifest; it is not a Baulk bundle or it was cut short") from None
+            raise BundleInvalid(f"{path.name} has no readable manifest; it is not a Baulk {what} or it was cut short") from None
+    except BaseException:
+        z.close()
+        raise
+    return z, manifest
+
+
+def read_bundle(path: Path, token_hash_of: Callable[[uuid.UUID], str | None]) -> tuple[dict[str, Any], list[tuple[int, list[Version]]]]:
+    """Check the whole bundle and return its manifest and batches; ``BundleInvalid`` names what is wrong."""
+    path = Path(path)
+    z, manifest = open_checked_zip(path, what="bundle", again="copy it from the tablet again")
+    with z:
         if manifest.get("format") != BUNDLE_FORMAT:
             raise BundleInvalid(f"{path.name} is not a Baulk bundle (format {manifest.get('format')!r})")
         if manifest.get("format_version") != BUNDLE_VERSION:
