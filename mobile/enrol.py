@@ -8,6 +8,8 @@ builds its HTTP client to accept exactly that certificate (the app does; tests u
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
+import ssl
 import uuid
 from typing import Any
 from urllib.parse import parse_qs, urlsplit
@@ -19,7 +21,7 @@ from schema.records import Device
 
 from .store import TabletStore
 
-__all__ = ["enrol", "parse_enrol_line"]
+__all__ = ["enrol", "parse_enrol_line", "pinned_context"]
 
 
 def parse_enrol_line(line: str) -> dict[str, str]:
@@ -32,6 +34,30 @@ def parse_enrol_line(line: str) -> dict[str, str]:
     if "code" not in out:
         raise EnrolmentRefused("the scanned enrolment code holds no code; scan it again or type the code")
     return out
+
+
+def pinned_context(server_url: str, sha256: str, *, timeout_s: float = 10.0) -> ssl.SSLContext:
+    """A TLS context that trusts exactly the certificate whose SHA-256 fingerprint the enrolment code carried.
+
+    The server's certificate is fetched once (no secret is sent), its fingerprint compared; the context then
+    accepts that certificate alone on every later connection (a partial chain: the leaf is the trust anchor),
+    so a stranger's certificate on the camp Wi-Fi is refused before the code or the token leaves the tablet.
+    """
+    parts = urlsplit(server_url)
+    if parts.scheme != "https" or not parts.hostname:
+        raise EnrolmentRefused(f"{server_url} is not an https address; a pinned certificate needs one")
+    try:
+        pem = ssl.get_server_certificate((parts.hostname, parts.port or 443), timeout=timeout_s)
+    except OSError as exc:
+        raise SyncError(f"cannot reach {server_url} to check its certificate ({exc}); check the Wi-Fi") from None
+    der = ssl.PEM_cert_to_DER_cert(pem)
+    seen = ":".join(f"{b:02x}" for b in hashlib.sha256(der).digest())
+    if seen != sha256.lower():
+        raise EnrolmentRefused(f"the server at {server_url} shows a certificate that is not the camp server's "
+                               f"(fingerprint {seen[:23]}...); do not enrol here, tell the data manager")
+    context = ssl.create_default_context(cadata=pem)
+    context.verify_flags |= ssl.VERIFY_X509_PARTIAL_CHAIN
+    return context
 
 
 def enrol(store: TabletStore, http: httpx.Client, code: str) -> Device:

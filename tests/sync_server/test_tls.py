@@ -46,3 +46,28 @@ def test_make_cert_then_serve_https_that_a_pinned_client_trusts(tmp_path: Path) 
 def test_make_cert_needs_an_address() -> None:
     out = CliRunner().invoke(cli, ["server", "make-cert", "--out", "/tmp/never"])
     assert out.exit_code == 1 and "give the laptop's host name or address" in out.output
+
+
+def test_a_tablet_pins_the_fingerprint_from_its_code_and_refuses_another(tmp_path: Path) -> None:
+    from mobile.enrol import enrol, parse_enrol_line, pinned_context
+    from mobile.store import TabletStore
+    from schema.errors import EnrolmentRefused
+    from sync_server.tls import make_camp_certificates
+
+    made = make_camp_certificates(tmp_path / "tls", hostnames=["localhost"], ips=["127.0.0.1"])
+    other = make_camp_certificates(tmp_path / "stranger", hostnames=["localhost"], ips=["127.0.0.1"])
+    settings = ServerSettings(database_url=f"sqlite:///{tmp_path / 's.sqlite'}", tls_cert=Path(made["cert"]),
+                              tls_key=Path(made["key"]))
+    app = create_app(settings)
+    with serve_in_thread(app, tls=(made["cert"], made["key"])) as base:
+        manager = app.state.store.add_device(label="MGR", role="manager")[1]
+        with httpx.Client(base_url=base, verify=ssl.create_default_context(cafile=made["ca"])) as http:
+            line = http.post("/v1/devices", json={"label": "TAB-1", "role": "recorder"},
+                             headers={"Authorization": f"Bearer {manager}"}).json()["enrol_line"]
+        scanned = parse_enrol_line(line)
+        assert scanned["server"] == base and scanned["sha256"] == made["fingerprint"]
+        with httpx.Client(base_url=base, verify=pinned_context(base, scanned["sha256"])) as http:
+            device = enrol(TabletStore.open(tmp_path / "tab.sqlite"), http, scanned["code"])
+        assert device.label == "TAB-1"
+        with pytest.raises(EnrolmentRefused, match="not the camp server's"):
+            pinned_context(base, other["fingerprint"])
