@@ -216,6 +216,25 @@ def bundle_import(file: Path, database_url: str | None) -> None:
                + (f", {r['replayed']} already applied" if r["replayed"] else ""))
 
 
+@cli.command("export")
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True, help="Folder to write into.")
+@click.option("--seasons", "seasons", multiple=True, help="Season label to include (repeatable) [default: all].")
+@click.option("--strict", is_flag=True, help="Leave out every find an error-severity check names (listed in excluded.csv).")
+@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+def export(out: Path, seasons: tuple[str, ...], strict: bool, database_url: str | None) -> None:
+    """Write the analyst's files: counts and densities per horizon and unit, finds, excluded finds, volumes,
+    Darwin Core occurrences, a GeoPackage, a Frictionless data package and a manifest."""
+    from .exports import run_export
+
+    with _server_store(database_url) as store:
+        m = run_export(store, out, seasons=list(seasons) or None, strict=strict,
+                       progress=lambda msg: click.echo(f"[export] {msg}", err=True))
+    c = m["counts"]
+    click.echo(f"wrote {out}: {c['finds_included']} finds counted, {c['finds_excluded']} left out (excluded.csv), "
+               f"{c['locations_withheld']} locations withheld; seasons {', '.join(m['seasons'])}; "
+               f"{'strict' if strict else 'flagged finds included with their issue codes'}")
+
+
 @cli.group()
 def season() -> None:
     """Carry one server store's work into another: last season's units, finds and numbering into this one."""

@@ -1,0 +1,139 @@
+"""What analysts count: finds per horizon (and per unit) by category, material and recovery, with the excavated and
+sieved volumes they came from, and which finds are left out and why. Plain functions over records and issues.
+
+- Excavated volume of a spit is its area times its thickness (m3); a unit's and a horizon's are the sums over
+  their spits. Sieved volume is the recorded sieved litres, summed the same way.
+- Densities: finds (and items, a find's ``count``) per m3 of excavated volume, and per 10 L of sieved volume
+  for sieved finds only. A volume of zero or none gives no density (an empty cell), never an infinity.
+- Plotted, sieved, surface and core finds are counted apart (``recovery``): they were recovered differently.
+- Exclusion: a voided find is always left out (code ``VOIDED``). In strict mode a find any error-severity
+  check names is left out too, with that check's code and message. Otherwise such finds are counted, and carry
+  their issue codes.
+"""
+
+from __future__ import annotations
+
+import uuid
+from collections import defaultdict
+from dataclasses import dataclass, field
+from typing import Any, Iterable
+
+from .records import Find, Horizon, Spit, Unit
+from .strata.issues import Issue
+
+__all__ = ["CountRow", "Excluded", "Selection", "count_rows", "select_finds", "spit_volume_m3", "unit_volumes"]
+
+
+def spit_volume_m3(spit: Spit) -> float:
+    """Area (m2) times thickness (m)."""
+    return spit.area_m2 * (spit.top_z - spit.bottom_z)
+
+
+@dataclass(frozen=True)
+class Volume:
+    excavated_m3: float = 0.0
+    sieved_l: float = 0.0
+    spits: int = 0
+
+    def __add__(self, other: "Volume") -> "Volume":
+        return Volume(self.excavated_m3 + other.excavated_m3, self.sieved_l + other.sieved_l, self.spits + other.spits)
+
+
+def unit_volumes(spits: Iterable[Spit]) -> dict[uuid.UUID, Volume]:
+    out: dict[uuid.UUID, Volume] = defaultdict(Volume)
+    for s in spits:
+        out[s.unit_id] = out[s.unit_id] + Volume(spit_volume_m3(s), s.sieved_volume_l or 0.0, 1)
+    return dict(out)
+
+
+@dataclass(frozen=True)
+class Excluded:
+    find: Find
+    code: str
+    message: str
+
+
+@dataclass
+class Selection:
+    included: list[Find] = field(default_factory=list)
+    excluded: list[Excluded] = field(default_factory=list)
+    issue_codes: dict[uuid.UUID, list[str]] = field(default_factory=dict)  # included finds' open issues
+
+
+def select_finds(finds: Iterable[Find], issues: Iterable[Issue], *, strict: bool) -> Selection:
+    """Which finds the tables count, and every left-out find with its reason."""
+    by_find: dict[str, list[Issue]] = defaultdict(list)
+    for i in issues:
+        if i.record == "find" and i.record_id:
+            by_find[i.record_id].append(i)
+    out = Selection()
+    for f in finds:
+        mine = by_find.get(str(f.id), [])
+        if f.voided:
+            out.excluded.append(Excluded(f, "VOIDED", f"voided: {f.void_reason or 'no reason given'}"))
+            continue
+        errors = [i for i in mine if i.severity == "error"]
+        if strict and errors:
+            out.excluded.append(Excluded(f, errors[0].code, errors[0].message))
+            continue
+        out.included.append(f)
+        if mine:
+            out.issue_codes[f.id] = sorted({i.code for i in mine})
+    return out
+
+
+@dataclass(frozen=True)
+class CountRow:
+    group: tuple[str, ...]  # (horizon code,) or (horizon code, unit code), then category, material, recovery
+    finds: int
+    items: int
+    weight_g: float | None
+    excavated_m3: float | None
+    sieved_l: float | None
+
+    @property
+    def per_m3(self) -> float | None:
+        return self.finds / self.excavated_m3 if self.excavated_m3 else None
+
+    @property
+    def per_10l(self) -> float | None:
+        sieved = self.group[-1] == "sieved"
+        return self.finds / self.sieved_l * 10 if sieved and self.sieved_l else None
+
+    def as_dict(self, names: tuple[str, ...]) -> dict[str, Any]:
+        return {**dict(zip(names, self.group)), "finds": self.finds, "items": self.items, "weight_g": self.weight_g,
+                "excavated_m3": self.excavated_m3, "sieved_l": self.sieved_l, "per_m3": self.per_m3,
+                "per_10l": self.per_10l}
+
+
+def count_rows(finds: Iterable[Find], units: Iterable[Unit], horizons: Iterable[Horizon], spits: Iterable[Spit], *,
+               by_unit: bool = False) -> list[CountRow]:
+    """Counts per horizon (and unit) x category x material x recovery, with the volumes of that horizon (unit).
+
+    Finds in a unit with no horizon count under the horizon code ``""``. Weight is the sum of recorded
+    weights, or none when no find of the group has one.
+    """
+    unit_by_id = {u.id: u for u in units}
+    horizon_code = {h.id: h.code for h in horizons}
+    vols = unit_volumes(spits)
+
+    def place(unit_id: uuid.UUID) -> tuple[str, ...]:
+        u = unit_by_id.get(unit_id)
+        h = horizon_code.get(u.horizon_id, "") if u and u.horizon_id else ""
+        return (h, u.code if u else str(unit_id)) if by_unit else (h,)
+
+    volume: dict[tuple[str, ...], Volume] = defaultdict(Volume)
+    for uid, v in vols.items():
+        volume[place(uid)] = volume[place(uid)] + v
+    groups: dict[tuple[str, ...], list[Find]] = defaultdict(list)
+    for f in finds:
+        groups[(*place(f.unit_id), f.category, f.material, f.recovery)].append(f)
+    out = []
+    for key in sorted(groups):
+        fs = groups[key]
+        v = volume.get(key[:-3])
+        weights = [f.weight_g for f in fs if f.weight_g is not None]
+        out.append(CountRow(key, len(fs), sum(f.count for f in fs), round(sum(weights), 3) if weights else None,
+                            round(v.excavated_m3, 6) if v and v.spits else None,
+                            round(v.sieved_l, 3) if v and v.spits else None))
+    return out

@@ -1,0 +1,196 @@
+"""Exports of the demo site, each file opened back by an outside reader: frictionless for the data package,
+a GDAL-based reader (pyogrio) for the GeoPackage, pandas for the counts, the kept Darwin Core term list."""
+
+from __future__ import annotations
+
+import csv
+import json
+import shutil
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from sync_server.cli import cli
+
+
+@pytest.fixture(scope="module")
+def exported(demo_out: Path, tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    db = tmp_path_factory.mktemp("export") / "server.sqlite"
+    shutil.copy(demo_out / "server.sqlite", db)
+    out = {}
+    for mode in ("plain", "strict"):
+        folder = db.parent / mode
+        args = ["export", "--out", str(folder), "--db", f"sqlite:///{db}"] + (["--strict"] if mode == "strict" else [])
+        r = CliRunner().invoke(cli, args)
+        assert r.exit_code == 0, r.output
+        out[mode] = folder
+    return out
+
+
+def _rows(path: Path) -> list[dict[str, str]]:
+    with path.open(newline="") as fh:
+        return list(csv.DictReader(fh))
+
+
+def test_the_data_package_is_valid_and_a_broken_copy_is_not(exported: dict[str, Path], tmp_path: Path) -> None:
+    from frictionless import Package  # the Frictionless Data reference library (frictionlessdata.io)
+
+    for folder in exported.values():
+        report = Package(str(folder / "datapackage.json")).validate()
+        assert report.valid, report.flatten(["rowNumber", "fieldName", "type", "note"])[:5]
+    broken = tmp_path / "broken"
+    shutil.copytree(exported["plain"], broken)
+    with (broken / "counts_by_horizon.csv").open("a") as fh:
+        fh.write("H9,artifact,obsidian,plotted,not-a-number,1,,,,,\n")
+    report = Package(str(broken / "datapackage.json")).validate()
+    assert not report.valid
+    assert "type-error" in {e[0] for e in report.flatten(["type"])}
+
+
+def test_strict_mode_leaves_out_flagged_finds_and_accounts_for_every_one(exported: dict[str, Path]) -> None:
+    plain, strict = exported["plain"], exported["strict"]
+    m_plain = json.loads((plain / "manifest.json").read_text())
+    m_strict = json.loads((strict / "manifest.json").read_text())
+    for m, folder in ((m_plain, plain), (m_strict, strict)):
+        c = m["counts"]
+        assert c["finds_included"] + c["finds_excluded"] == c["finds_total"] == 381  # the demo's finds on the server
+        assert len(_rows(folder / "finds.csv")) == c["finds_included"]
+        assert len(_rows(folder / "excluded.csv")) == c["finds_excluded"]
+    # voided finds are always out; strict also leaves out the finds the checks call errors, each with its code
+    assert {r["code"] for r in _rows(plain / "excluded.csv")} == {"VOIDED"}
+    strict_codes = {r["code"] for r in _rows(strict / "excluded.csv")}
+    assert "VOIDED" in strict_codes and len(strict_codes) > 1
+    flagged = [r for r in _rows(plain / "finds.csv") if r["issues"]]
+    assert flagged and m_plain["counts"]["finds_included"] > m_strict["counts"]["finds_included"]
+    # every file the manifest lists is there with the hash it gives
+    import hashlib
+
+    for name, info in m_plain["files"].items():
+        assert hashlib.sha256((plain / name).read_bytes()).hexdigest() == info["sha256"], name
+
+
+def test_counts_match_pandas_groupby_over_the_same_rows(exported: dict[str, Path]) -> None:
+    import pandas as pd  # an outside reference for the counting
+
+    folder = exported["plain"]
+    finds = pd.read_csv(folder / "finds.csv", keep_default_na=False, dtype={"horizon": str})
+    ours = pd.read_csv(folder / "counts_by_horizon.csv", keep_default_na=False, dtype={"horizon": str})
+    theirs = finds.groupby(["horizon", "category", "material", "recovery"]).agg(
+        finds=("id", "count"), items=("count", "sum")).reset_index()
+    merged = ours.merge(theirs, on=["horizon", "category", "material", "recovery"], suffixes=("", "_pd"), how="outer")
+    assert len(merged) == len(ours) == len(theirs)
+    assert (merged["finds"] == merged["finds_pd"]).all() and (merged["items"] == merged["items_pd"]).all()
+    # densities are the counts over the horizon's volume
+    vols = pd.read_csv(folder / "volumes.csv", keep_default_na=False, dtype={"horizon": str})
+    has_volume = ours[ours["excavated_m3"] != ""]
+    assert len(has_volume) > 0
+    for _, row in has_volume.iterrows():
+        v = pd.to_numeric(vols[vols["horizon"] == row["horizon"]]["excavated_m3"], errors="coerce").sum()
+        assert float(row["excavated_m3"]) == pytest.approx(v, rel=1e-6)
+        assert float(row["per_m3"]) == pytest.approx(row["finds"] / v, rel=1e-6)
+
+
+def test_spit_volume_by_hand() -> None:
+    import uuid
+
+    from schema.analysis import spit_volume_m3, unit_volumes
+    from schema.records import Spit
+
+    # a 1 m2 spit 5 cm thick is 0.05 m3 = 50 L (common practice, no source: it is the definition of the volume)
+    s = Spit(unit_id=uuid.uuid4(), number=1, top_z=100.00, bottom_z=99.95, area_m2=1.0, sieved_volume_l=48.0)
+    assert spit_volume_m3(s) * 1000 == pytest.approx(50.0)
+    two = unit_volumes([s, s.model_copy(update={"id": uuid.uuid4(), "number": 2})])
+    assert two[s.unit_id].excavated_m3 == pytest.approx(0.1) and two[s.unit_id].sieved_l == 96.0
+
+
+def test_the_geopackage_reads_back_with_a_gdal_reader(exported: dict[str, Path], demo_out: Path) -> None:
+    import pyogrio  # GDAL/OGR bindings: the outside reader
+
+    gpkg = exported["plain"] / "finds.gpkg"
+    layers = {name: gtype for name, gtype in pyogrio.list_layers(gpkg)}
+    assert layers == {"finds": "Point Z", "trenches": "Polygon", "level_points": "Point Z"}
+    info = pyogrio.read_info(gpkg, layer="finds")
+    assert info["crs"] == "EPSG:32736"  # the demo site's CRS: UTM zone 36S
+    m = json.loads((exported["plain"] / "manifest.json").read_text())
+    assert info["features"] == m["counts"]["geopackage_layers"]["finds"] > 0
+    assert pyogrio.read_info(gpkg, layer="trenches")["features"] == 3
+    # coordinates: the layer's points are the finds' grid positions carried into UTM by the fitted site grid
+    _meta, _fids, geometry, fields = pyogrio.raw.read(gpkg, layer="finds")
+    import shapely
+
+    pts = shapely.from_wkb(geometry)
+    finds = {r["id"]: r for r in _rows(exported["plain"] / "finds.csv")}
+    from schema.records import Site
+    from schema.survey.grid import grid_to_crs
+    from sync_server.store import ServerStore
+
+    with ServerStore.open(f"sqlite:///{demo_out / 'server.sqlite'}", upgrade=False) as st:
+        grid = st.list(Site)[0].grid
+    fid = fields[0][0]
+    x, y = grid_to_crs(grid, [float(finds[fid]["e"])], [float(finds[fid]["n"])])
+    assert shapely.get_x(pts[0]) == pytest.approx(x[0], abs=1e-6)
+    assert shapely.get_y(pts[0]) == pytest.approx(y[0], abs=1e-6)
+    assert shapely.get_z(pts[0]) == pytest.approx(float(finds[fid]["z"]), abs=1e-9)
+    assert 150_000 < x[0] < 850_000 and 1_000_000 < y[0] < 10_000_000  # a UTM easting / southern northing
+
+
+def test_darwin_core_columns_are_published_terms(exported: dict[str, Path]) -> None:
+    from schema.dwc import DWC_TERMS
+
+    with (exported["plain"] / "dwc_occurrence.csv").open() as fh:
+        header = next(csv.reader(fh))
+    assert header == [t[0] for t in DWC_TERMS]
+    rows = _rows(exported["plain"] / "dwc_occurrence.csv")
+    assert rows and {r["basisOfRecord"] for r in rows} == {"FossilSpecimen"}
+    placed = [r for r in rows if r["decimalLatitude"]]
+    assert placed and all(-4 < float(r["decimalLatitude"]) < 0 for r in placed)  # the invented site lies just south of the equator
+    assert all(r["geodeticDatum"] == "EPSG:4326" for r in placed)
+
+
+def test_the_pictures_are_real_images(exported: dict[str, Path]) -> None:
+    from PIL import Image  # Pillow reads back what matplotlib wrote
+    import xml.etree.ElementTree as ET
+
+    folder = exported["plain"]
+    m = json.loads((folder / "manifest.json").read_text())
+    pics = m["counts"]["pictures"]
+    assert {"harris_matrix.svg", "harris_matrix.png", "plan_TR1.png", "section_TR1.png"} <= set(pics)
+    for name in pics:
+        if name.endswith(".png"):
+            with Image.open(folder / name) as img:
+                assert img.format == "PNG" and img.size[0] > 400 and img.size[1] > 300
+                assert len(img.convert("RGB").getcolors(1 << 22) or []) > 8, f"{name} is blank"
+    svg = ET.parse(folder / "harris_matrix.svg").getroot()
+    texts = "".join(svg.itertext())
+    assert svg.tag.endswith("svg") and len(list(svg.iter())) > 50  # a drawing, not an empty page
+    del texts
+
+
+def test_matrix_layout_puts_later_units_above_earlier() -> None:
+    import uuid
+
+    from schema.records import Relation, Unit
+    from schema.strata.matrix import build_matrix
+    from sync_server.export_pictures import matrix_layout
+
+    site, trench = uuid.uuid4(), uuid.uuid4()
+    import datetime as dt
+
+    units = [Unit(site_id=site, trench_id=trench, code=c, kind="deposit", opened_on=dt.date(2026, 7, 1), recorder="AK")
+             for c in ("101", "102", "103", "104")]
+    by = {u.code: u for u in units}
+    rel = [Relation(site_id=site, kind="above", upper_unit_id=by[a].id, lower_unit_id=by[b].id)
+           for a, b in (("101", "102"), ("102", "103"), ("101", "104"), ("104", "103"))]
+    m = build_matrix(units, rel)
+    assert matrix_layout(m).row_of(m.label) == {"101": 0, "102": 1, "104": 1, "103": 2}
+    # a relation typed the wrong way round makes a cycle: its units share one box, the rest still layered
+    wrong = rel + [Relation(site_id=site, kind="above", upper_unit_id=by["103"].id, lower_unit_id=by["101"].id)]
+    cyclic = build_matrix(units, wrong)
+    assert cyclic.reduced is None
+    assert matrix_layout(cyclic).row_of(cyclic.label) == {"101 / 102 / 103 / 104": 0}
+    extra = Unit(site_id=site, trench_id=trench, code="105", kind="deposit", opened_on=dt.date(2026, 7, 1), recorder="AK")
+    loop = [Relation(site_id=site, kind="above", upper_unit_id=by["102"].id, lower_unit_id=by["101"].id),
+            rel[0], Relation(site_id=site, kind="above", upper_unit_id=by["101"].id, lower_unit_id=extra.id)]
+    m2 = build_matrix([*units, extra], loop)
+    assert matrix_layout(m2).row_of(m2.label) == {"101 / 102": 0, "103": 0, "104": 0, "105": 1}
