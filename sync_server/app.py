@@ -41,6 +41,7 @@ ROUTE_ROLES: dict[str, str] = {
     "POST /v1/devices": "manager",
     "POST /v1/devices/{device_id}/revoke": "manager",
     "GET /v1/audit": "manager",
+    "GET /v1/exports/latest.zip": "manager, analyst",
 }
 
 _STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403,
@@ -134,9 +135,9 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
             site_codes=sorted(s.code for s in st.list(Site)),
         )
 
-    from .routes import devices, issues, sync
+    from .routes import devices, exports, issues, sync
 
-    for module in (issues, sync, devices):
+    for module in (issues, sync, devices, exports):
         app.include_router(module.router, responses=ERROR_RESPONSES)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     return app

@@ -4,6 +4,7 @@ Darwin Core occurrences with WGS 84 coordinates (site grid -> CRS by the fitted 
 from __future__ import annotations
 
 import json
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -40,8 +41,10 @@ def write_geopackage(path: Path, site: Site, grid: GridTransform | None, trenche
         wkb = shapely.to_wkb(np.asarray(geoms, dtype=object), output_dimension=3 if gtype.endswith("Z") else 2)
         names = list(fields)
         data = [np.asarray(fields[k], dtype=dtype[k]) for k in names]
-        pyogrio.raw.write(str(path), wkb, data, names, layer=name, driver="GPKG", geometry_type=gtype, crs=crs,
-                          append=append)
+        with warnings.catch_warnings():  # no CRS is deliberate when the site grid is not tied to one (manifest says so)
+            warnings.filterwarnings("ignore", message="'crs' was not provided")
+            pyogrio.raw.write(str(path), wkb, data, names, layer=name, driver="GPKG", geometry_type=gtype, crs=crs,
+                              append=append)
         append = True
         counts[name] = len(geoms)
 

@@ -189,6 +189,8 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
         "software": f"baulk {__version__}", "site": site.code, "seasons": sorted(s.label for s in chosen),
         "strict": strict, "created": dt.datetime.now(dt.timezone.utc).isoformat(),
         "crs": f"EPSG:{site.crs_epsg}" if grid else None,
+        "crs_note": None if grid else "the site grid is not tied to a CRS yet (fit it from control points): the "
+                                      "GeoPackage is in site grid metres and Darwin Core rows carry no coordinates",
         "counts": {"finds_total": len(finds), "finds_included": len(sel.included), "finds_excluded": len(sel.excluded),
                    "locations_withheld": sum(1 for f in sel.included if f.human_remains),
                    "rows": rows, "geopackage_layers": layers, "pictures": [p.name for p in pictures]},

@@ -194,3 +194,29 @@ def test_matrix_layout_puts_later_units_above_earlier() -> None:
             rel[0], Relation(site_id=site, kind="above", upper_unit_id=by["101"].id, lower_unit_id=extra.id)]
     m2 = build_matrix([*units, extra], loop)
     assert matrix_layout(m2).row_of(m2.label) == {"101 / 102": 0, "103": 0, "104": 0, "105": 1}
+
+
+def test_an_analyst_downloads_the_export_and_a_recorder_cannot(demo_out: Path, tmp_path: Path) -> None:
+    import io
+    import zipfile
+
+    from fastapi.testclient import TestClient
+
+    from sync_server.app import create_app
+    from sync_server.store import ServerStore
+
+    db = tmp_path / "server.sqlite"
+    shutil.copy(demo_out / "server.sqlite", db)
+    store = ServerStore.open(f"sqlite:///{db}")
+    analyst = store.add_device(label="AN-1", role="analyst")[1]
+    recorder = store.add_device(label="TAB-X", role="recorder")[1]
+    with TestClient(create_app(store=store)) as http:
+        r = http.get("/v1/exports/latest.zip", params={"strict": "true"}, headers={"Authorization": f"Bearer {analyst}"})
+        assert r.status_code == 200 and r.headers["content-type"] == "application/zip"
+        names = set(zipfile.ZipFile(io.BytesIO(r.content)).namelist())
+        assert {"baulk-export/manifest.json", "baulk-export/finds.gpkg", "baulk-export/datapackage.json"} <= names
+        manifest = json.loads(zipfile.ZipFile(io.BytesIO(r.content)).read("baulk-export/manifest.json"))
+        assert manifest["strict"] is True
+        refused = http.get("/v1/exports/latest.zip", headers={"Authorization": f"Bearer {recorder}"})
+        assert refused.status_code == 403
+    store.close()
