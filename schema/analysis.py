@@ -21,7 +21,8 @@ from typing import Any, Iterable
 from .records import Find, Horizon, Spit, Unit
 from .strata.issues import Issue
 
-__all__ = ["CountRow", "Excluded", "Selection", "count_rows", "select_finds", "spit_volume_m3", "unit_volumes"]
+__all__ = ["CountRow", "Excluded", "Selection", "Tally", "count_rows", "select_finds", "spit_volume_m3", "tally",
+           "unit_volumes"]
 
 
 def spit_volume_m3(spit: Spit) -> float:
@@ -106,34 +107,58 @@ class CountRow:
                 "per_10l": self.per_10l}
 
 
-def count_rows(finds: Iterable[Find], units: Iterable[Unit], horizons: Iterable[Horizon], spits: Iterable[Spit], *,
-               by_unit: bool = False) -> list[CountRow]:
-    """Counts per horizon (and unit) x category x material x recovery, with the volumes of that horizon (unit).
+@dataclass(frozen=True)
+class Tally:
+    """What a group of finds adds up to."""
 
-    Finds in a unit with no horizon count under the horizon code ``""``. Weight is the sum of recorded
-    weights, or none when no find of the group has one.
-    """
+    finds: int
+    items: int
+    weight_g: float | None  # sum of recorded weights; None when no find of the group was weighed
+
+
+Key = tuple[str, ...]  # (horizon[, unit], category, material, recovery)
+
+
+def tally(finds: Iterable[Find], units: Iterable[Unit], horizons: Iterable[Horizon], *,
+          by_unit: bool = False) -> dict[Key, Tally]:
+    """Group finds by horizon (and unit) x category x material x recovery. A unit with no horizon counts under
+    the horizon code ``""``. (``sync_server.export_sql.tally_in_db`` is the same grouping done by the database.)"""
+    place = _placer(units, horizons, by_unit)
+    acc: dict[Key, list[Any]] = {}
+    for f in finds:
+        a = acc.setdefault((*place(f.unit_id), f.category, f.material, f.recovery), [0, 0, 0.0, 0])
+        a[0] += 1
+        a[1] += f.count
+        if f.weight_g is not None:
+            a[2] += f.weight_g
+            a[3] += 1
+    return {k: Tally(n, items, round(w, 3) if weighed else None) for k, (n, items, w, weighed) in acc.items()}
+
+
+def _placer(units: Iterable[Unit], horizons: Iterable[Horizon], by_unit: bool) -> Any:
     unit_by_id = {u.id: u for u in units}
     horizon_code = {h.id: h.code for h in horizons}
-    vols = unit_volumes(spits)
 
     def place(unit_id: uuid.UUID) -> tuple[str, ...]:
         u = unit_by_id.get(unit_id)
         h = horizon_code.get(u.horizon_id, "") if u and u.horizon_id else ""
         return (h, u.code if u else str(unit_id)) if by_unit else (h,)
 
+    return place
+
+
+def count_rows(tallies: dict[Key, Tally], units: Iterable[Unit], horizons: Iterable[Horizon], spits: Iterable[Spit], *,
+               by_unit: bool = False) -> list[CountRow]:
+    """The tallies with the excavated and sieved volume of their horizon (unit), in key order."""
+    place = _placer(units, horizons, by_unit)
     volume: dict[tuple[str, ...], Volume] = defaultdict(Volume)
-    for uid, v in vols.items():
+    for uid, v in unit_volumes(spits).items():
         volume[place(uid)] = volume[place(uid)] + v
-    groups: dict[tuple[str, ...], list[Find]] = defaultdict(list)
-    for f in finds:
-        groups[(*place(f.unit_id), f.category, f.material, f.recovery)].append(f)
     out = []
-    for key in sorted(groups):
-        fs = groups[key]
+    for key in sorted(tallies):
+        t = tallies[key]
         v = volume.get(key[:-3])
-        weights = [f.weight_g for f in fs if f.weight_g is not None]
-        out.append(CountRow(key, len(fs), sum(f.count for f in fs), round(sum(weights), 3) if weights else None,
+        out.append(CountRow(key, t.finds, t.items, t.weight_g,
                             round(v.excavated_m3, 6) if v and v.spits else None,
                             round(v.sieved_l, 3) if v and v.spits else None))
     return out

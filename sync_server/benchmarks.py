@@ -98,3 +98,66 @@ benchmark(Bench(
     doc="the same batch sent again (answered from its stored ack) vs applying it; goal ratio <= 0.1",
 ))
 
+
+
+# -- export.horizon_counts: the per-horizon tallies in the database vs pandas over the same rows in memory ------
+def _setup_counts(size: int, work: Path) -> dict[str, Any]:
+    import random
+
+    import pandas as pd
+
+    from schema.records import Horizon, Unit
+    from schema.tables import metadata
+
+    demo = build_site()
+    store = ServerStore.open(f"sqlite:///{work / 'counts.sqlite'}")
+    with store.atomic():
+        for r in demo.setup_records():
+            store.add(r)
+    units = store.list(Unit)
+    horizon_code = {h.id: h.code for h in store.list(Horizon)}
+    rng = random.Random(4)
+    materials = {"artifact": ["obsidian", "chert", "basalt"], "fossil": ["bone", "tooth"], "sample": ["sediment"]}
+    rows, frame = [], {"horizon": [], "category": [], "material": [], "recovery": [], "count": []}
+    for i in range(size):
+        u = units[i % len(units)]
+        cat = rng.choice(["artifact", "artifact", "fossil", "sample"])
+        mat, rec, n = rng.choice(materials[cat]), rng.choice(["plotted", "sieved"]), rng.randint(1, 3)
+        rows.append({"id": uuid.UUID(int=i + 1), "number": i + 1, "site_id": demo.site.id, "season_id": demo.season.id,
+                     "trench_id": u.trench_id, "unit_id": u.id, "category": cat, "material": mat, "count": n,
+                     "recovery": rec, "position_source": "none", "found_at": dt_now(), "recorder": "AK", "notes": "",
+                     "photo_hashes": [], "voided": False, "human_remains": False})
+        frame["horizon"].append(horizon_code.get(u.horizon_id, "") if u.horizon_id else "")
+        for k, v in (("category", cat), ("material", mat), ("recovery", rec), ("count", n)):
+            frame[k].append(v)
+    with store.engine.begin() as conn:
+        conn.execute(metadata.tables["find"].insert(), rows)
+    df = pd.DataFrame(frame)
+    return {"store": store, "site": demo.site.id, "df": df, "report": {"finds": size}}
+
+
+def dt_now() -> Any:
+    import datetime as dt
+
+    return dt.datetime(2026, 7, 3, 9, 30, tzinfo=dt.timezone.utc)
+
+
+def _counts_db(state: dict[str, Any], work: Path, i: int) -> None:
+    from .export_sql import tally_in_db
+
+    with state["store"].read() as conn:
+        out = tally_in_db(conn, site_id=state["site"])
+    assert sum(t.finds for t in out.values()) == state["report"]["finds"]
+
+
+def _counts_pandas(state: dict[str, Any], work: Path, i: int) -> None:
+    g = state["df"].groupby(["horizon", "category", "material", "recovery"]).agg(
+        finds=("count", "size"), items=("count", "sum"))
+    assert int(g["finds"].sum()) == state["report"]["finds"]
+
+
+benchmark(Bench(
+    name="export.horizon_counts", baseline_name="pandas groupby over the same rows in memory", sizes=(100_000, 1_000_000),
+    setup=_setup_counts, subject=_counts_db, baseline=_counts_pandas, repeats=REPEATS,
+    doc="per-horizon x category x material x recovery tallies computed by SQLite; goal ratio <= 1.0",
+))

@@ -36,6 +36,7 @@ from schema.errors import RecordNotFound
 from schema.records import Find, Horizon, LevelPoint, Season, Site, Spit, Trench, Unit
 from schema.strata.validate import validate
 
+from .export_sql import tally_in_db
 from .store import ServerStore
 
 __all__ = ["RESOURCES", "run_export"]
@@ -169,7 +170,7 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
     tmp = out.with_name(out.name + ".part")
     shutil.rmtree(tmp, ignore_errors=True)
     tmp.mkdir(parents=True)
-    rows = _tables(tmp, site, data.trenches, units, horizons, spits, sel, say)
+    rows = _tables(store, tmp, site, season_ids, data.trenches, units, horizons, spits, sel, say)
     grid = site.grid  # site grid -> CRS; without it the GeoPackage stays in grid metres, with no CRS
     say("writing Darwin Core occurrences and the GeoPackage")
     from . import export_geo
@@ -207,8 +208,8 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
     return manifest
 
 
-def _tables(tmp: Path, site: Site, trenches: list[Trench], units: list[Unit], horizons: list[Horizon],
-            spits: list[Spit], sel: Selection, say: Progress) -> dict[str, int]:
+def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], trenches: list[Trench], units: list[Unit],
+            horizons: list[Horizon], spits: list[Spit], sel: Selection, say: Progress) -> dict[str, int]:
     unit_by_id = {u.id: u for u in units}
     trench_code = {t.id: t.code for t in trenches}
     horizon_code = {h.id: h.code for h in horizons}
@@ -236,11 +237,12 @@ def _tables(tmp: Path, site: Site, trenches: list[Trench], units: list[Unit], ho
          "spits": vols[u.id].spits if u.id in vols else 0,
          "excavated_m3": round(vols[u.id].excavated_m3, 6) if u.id in vols else None,
          "sieved_l": round(vols[u.id].sieved_l, 3) if u.id in vols else None} for u in units])
-    say("counting per horizon and per unit")
-    rows["counts_by_horizon"] = _write_csv(tmp / "counts_by_horizon.csv", "counts_by_horizon", [
-        r.as_dict(("horizon", "category", "material", "recovery"))
-        for r in count_rows(sel.included, units, horizons, spits)])
-    rows["counts_by_unit"] = _write_csv(tmp / "counts_by_unit.csv", "counts_by_unit", [
-        r.as_dict(("horizon", "unit", "category", "material", "recovery"))
-        for r in count_rows(sel.included, units, horizons, spits, by_unit=True)])
+    say("counting per horizon and per unit (in the database)")
+    for name, by_unit, names in (("counts_by_horizon", False, ("horizon", "category", "material", "recovery")),
+                                 ("counts_by_unit", True, ("horizon", "unit", "category", "material", "recovery"))):
+        with store.read() as conn:
+            tallies = tally_in_db(conn, site_id=site.id, season_ids=season_ids, by_unit=by_unit,
+                                  exclude=[x.find.id for x in sel.excluded if not x.find.voided])
+        rows[name] = _write_csv(tmp / f"{name}.csv", name, [
+            r.as_dict(names) for r in count_rows(tallies, units, horizons, spits, by_unit=by_unit)])
     return rows

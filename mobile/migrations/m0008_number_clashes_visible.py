@@ -3,7 +3,8 @@
 The find table loses ``UNIQUE (site_id, number)`` (an index on the pair replaces it) so that two finds sharing
 a number, pulled from two tablets, are both shown and listed as a ``duplicate_number`` conflict instead of one
 being held back; the tablet still refuses a duplicate number on save. (device_id, number) is indexed too (the
-highest number a device has used is asked at every sync). Open conflicts gain their kind.
+highest number a device has used is asked at every sync), and ``ix_find_tally`` covers the per-horizon tallies.
+Open conflicts gain their kind.
 
 SQLite cannot drop a constraint, so the table is rebuilt: the file's own CREATE statement minus the constraint,
 rows copied, old table dropped, new one renamed, indexes made again ("Making Other Kinds Of Table Schema
@@ -25,6 +26,8 @@ _INDEXES = (
     "CREATE INDEX ix_find_trench_id ON find (trench_id)",
     "CREATE INDEX ix_find_category ON find (category)",
     "CREATE INDEX ix_find_found_at ON find (found_at)",
+    "CREATE INDEX ix_find_tally ON find (site_id, unit_id, category, material, recovery, voided, season_id, count, "
+    "weight_g, id)",
 )
 
 

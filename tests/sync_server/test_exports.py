@@ -220,3 +220,22 @@ def test_an_analyst_downloads_the_export_and_a_recorder_cannot(demo_out: Path, t
         refused = http.get("/v1/exports/latest.zip", headers={"Authorization": f"Bearer {recorder}"})
         assert refused.status_code == 403
     store.close()
+
+
+def test_the_database_tallies_as_the_pure_function_does(demo_out: Path) -> None:
+    from schema.analysis import select_finds, tally
+    from schema.records import Find, Horizon, Site, Unit
+    from schema.strata.validate import validate
+    from sync_server.export_sql import tally_in_db
+    from sync_server.store import ServerStore
+
+    with ServerStore.open(f"sqlite:///{demo_out / 'server.sqlite'}", upgrade=False) as st:
+        site = st.list(Site)[0]
+        finds, units, horizons = st.list(Find), st.list(Unit), st.list(Horizon)
+        sel = select_finds(finds, validate(st.site_data()).issues, strict=True)
+        for by_unit in (False, True):
+            with st.read() as conn:
+                db = tally_in_db(conn, site_id=site.id, by_unit=by_unit,
+                                 exclude=[x.find.id for x in sel.excluded if not x.find.voided])
+            assert db == tally(sel.included, units, horizons, by_unit=by_unit)
+            assert sum(t.finds for t in db.values()) == len(sel.included)
