@@ -2,7 +2,9 @@
 sieved volumes they came from, and which finds are left out and why. Plain functions over records and issues.
 
 - Excavated volume of a spit is its area times its thickness (m3); a unit's and a horizon's are the sums over
-  their spits. Sieved volume is the recorded sieved litres, summed the same way.
+  their spits. A unit dug without spits but with level points on its top and bottom surfaces gets the volume
+  between the two surfaces over its trench's outline instead (midpoint rule on a 5 cm grid; exact for planes).
+  Sieved volume is the recorded sieved litres, summed the same way.
 - Densities: finds (and items, a find's ``count``) per m3 of excavated volume, and per 10 L of sieved volume
   for sieved finds only. A volume of zero or none gives no density (an empty cell), never an infinity.
 - Plotted, sieved, surface and core finds are counted apart (``recovery``): they were recovered differently.
@@ -18,11 +20,11 @@ from collections import defaultdict
 from dataclasses import dataclass, field
 from typing import Any, Iterable
 
-from .records import Find, Horizon, Spit, Unit
+from .records import Find, Horizon, LevelPoint, Spit, Unit
 from .strata.issues import Issue
 
-__all__ = ["CountRow", "Excluded", "Selection", "Tally", "count_rows", "select_finds", "spit_volume_m3", "tally",
-           "unit_volumes"]
+__all__ = ["CountRow", "Excluded", "Selection", "Tally", "Volume", "count_rows", "select_finds", "spit_volume_m3",
+           "surface_volume_m3", "tally", "unit_volumes"]
 
 
 def spit_volume_m3(spit: Spit) -> float:
@@ -35,15 +37,53 @@ class Volume:
     excavated_m3: float = 0.0
     sieved_l: float = 0.0
     spits: int = 0
+    from_surfaces: int = 0  # units whose volume came from their surfaces (no spits)
 
     def __add__(self, other: "Volume") -> "Volume":
-        return Volume(self.excavated_m3 + other.excavated_m3, self.sieved_l + other.sieved_l, self.spits + other.spits)
+        return Volume(self.excavated_m3 + other.excavated_m3, self.sieved_l + other.sieved_l, self.spits + other.spits,
+                      self.from_surfaces + other.from_surfaces)
+
+    @property
+    def known(self) -> bool:
+        return bool(self.spits or self.from_surfaces)
 
 
-def unit_volumes(spits: Iterable[Spit]) -> dict[uuid.UUID, Volume]:
+def surface_volume_m3(top: list[LevelPoint], bottom: list[LevelPoint], outline: list[tuple[float, float]], *,
+                      cell_m: float = 0.05) -> float:
+    """Volume between a unit's top and bottom surfaces over an outline: the thickness (never below zero) at the
+    centre of each ``cell_m`` square inside the outline, times the cell's area."""
+    import numpy as np
+
+    from .strata.geometry import Surface, points_in_ring
+
+    ring = np.asarray(outline, dtype=float)
+    (e0, n0), (e1, n1) = ring.min(axis=0), ring.max(axis=0)
+    xs = np.arange(e0 + cell_m / 2, e1, cell_m)
+    ys = np.arange(n0 + cell_m / 2, n1, cell_m)
+    gx, gy = (a.ravel() for a in np.meshgrid(xs, ys))
+    inside = points_in_ring(gx, gy, ring)
+    gx, gy = gx[inside], gy[inside]
+    zt, _ = Surface.from_points([(p.e, p.n, p.z) for p in top]).z_at(gx, gy)
+    zb, _ = Surface.from_points([(p.e, p.n, p.z) for p in bottom]).z_at(gx, gy)
+    return float(np.clip(np.nan_to_num(zt - zb), 0, None).sum() * cell_m * cell_m)
+
+
+def unit_volumes(spits: Iterable[Spit], *, units: Iterable[Unit] = (), levels: Iterable[LevelPoint] = (),
+                 outlines: dict[uuid.UUID, list[tuple[float, float]]] | None = None) -> dict[uuid.UUID, Volume]:
+    """Each unit's volume: from its spits, else (given ``units``, their level points and the trench
+    ``outlines`` by trench id) from its top and bottom surfaces."""
     out: dict[uuid.UUID, Volume] = defaultdict(Volume)
     for s in spits:
         out[s.unit_id] = out[s.unit_id] + Volume(spit_volume_m3(s), s.sieved_volume_l or 0.0, 1)
+    by_surface: dict[tuple[uuid.UUID, str], list[LevelPoint]] = defaultdict(list)
+    for p in levels:
+        by_surface[(p.unit_id, p.surface)].append(p)
+    for u in units:
+        top, bottom = by_surface.get((u.id, "top")), by_surface.get((u.id, "bottom"))
+        outline = (outlines or {}).get(u.trench_id)
+        if u.id in out or not top or not bottom or not outline:
+            continue
+        out[u.id] = Volume(surface_volume_m3(top, bottom, outline), 0.0, 0, 1)
     return dict(out)
 
 
@@ -147,18 +187,18 @@ def _placer(units: Iterable[Unit], horizons: Iterable[Horizon], by_unit: bool) -
     return place
 
 
-def count_rows(tallies: dict[Key, Tally], units: Iterable[Unit], horizons: Iterable[Horizon], spits: Iterable[Spit], *,
-               by_unit: bool = False) -> list[CountRow]:
+def count_rows(tallies: dict[Key, Tally], units: Iterable[Unit], horizons: Iterable[Horizon],
+               volumes: dict[uuid.UUID, Volume], *, by_unit: bool = False) -> list[CountRow]:
     """The tallies with the excavated and sieved volume of their horizon (unit), in key order."""
     place = _placer(units, horizons, by_unit)
     volume: dict[tuple[str, ...], Volume] = defaultdict(Volume)
-    for uid, v in unit_volumes(spits).items():
+    for uid, v in volumes.items():
         volume[place(uid)] = volume[place(uid)] + v
     out = []
     for key in sorted(tallies):
         t = tallies[key]
         v = volume.get(key[:-3])
         out.append(CountRow(key, t.finds, t.items, t.weight_g,
-                            round(v.excavated_m3, 6) if v and v.spits else None,
+                            round(v.excavated_m3, 6) if v and v.known else None,
                             round(v.sieved_l, 3) if v and v.spits else None))
     return out

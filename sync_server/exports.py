@@ -30,7 +30,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 from schema import __version__
-from schema.analysis import Selection, count_rows, select_finds, unit_volumes
+from schema.analysis import Selection, Volume, count_rows, select_finds, unit_volumes
 from schema.dwc import DWC_TERMS
 from schema.errors import RecordNotFound
 from schema.records import Find, Horizon, LevelPoint, Season, Site, Spit, Trench, Unit
@@ -73,6 +73,8 @@ RESOURCES: dict[str, tuple[str, list[tuple[str, str, str, dict[str, Any]]], list
     "volumes": ("Excavated and sieved volume per unit, from its spits", [
         ("unit", "string", "unit code", _ID), ("horizon", "string", "horizon code", {}),
         ("spits", "integer", "spits recorded", {"required": True, "minimum": 0}),
+        ("volume_from", "string", "spits, or surfaces (top and bottom level points over the trench outline)",
+         {"enum": ["spits", "surfaces"]}),
         ("excavated_m3", "number", "excavated volume, m3 (area x thickness summed over spits)", {"minimum": 0}),
         ("sieved_l", "number", "sieved volume, litres", {"minimum": 0}),
     ], ["unit"], []),
@@ -170,7 +172,9 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
     tmp = out.with_name(out.name + ".part")
     shutil.rmtree(tmp, ignore_errors=True)
     tmp.mkdir(parents=True)
-    rows = _tables(store, tmp, site, season_ids, data.trenches, units, horizons, spits, sel, say)
+    levels = [lp for lp in store.list(LevelPoint) if lp.unit_id in unit_ids]
+    volumes = unit_volumes(spits, units=units, levels=levels, outlines={t.id: list(t.outline) for t in data.trenches})
+    rows = _tables(store, tmp, site, season_ids, data.trenches, units, horizons, spits, volumes, sel, say)
     grid = site.grid  # site grid -> CRS; without it the GeoPackage stays in grid metres, with no CRS
     say("writing Darwin Core occurrences and the GeoPackage")
     from . import export_geo
@@ -178,8 +182,7 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
     rows["dwc_occurrence"] = _write_csv(tmp / "dwc_occurrence.csv", "dwc_occurrence",
                                         export_geo.dwc_rows(site, grid, data.trenches, units, horizons, sel))
     (tmp / "datapackage.json").write_text(json.dumps(_datapackage(site), indent=2))
-    layers = export_geo.write_geopackage(tmp / "finds.gpkg", site, grid, data.trenches, sel.included,
-                                         [lp for lp in store.list(LevelPoint) if lp.unit_id in unit_ids])
+    layers = export_geo.write_geopackage(tmp / "finds.gpkg", site, grid, data.trenches, sel.included, levels)
     say("drawing the Harris matrix and the trench plans and sections")
     from .export_pictures import draw_matrix, draw_trench_plots
 
@@ -209,7 +212,8 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
 
 
 def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], trenches: list[Trench], units: list[Unit],
-            horizons: list[Horizon], spits: list[Spit], sel: Selection, say: Progress) -> dict[str, int]:
+            horizons: list[Horizon], spits: list[Spit], vols: dict[Any, Volume], sel: Selection,
+            say: Progress) -> dict[str, int]:
     unit_by_id = {u.id: u for u in units}
     trench_code = {t.id: t.code for t in trenches}
     horizon_code = {h.id: h.code for h in horizons}
@@ -231,12 +235,12 @@ def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], tre
     rows["excluded"] = _write_csv(tmp / "excluded.csv", "excluded", [
         {"id": str(x.find.id), "number": x.find.number, **where(x.find), "code": x.code, "message": x.message}
         for x in sel.excluded])
-    vols = unit_volumes(spits)
     rows["volumes"] = _write_csv(tmp / "volumes.csv", "volumes", [
         {"unit": u.code, "horizon": horizon_code.get(u.horizon_id) if u.horizon_id else None,
          "spits": vols[u.id].spits if u.id in vols else 0,
+         "volume_from": ("spits" if vols[u.id].spits else "surfaces") if u.id in vols else None,
          "excavated_m3": round(vols[u.id].excavated_m3, 6) if u.id in vols else None,
-         "sieved_l": round(vols[u.id].sieved_l, 3) if u.id in vols else None} for u in units])
+         "sieved_l": round(vols[u.id].sieved_l, 3) if u.id in vols and vols[u.id].spits else None} for u in units])
     say("counting per horizon and per unit (in the database)")
     for name, by_unit, names in (("counts_by_horizon", False, ("horizon", "category", "material", "recovery")),
                                  ("counts_by_unit", True, ("horizon", "unit", "category", "material", "recovery"))):
@@ -244,5 +248,5 @@ def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], tre
             tallies = tally_in_db(conn, site_id=site.id, season_ids=season_ids, by_unit=by_unit,
                                   exclude=[x.find.id for x in sel.excluded if not x.find.voided])
         rows[name] = _write_csv(tmp / f"{name}.csv", name, [
-            r.as_dict(names) for r in count_rows(tallies, units, horizons, spits, by_unit=by_unit)])
+            r.as_dict(names) for r in count_rows(tallies, units, horizons, vols, by_unit=by_unit)])
     return rows

@@ -239,3 +239,29 @@ def test_the_database_tallies_as_the_pure_function_does(demo_out: Path) -> None:
                                  exclude=[x.find.id for x in sel.excluded if not x.find.voided])
             assert db == tally(sel.included, units, horizons, by_unit=by_unit)
             assert sum(t.finds for t in db.values()) == len(sel.included)
+
+
+def test_volume_between_surfaces_by_hand() -> None:
+    import uuid
+
+    from schema.analysis import surface_volume_m3, unit_volumes
+    from schema.records import LevelPoint, Unit
+
+    uid = uuid.uuid4()
+
+    def pts(surface: str, z) -> list[LevelPoint]:  # type: ignore[no-untyped-def]
+        return [LevelPoint(unit_id=uid, surface=surface, e=e, n=n, z=z(e, n)) for e, n in ((0, 0), (2, 0), (2, 2), (0, 2))]
+
+    square = [(0.0, 0.0), (2.0, 0.0), (2.0, 2.0), (0.0, 2.0)]
+    # flat 0.5 m thick over 2 m x 2 m: 2.0 m3 (hand computation)
+    assert surface_volume_m3(pts("top", lambda e, n: 100.0), pts("bottom", lambda e, n: 99.5), square) == pytest.approx(2.0)
+    # a top sloping 10 cm per metre in E over a flat bottom: mean thickness 0.6 m, 2.4 m3 (exact for a plane)
+    v = surface_volume_m3(pts("top", lambda e, n: 100.0 + 0.1 * e), pts("bottom", lambda e, n: 99.5), square)
+    assert v == pytest.approx(2.4, rel=1e-6)
+    import datetime as dt
+
+    unit = Unit(id=uid, site_id=uuid.uuid4(), trench_id=uuid.uuid4(), code="901", kind="deposit",
+                opened_on=dt.date(2026, 7, 1), recorder="AK")
+    vols = unit_volumes([], units=[unit], levels=pts("top", lambda e, n: 100.0) + pts("bottom", lambda e, n: 99.5),
+                        outlines={unit.trench_id: square})
+    assert vols[uid].excavated_m3 == pytest.approx(2.0) and vols[uid].from_surfaces == 1 and vols[uid].spits == 0
