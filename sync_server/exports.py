@@ -245,7 +245,8 @@ def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], tre
     for name, by_unit, names in (("counts_by_horizon", False, ("horizon", "category", "material", "recovery")),
                                  ("counts_by_unit", True, ("horizon", "unit", "category", "material", "recovery"))):
         with store.read() as conn:
-            tallies = tally_in_db(conn, site_id=site.id, season_ids=season_ids, by_unit=by_unit,
+            everything = season_ids == {s.id for s in store.list(Season, site_id=site.id)}
+            tallies = tally_in_db(conn, site_id=site.id, season_ids=None if everything else season_ids, by_unit=by_unit,
                                   exclude=[x.find.id for x in sel.excluded if not x.find.voided])
         rows[name] = _write_csv(tmp / f"{name}.csv", name, [
             r.as_dict(names) for r in count_rows(tallies, units, horizons, vols, by_unit=by_unit)])

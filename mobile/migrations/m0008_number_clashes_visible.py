@@ -26,8 +26,7 @@ _INDEXES = (
     "CREATE INDEX ix_find_trench_id ON find (trench_id)",
     "CREATE INDEX ix_find_category ON find (category)",
     "CREATE INDEX ix_find_found_at ON find (found_at)",
-    "CREATE INDEX ix_find_tally ON find (site_id, unit_id, category, material, recovery, voided, season_id, count, "
-    "weight_g, id)",
+    "CREATE INDEX ix_find_tally ON find (unit_id, category, material, recovery, voided, count, weight_g)",
 )
 
 

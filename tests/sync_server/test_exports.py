@@ -223,6 +223,8 @@ def test_an_analyst_downloads_the_export_and_a_recorder_cannot(demo_out: Path, t
 
 
 def test_the_database_tallies_as_the_pure_function_does(demo_out: Path) -> None:
+    import uuid
+
     from schema.analysis import select_finds, tally
     from schema.records import Find, Horizon, Site, Unit
     from schema.strata.validate import validate
@@ -239,6 +241,11 @@ def test_the_database_tallies_as_the_pure_function_does(demo_out: Path) -> None:
                                  exclude=[x.find.id for x in sel.excluded if not x.find.voided])
             assert db == tally(sel.included, units, horizons, by_unit=by_unit)
             assert sum(t.finds for t in db.values()) == len(sel.included)
+            with st.read() as conn:  # the season filter (read from the table) gives the same for the one season
+                seasons = {f.season_id for f in finds}
+                assert tally_in_db(conn, site_id=site.id, by_unit=by_unit, season_ids=seasons,
+                                   exclude=[x.find.id for x in sel.excluded if not x.find.voided]) == db
+                assert tally_in_db(conn, site_id=site.id, season_ids=[uuid.uuid4()]) == {}
 
 
 def test_volume_between_surfaces_by_hand() -> None:

@@ -27,8 +27,8 @@ def upgrade() -> None:
         batch_op.drop_constraint(op.f('uq_find_site_id_number'), type_='unique')
         batch_op.create_index(op.f('ix_find_site_id_number'), ['site_id', 'number'], unique=False)
         batch_op.create_index(op.f('ix_find_device_id_number'), ['device_id', 'number'], unique=False)
-        batch_op.create_index('ix_find_tally', ['site_id', 'unit_id', 'category', 'material', 'recovery', 'voided',
-                                                'season_id', 'count', 'weight_g', 'id'], unique=False)
+        batch_op.create_index('ix_find_tally', ['unit_id', 'category', 'material', 'recovery', 'voided', 'count',
+                                                'weight_g'], unique=False)
     with op.batch_alter_table('open_conflict') as batch_op:
         batch_op.add_column(sa.Column('kind', sa.String(length=20), server_default='concurrent', nullable=False,
                                       comment='concurrent | void (edits the void did not see) | duplicate_number (finds sharing a number)'))
