@@ -42,6 +42,13 @@ ROUTE_ROLES: dict[str, str] = {
     "POST /v1/devices/{device_id}/revoke": "manager",
     "GET /v1/audit": "manager",
     "GET /v1/exports/latest.zip": "manager, analyst",
+    # camp pages: a session cookie from signing in with a manager or analyst token (sync_server/web)
+    "GET /camp/sign-in": "public (the sign-in form)",
+    "POST /camp/sign-in": "public (a manager or analyst token in the form)",
+    "POST /camp/sign-out": "page: manager, analyst",
+    "GET /camp/": "page: manager, analyst",
+    "GET /camp/conflicts": "page: manager, analyst",
+    "POST /camp/conflicts/resolve": "page: manager",
 }
 
 _STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403,
@@ -139,6 +146,9 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
 
     for module in (issues, sync, devices, exports):
         app.include_router(module.router, responses=ERROR_RESPONSES)
+    from .web import pages
+
+    app.include_router(pages.router)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     return app
 

@@ -1,0 +1,170 @@
+"""The camp pages for the data manager (and, read-only, the analyst): server-rendered, no front-end build.
+
+Pages so far: sign in / out, **Today** (devices and their last push, finds of the last 24 hours per trench and
+unit, what waits) and **Conflicts** (every open conflict with its competing values, settled by choosing or
+typing a value: a new version, exactly as ``POST /v1/conflicts/resolve``). Pages are not part of the OpenAPI
+schema; they answer a browser, redirecting to the sign-in page when there is no valid session.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import uuid
+from pathlib import Path
+from typing import Any
+from urllib.parse import parse_qs
+
+import sqlalchemy as sa
+from fastapi import APIRouter, HTTPException, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from fastapi.templating import Jinja2Templates
+
+from schema.records import Device, Find, Trench, Unit
+from schema.errors import BaulkError
+
+from ..sync import list_conflicts, resolve_conflict
+from ..tables import push_batch
+from .session import COOKIE, LIFETIME_S, PAGE_ROLES, Session, check_csrf, current, make_cookie
+
+router = APIRouter(prefix="/camp", include_in_schema=False)
+templates = Jinja2Templates(directory=str(Path(__file__).parent / "templates"))
+
+_EXPLAIN = {
+    "concurrent": "Two devices changed this field without seeing each other's change. Choose the value to keep.",
+    "void": "One device voided this find while another, not knowing, edited it. Keep the void (true) or restore "
+            "the find (false); the edit stays either way.",
+    "duplicate_number": "Two finds of the site carry the same number. Give this find a new number (type it).",
+}
+
+
+async def _form(request: Request) -> dict[str, str]:
+    body = (await request.body()).decode("utf-8", errors="replace")
+    return {k: v[0] for k, v in parse_qs(body, keep_blank_values=True).items()}
+
+
+def _page(request: Request, name: str, session: Session | None, title: str, status: int = 200, **context: Any) -> Response:
+    return templates.TemplateResponse(request, name, {"session": session, "title": title, **context},
+                                      status_code=status)
+
+
+def _signed_in(request: Request) -> Session:
+    session = current(request)
+    if session is None:
+        raise HTTPException(303, headers={"Location": "/camp/sign-in"})
+    return session
+
+
+@router.get("/sign-in", response_class=HTMLResponse)
+def sign_in_page(request: Request) -> Response:
+    return _page(request, "sign_in.html", None, "Sign in")
+
+
+@router.post("/sign-in")
+async def sign_in(request: Request) -> Response:
+    token = (await _form(request)).get("token", "").strip()
+    device = request.app.state.store.device_for_token(token) if token else None
+    if device is None or device.role not in PAGE_ROLES:
+        why = ("a recorder's token cannot open the camp pages; use a manager or analyst device"
+               if device is not None else "this token is unknown or its device was revoked")
+        return _page(request, "sign_in.html", None, "Sign in", status=401, message=why, error=True)
+    response = RedirectResponse("/camp/", status_code=303)
+    response.set_cookie(COOKIE, make_cookie(request, device), max_age=LIFETIME_S, httponly=True, samesite="strict",
+                        secure=request.url.scheme == "https", path="/camp")
+    return response
+
+
+@router.post("/sign-out")
+async def sign_out(request: Request) -> Response:
+    session = _signed_in(request)
+    check_csrf(session, (await _form(request)).get("csrf"))
+    response = RedirectResponse("/camp/sign-in", status_code=303)
+    response.delete_cookie(COOKIE, path="/camp")
+    return response
+
+
+@router.get("/", response_class=HTMLResponse)
+def today(request: Request) -> Response:
+    session = _signed_in(request)
+    store = request.app.state.store
+    from schema.sync.tables import open_conflict
+    from ..tables import validation_issue as T
+
+    since = dt.datetime.now(dt.timezone.utc) - dt.timedelta(hours=24)
+    f, u, t = (store_table(n) for n in ("find", "unit", "trench"))
+    with store.read() as conn:
+        pushes = dict(conn.execute(sa.select(push_batch.c.device, sa.func.max(push_batch.c.received_at))
+                                   .group_by(push_batch.c.device)).all())
+        new = conn.execute(sa.select(t.c.code, u.c.code, sa.func.count()).select_from(
+            f.join(u, f.c.unit_id == u.c.id).join(t, f.c.trench_id == t.c.id))
+            .where(f.c.found_at >= since, sa.not_(f.c.voided)).group_by(t.c.code, u.c.code)
+            .order_by(t.c.code, u.c.code)).all()
+        conflicts = conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one()
+        errors = conn.execute(sa.select(sa.func.count()).select_from(T).where(
+            T.c.open, T.c.severity == "error", T.c.accepted_at.is_(None))).scalar_one()
+    devices = [{"label": d.label, "role": d.role, "revoked": d.revoked_at is not None, "enrolled": d.token_hash is not None,
+                "last_push": _when(pushes.get(d.id))} for d in store.list(Device, order_by="label")]
+    return _page(request, "today.html", session, "Today", page="today", devices=devices, conflicts=conflicts,
+                 errors=errors, new_finds=[{"trench": a, "unit": b, "finds": n} for a, b, n in new])
+
+
+def store_table(name: str) -> sa.Table:
+    from schema.tables import metadata
+
+    return metadata.tables[name]
+
+
+def _when(t: dt.datetime | None) -> str | None:
+    return t.astimezone(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC") if t else None
+
+
+def _what(store: Any, c: dict[str, Any]) -> str:
+    if c["record"] == "find":
+        found = store.list(Find, id=uuid.UUID(c["record_id"]))
+        name = f"find {found[0].number}" if found else "a find not shown yet"
+    else:
+        name = f"{c['record']} {c['record_id'][:8]}"
+    return f"{name}: {c['field']}"
+
+
+@router.get("/conflicts", response_class=HTMLResponse)
+def conflicts(request: Request, message: str | None = None) -> Response:
+    session = _signed_in(request)
+    store = request.app.state.store
+    units = {str(u.id): u.code for u in store.list(Unit)}
+    trenches = {str(t.id): t.code for t in store.list(Trench)}
+    rows = []
+    for c in list_conflicts(store):
+        rows.append({**c, "what": _what(store, c), "explain": _EXPLAIN.get(c["kind"], ""),
+                     "values": [{**v, "json": json.dumps(v["value"]),
+                                 "shown": units.get(str(v["value"]), trenches.get(str(v["value"]), v["value"]))}
+                                for v in c["values"]]})
+    return _page(request, "conflicts.html", session, "Conflicts", page="conflicts", conflicts=rows,
+                 can_resolve=session.device.role == "manager", message=message)
+
+
+@router.post("/conflicts/resolve")
+async def resolve(request: Request) -> Response:
+    session = _signed_in(request)
+    form = await _form(request)
+    check_csrf(session, form.get("csrf"))
+    if session.device.role != "manager":
+        raise HTTPException(403, detail="only a manager can settle a conflict")
+    typed = form.get("typed", "").strip()
+    try:
+        value = json.loads(typed) if typed else json.loads(form.get("choice", "null"))
+    except ValueError:
+        value = typed  # typed text that is not JSON is taken as text
+    try:
+        done = resolve_conflict(request.app.state.store, record=form.get("record", ""),
+                                record_id=uuid.UUID(form.get("record_id", "")), field=form.get("field", ""), value=value)
+    except (BaulkError, ValueError) as exc:
+        return RedirectResponse(f"/camp/conflicts?message={_q(f'not settled: {exc}')}", status_code=303)
+    note = "settled" if not done.get("still_open") else "a new version was written, but a conflict remains"
+    return RedirectResponse(f"/camp/conflicts?message={_q(note)}", status_code=303)
+
+
+def _q(text: str) -> str:
+    from urllib.parse import quote
+
+    return quote(text[:300])

@@ -1,0 +1,103 @@
+"""The camp pages over the in-process client: sign-in, refusals, CSRF, Today and settling a conflict."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+from fastapi.testclient import TestClient
+
+from schema.records import Find
+from sync_server.app import ROUTE_ROLES, create_app
+from sync_server.sync import list_conflicts
+from tests.helpers import find_data, seeded_server
+from tests.sync_server.test_sync import enrol
+
+
+@pytest.fixture
+def camp(tmp_path: Path):  # type: ignore[no-untyped-def]
+    server, demo = seeded_server(f"sqlite:///{tmp_path / 'server.sqlite'}")
+    with TestClient(create_app(store=server), follow_redirects=False) as http:
+        yield server, demo, http, tmp_path
+    server.close()
+
+
+def _sign_in(http: TestClient, token: str) -> str:
+    r = http.post("/camp/sign-in", content=f"token={token}", headers={"content-type": "application/x-www-form-urlencoded"})
+    assert r.status_code == 303 and r.headers["location"] == "/camp/", r.text
+    cookie = r.headers["set-cookie"]
+    assert "HttpOnly" in cookie and "SameSite=strict" in cookie.replace("Strict", "strict")
+    page = http.get("/camp/")
+    return re.search(r'name="csrf" value="([^"]+)"', page.text).group(1)  # type: ignore[union-attr]
+
+
+def test_every_page_refuses_no_session_and_a_recorder(camp) -> None:  # type: ignore[no-untyped-def]
+    server, _demo, http, _tmp = camp
+    pages = [k for k, v in ROUTE_ROLES.items() if v.startswith("page")]
+    assert len(pages) >= 4
+    for key in pages:
+        method, path = key.split(" ", 1)
+        r = http.request(method, path)
+        assert r.status_code == 303 and r.headers["location"] == "/camp/sign-in", key
+    recorder = server.add_device(label="TAB-1", role="recorder")[1]
+    r = http.post("/camp/sign-in", content=f"token={recorder}", headers={"content-type": "application/x-www-form-urlencoded"})
+    assert r.status_code == 401 and "token cannot open the camp pages" in r.text
+    assert "set-cookie" not in r.headers
+    # a forged cookie is no session
+    http.cookies.set("baulk_camp", "e30.forged", path="/camp")
+    assert http.get("/camp/").status_code == 303
+
+
+def test_forms_without_the_csrf_token_are_refused(camp) -> None:  # type: ignore[no-untyped-def]
+    server, _demo, http, _tmp = camp
+    manager = server.add_device(label="MGR", role="manager")[1]
+    csrf = _sign_in(http, manager)
+    form = {"content-type": "application/x-www-form-urlencoded"}
+    r = http.post("/camp/sign-out", content="csrf=wrong", headers=form)
+    assert r.status_code == 403
+    assert http.get("/camp/").status_code == 200  # still signed in: nothing happened
+    r = http.post("/camp/sign-out", content=f"csrf={csrf}", headers=form)
+    assert r.status_code == 303 and r.headers["location"] == "/camp/sign-in"
+
+
+def test_today_lists_devices_and_new_finds(camp) -> None:  # type: ignore[no-untyped-def]
+    import datetime as dt
+
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1.save_find(find=find_data(demo, number=t1.next_find_number(), found_at=dt.datetime.now(dt.timezone.utc)))
+    c1.sync()
+    _sign_in(http, server.add_device(label="MGR", role="manager")[1])
+    page = http.get("/camp/").text
+    assert "TAB-1" in page and "MGR" in page and re.search(r"<td>TR1</td><td>101</td><td class=\"num\">1</td>", page)
+
+
+def test_a_manager_settles_a_conflict_from_the_page_and_an_analyst_cannot(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    c1.sync()
+    c2.sync()
+    t1.put(t1.get(Find, find.id).model_copy(update={"unit_id": demo.units["102"].id}))
+    t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["103"].id}))
+    c1.sync()
+    c2.sync()
+    analyst = server.add_device(label="AN-1", role="analyst")[1]
+    csrf = _sign_in(http, analyst)
+    page = http.get("/camp/conflicts").text
+    assert "Only a manager can settle it." in page and "102" in page and "103" in page
+    form = {"content-type": "application/x-www-form-urlencoded"}
+    body = f"csrf={csrf}&record=find&record_id={find.id}&field=unit_id&choice=%22{demo.units['102'].id}%22"
+    assert http.post("/camp/conflicts/resolve", content=body, headers=form).status_code == 403
+    http.cookies.clear()
+    csrf = _sign_in(http, server.add_device(label="MGR", role="manager")[1])
+    page = http.get("/camp/conflicts").text
+    assert f'value="{find.id}"' in page
+    body = f"csrf={csrf}&record=find&record_id={find.id}&field=unit_id&choice=%22{demo.units['102'].id}%22"
+    r = http.post("/camp/conflicts/resolve", content=body, headers=form)
+    assert r.status_code == 303 and "settled" in r.headers["location"]
+    assert list_conflicts(server) == []
+    c2.sync()
+    assert t2.get(Find, find.id).unit_id == demo.units["102"].id  # the resolution reached the tablet
