@@ -49,6 +49,14 @@ ROUTE_ROLES: dict[str, str] = {
     "GET /camp/": "page: manager, analyst",
     "GET /camp/conflicts": "page: manager, analyst",
     "POST /camp/conflicts/resolve": "page: manager",
+    "GET /camp/checks": "page: manager, analyst",
+    "POST /camp/checks/accept": "page: manager",
+    "GET /camp/finds": "page: manager, analyst",
+    "GET /camp/finds/{find_id}": "page: manager, analyst",
+    "GET /camp/matrix": "page: manager, analyst",
+    "GET /camp/matrix.png": "page: manager, analyst",
+    "GET /camp/exports": "page: manager, analyst",
+    "GET /camp/exports/download": "page: manager, analyst",
 }
 
 _STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403,

@@ -1,8 +1,10 @@
 """The camp pages for the data manager (and, read-only, the analyst): server-rendered, no front-end build.
 
-Pages so far: sign in / out, **Today** (devices and their last push, finds of the last 24 hours per trench and
-unit, what waits) and **Conflicts** (every open conflict with its competing values, settled by choosing or
-typing a value: a new version, exactly as ``POST /v1/conflicts/resolve``). Pages are not part of the OpenAPI
+Pages: sign in / out; **Today** (devices and their last push, finds of the last 24 hours per trench and unit,
+what waits); **Conflicts** (every open conflict with its competing values, settled by choosing or typing a
+value: a new version, exactly as ``POST /v1/conflicts/resolve``); **Checks** (validation issues filtered by
+code, severity, trench, unit; accepted with a reason); **Finds** (search; a find's fields and its history of
+versions); **Matrix** (the reduced Harris matrix picture); **Exports** (run one and download the zip). Pages are not part of the OpenAPI
 schema; they answer a browser, redirecting to the sign-in page when there is no valid session.
 """
 
@@ -168,3 +170,126 @@ def _q(text: str) -> str:
     from urllib.parse import quote
 
     return quote(text[:300])
+
+
+# -- checks ---------------------------------------------------------------------------------------------------
+@router.get("/checks", response_class=HTMLResponse)
+def checks(request: Request, code: str | None = None, severity: str | None = None, trench: str | None = None,
+           unit: str | None = None, message: str | None = None) -> Response:
+    from ..validation import list_issues
+
+    session = _signed_in(request)
+    filters = {"code": code or None, "severity": severity if severity in ("error", "warning", "info") else None,
+               "trench": trench or None, "unit": unit or None}
+    issues = list_issues(request.app.state.store, **filters)
+    return _page(request, "checks.html", session, "Checks", page="checks", issues=issues,
+                 filters={**filters, "any": any(filters.values())}, can_accept=session.device.role == "manager",
+                 message=message)
+
+
+@router.post("/checks/accept")
+async def accept(request: Request) -> Response:
+    from ..validation import accept_issue
+
+    session = _signed_in(request)
+    form = await _form(request)
+    check_csrf(session, form.get("csrf"))
+    if session.device.role != "manager":
+        raise HTTPException(403, detail="only a manager can accept a check")
+    try:
+        accept_issue(request.app.state.store, key=form.get("key", ""), by=session.device.label,
+                     reason=form.get("reason", ""))
+    except (BaulkError, ValueError) as exc:
+        return RedirectResponse(f"/camp/checks?message={_q(f'not accepted: {exc}')}", status_code=303)
+    return RedirectResponse(f"/camp/checks?message={_q('accepted')}", status_code=303)
+
+
+# -- finds ----------------------------------------------------------------------------------------------------
+@router.get("/finds", response_class=HTMLResponse)
+def finds(request: Request, q: str | None = None) -> Response:
+    session = _signed_in(request)
+    store = request.app.state.store
+    units = {u.id: u.code for u in store.list(Unit)}
+    trenches = {t.id: t.code for t in store.list(Trench)}
+    f = store_table("find")
+    query = sa.select(f.c.id, f.c.number, f.c.trench_id, f.c.unit_id, f.c.category, f.c.material, f.c.voided)
+    text = (q or "").strip()
+    if text.isdigit():
+        query = query.where(f.c.number == int(text))
+    elif text:
+        unit_ids = [i for i, code in units.items() if code == text]
+        query = query.where(sa.or_(f.c.material == text, f.c.unit_id.in_(unit_ids)))
+    with store.read() as conn:
+        rows = conn.execute(query.order_by(f.c.number).limit(201)).all()
+    shown = [{"id": r.id, "number": r.number, "trench": trenches.get(r.trench_id, "?"), "unit": units.get(r.unit_id, "?"),
+              "category": r.category, "material": r.material, "voided": r.voided} for r in rows[:200]]
+    return _page(request, "finds.html", session, "Finds", page="finds", finds=shown, q=q, more=len(rows) > 200)
+
+
+@router.get("/finds/{find_id}", response_class=HTMLResponse)
+def find(request: Request, find_id: uuid.UUID) -> Response:
+    from ..audit import changes
+
+    session = _signed_in(request)
+    store = request.app.state.store
+    found = store.list(Find, id=find_id)
+    if not found:
+        raise HTTPException(404, detail="no find has this id here (it may not have synced yet)")
+    f = found[0]
+    fields = [(k, v) for k, v in f.model_dump(mode="json").items() if v not in (None, "", [])]
+    history = changes(store, record="find", record_id=find_id, limit=2000)
+    return _page(request, "find.html", session, f"Find {f.number}", page="finds", fields=fields, history=history)
+
+
+# -- matrix and exports ---------------------------------------------------------------------------------------
+@router.get("/matrix", response_class=HTMLResponse)
+def matrix(request: Request) -> Response:
+    return _page(request, "matrix.html", _signed_in(request), "Matrix", page="matrix")
+
+
+@router.get("/matrix.png")
+def matrix_png(request: Request) -> Response:
+    import tempfile
+
+    from schema.records import Horizon
+    from schema.strata.validate import validate
+
+    from ..export_pictures import draw_matrix
+
+    _signed_in(request)
+    store = request.app.state.store
+    data = store.site_data()
+    report = validate(data)
+    problems = {uuid.UUID(i.record_id) for i in report.issues if i.record == "unit" and i.record_id}
+    with tempfile.TemporaryDirectory(prefix="baulk-matrix-") as tmp:
+        draw_matrix(report.matrix, store.list(Horizon, site_id=data.site.id), problems, Path(tmp))
+        png = (Path(tmp) / "harris_matrix.png").read_bytes()
+    return Response(png, media_type="image/png")
+
+
+@router.get("/exports", response_class=HTMLResponse)
+def exports(request: Request) -> Response:
+    return _page(request, "exports.html", _signed_in(request), "Exports", page="exports")
+
+
+@router.get("/exports/download")
+def exports_download(request: Request, strict: bool = False) -> Response:
+    import shutil
+    import tempfile
+    import zipfile
+
+    from starlette.background import BackgroundTask
+
+    from ..exports import run_export
+
+    _signed_in(request)
+    work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
+    run_export(request.app.state.store, work / "export", strict=strict)
+    archive = work / "baulk-export.zip"
+    with zipfile.ZipFile(archive, "w", compression=zipfile.ZIP_DEFLATED) as z:
+        for p in sorted((work / "export").iterdir()):
+            z.write(p, arcname=f"baulk-export/{p.name}")
+    from fastapi.responses import FileResponse
+
+    return FileResponse(archive, media_type="application/zip", filename="baulk-export.zip",
+                        background=BackgroundTask(shutil.rmtree, work, True))

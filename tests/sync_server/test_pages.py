@@ -38,7 +38,7 @@ def test_every_page_refuses_no_session_and_a_recorder(camp) -> None:  # type: ig
     assert len(pages) >= 4
     for key in pages:
         method, path = key.split(" ", 1)
-        r = http.request(method, path)
+        r = http.request(method, path.replace("{find_id}", "00000000-0000-0000-0000-000000000001"))
         assert r.status_code == 303 and r.headers["location"] == "/camp/sign-in", key
     recorder = server.add_device(label="TAB-1", role="recorder")[1]
     r = http.post("/camp/sign-in", content=f"token={recorder}", headers={"content-type": "application/x-www-form-urlencoded"})
@@ -101,3 +101,28 @@ def test_a_manager_settles_a_conflict_from_the_page_and_an_analyst_cannot(camp) 
     assert list_conflicts(server) == []
     c2.sync()
     assert t2.get(Find, find.id).unit_id == demo.units["102"].id  # the resolution reached the tablet
+
+
+def test_checks_finds_matrix_and_exports_pages(camp) -> None:  # type: ignore[no-untyped-def]
+    import io
+    import zipfile
+
+    server, demo, http, tmp = camp
+    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    low = t1.save_find(find=find_data(demo, number=t1.next_find_number(), z=99.30))  # below its unit: a check
+    c1.sync()
+    csrf = _sign_in(http, server.add_device(label="MGR", role="manager")[1])
+    page = http.get("/camp/checks", params={"code": "POS_BELOW_UNIT"}).text
+    assert "POS_BELOW_UNIT" in page and f'href="/camp/finds/{low.id}"' in page
+    key = re.search(r'name="key" value="([^"]+)"', page).group(1)  # type: ignore[union-attr]
+    form = {"content-type": "application/x-www-form-urlencoded"}
+    r = http.post("/camp/checks/accept", content=f"csrf={csrf}&key={key}&reason=bioturbation+seen+in+section", headers=form)
+    assert r.status_code == 303 and "accepted" in r.headers["location"]
+    assert "Accepted by MGR: bioturbation seen in section" in http.get("/camp/checks").text
+    assert f"/camp/finds/{low.id}" in http.get("/camp/finds", params={"q": str(low.number)}).text
+    history = http.get(f"/camp/finds/{low.id}").text
+    assert "TAB-1" in history and "99.3" in history
+    png = http.get("/camp/matrix.png")
+    assert png.status_code == 200 and png.content[:8] == b"\x89PNG\r\n\x1a\n"
+    z = http.get("/camp/exports/download", params={"strict": "true"})
+    assert z.status_code == 200 and "baulk-export/manifest.json" in zipfile.ZipFile(io.BytesIO(z.content)).namelist()
