@@ -1,7 +1,8 @@
 """Shared fixtures and the suite's own rules.
 
 - ``pg``-marked tests need ``BAULK_TEST_PG_URL`` (a PostgreSQL database the suite may wipe); without it they
-  skip with a reason. Under CI (``CI=true``) a skipped ``pg`` or ``ui`` test is turned into a failure.
+  skip with a reason. Under CI (``CI=true``) a skipped ``pg``, ``ui`` or ``browser`` test is turned into a failure.
+- ``browser``-marked tests drive Debian's Chromium (``/usr/bin/chromium``, or ``BAULK_CHROMIUM``) with Playwright.
 - ``server_url`` runs a test on SQLite and, when PostgreSQL is given, again on PostgreSQL.
 """
 
@@ -17,7 +18,7 @@ import sqlalchemy as sa
 from schema.demo_site import DemoSite, build_site
 
 PG_ENV = "BAULK_TEST_PG_URL"
-MUST_RUN = ("pg", "ui")
+MUST_RUN = ("pg", "ui", "browser")
 
 
 @pytest.hookimpl(hookwrapper=True)

@@ -126,7 +126,7 @@ def _what(store: Any, c: dict[str, Any]) -> str:
         name = f"find {found[0].number}" if found else "a find not shown yet"
     else:
         name = f"{c['record']} {c['record_id'][:8]}"
-    return f"{name}: {c['field']}"
+    return f"{name}: {c['field'].removesuffix('_id').replace('_', ' ')}"
 
 
 @router.get("/conflicts", response_class=HTMLResponse)
@@ -138,7 +138,7 @@ def conflicts(request: Request, message: str | None = None) -> Response:
     rows = []
     for c in list_conflicts(store):
         rows.append({**c, "what": _what(store, c), "explain": _EXPLAIN.get(c["kind"], ""),
-                     "values": [{**v, "json": json.dumps(v["value"]),
+                     "values": [{**v, "json": json.dumps(v["value"]), "at": _when(dt.datetime.fromisoformat(v["at"])),
                                  "shown": units.get(str(v["value"]), trenches.get(str(v["value"]), v["value"]))}
                                 for v in c["values"]]})
     return _page(request, "conflicts.html", session, "Conflicts", page="conflicts", conflicts=rows,
