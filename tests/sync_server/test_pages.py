@@ -54,8 +54,12 @@ def test_forms_without_the_csrf_token_are_refused(camp) -> None:  # type: ignore
     manager = server.add_device(label="MGR", role="manager")[1]
     csrf = _sign_in(http, manager)
     form = {"content-type": "application/x-www-form-urlencoded"}
-    r = http.post("/camp/sign-out", content="csrf=wrong", headers=form)
-    assert r.status_code == 403
+    posts = [k.split(" ", 1)[1] for k, v in ROUTE_ROLES.items() if k.startswith("POST /camp/") and v.startswith("page")]
+    assert {"/camp/sign-out", "/camp/conflicts/resolve", "/camp/checks/accept"} <= set(posts)
+    for path in posts:
+        for body in ("csrf=wrong", "", f"csrf={csrf}x"):
+            r = http.post(path, content=body, headers=form)
+            assert r.status_code == 403 and "reload the page" in r.json()["message"], (path, body)
     assert http.get("/camp/").status_code == 200  # still signed in: nothing happened
     r = http.post("/camp/sign-out", content=f"csrf={csrf}", headers=form)
     assert r.status_code == 303 and r.headers["location"] == "/camp/sign-in"
