@@ -39,7 +39,7 @@ from schema.strata.validate import validate
 from .export_sql import tally_in_db
 from .store import ServerStore
 
-__all__ = ["RESOURCES", "run_export"]
+__all__ = ["RESOURCES", "export_zip", "run_export"]
 
 Progress = Callable[[str], None]
 
@@ -251,3 +251,16 @@ def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], tre
         rows[name] = _write_csv(tmp / f"{name}.csv", name, [
             r.as_dict(names) for r in count_rows(tallies, units, horizons, vols, by_unit=by_unit)])
     return rows
+
+
+def export_zip(store: ServerStore, work: Path, *, seasons: list[str] | None = None, strict: bool = False) -> Path:
+    """Run an export into ``work`` and pack it as ``work/baulk-export.zip`` (for the API and the camp pages)."""
+    import zipfile
+
+    out = work / "export"
+    run_export(store, out, seasons=seasons, strict=strict)
+    archive = work / "baulk-export.zip"
+    with zipfile.ZipFile(archive, "w", compression=zipfile.ZIP_DEFLATED) as z:
+        for p in sorted(out.iterdir()):
+            z.write(p, arcname=f"baulk-export/{p.name}")
+    return archive

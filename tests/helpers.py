@@ -44,3 +44,17 @@ def enrolled_tablet(server: Any, path: Any, label: str, *, block: int = 100) -> 
     tablet.set_identity(device=device)
     tablet.set_token(token)
     return tablet, device, token
+
+
+def unit_conflict(demo: DemoSite, a: tuple[Any, Any], b: tuple[Any, Any], find: Any) -> None:
+    """Both tablets (store, sync client) hold ``find``; offline, one moves it to unit 102 and the other to 103;
+    both sync: the server then holds a concurrent conflict on its unit."""
+    (t1, c1), (t2, c2) = a, b
+    c1.sync()
+    c2.sync()
+    from schema.records import Find
+
+    t1.put(t1.get(Find, find.id).model_copy(update={"unit_id": demo.units["102"].id}))
+    t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["103"].id}))
+    c1.sync()
+    c2.sync()

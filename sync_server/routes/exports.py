@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import shutil
 import tempfile
-import zipfile
 from pathlib import Path
 from typing import Annotated
 
@@ -14,7 +13,7 @@ from fastapi.responses import FileResponse
 from schema.records import Device
 
 from ..auth import require
-from ..exports import run_export
+from ..exports import export_zip
 
 router = APIRouter(prefix="/v1/exports", tags=["exports"])
 
@@ -29,10 +28,5 @@ def download(request: Request, _device: Reader, background: BackgroundTasks,
     manifest) and download it as ``baulk-export.zip``."""
     work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
     background.add_task(shutil.rmtree, work, True)  # removed once sent
-    out = work / "export"
-    run_export(request.app.state.store, out, seasons=seasons or None, strict=strict)
-    archive = work / "baulk-export.zip"
-    with zipfile.ZipFile(archive, "w", compression=zipfile.ZIP_DEFLATED) as z:
-        for p in sorted(out.iterdir()):
-            z.write(p, arcname=f"baulk-export/{p.name}")
+    archive = export_zip(request.app.state.store, work, seasons=seasons or None, strict=strict)
     return FileResponse(archive, media_type="application/zip", filename="baulk-export.zip")

@@ -276,20 +276,15 @@ def exports(request: Request) -> Response:
 def exports_download(request: Request, strict: bool = False) -> Response:
     import shutil
     import tempfile
-    import zipfile
 
+    from fastapi.responses import FileResponse
     from starlette.background import BackgroundTask
 
-    from ..exports import run_export
+    from ..exports import export_zip
 
     _signed_in(request)
     work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
-    run_export(request.app.state.store, work / "export", strict=strict)
-    archive = work / "baulk-export.zip"
-    with zipfile.ZipFile(archive, "w", compression=zipfile.ZIP_DEFLATED) as z:
-        for p in sorted((work / "export").iterdir()):
-            z.write(p, arcname=f"baulk-export/{p.name}")
-    from fastapi.responses import FileResponse
+    archive = export_zip(request.app.state.store, work, strict=strict)
 
     return FileResponse(archive, media_type="application/zip", filename="baulk-export.zip",
                         background=BackgroundTask(shutil.rmtree, work, True))

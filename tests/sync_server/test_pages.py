@@ -11,7 +11,7 @@ from fastapi.testclient import TestClient
 from schema.records import Find
 from sync_server.app import ROUTE_ROLES, create_app
 from sync_server.sync import list_conflicts
-from tests.helpers import find_data, seeded_server
+from tests.helpers import find_data, seeded_server, unit_conflict
 from tests.sync_server.test_sync import enrol
 
 
@@ -82,12 +82,7 @@ def test_a_manager_settles_a_conflict_from_the_page_and_an_analyst_cannot(camp) 
     t1, c1 = enrol(server, http, tmp, "TAB-1")
     t2, c2 = enrol(server, http, tmp, "TAB-2")
     find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
-    c1.sync()
-    c2.sync()
-    t1.put(t1.get(Find, find.id).model_copy(update={"unit_id": demo.units["102"].id}))
-    t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["103"].id}))
-    c1.sync()
-    c2.sync()
+    unit_conflict(demo, (t1, c1), (t2, c2), find)
     analyst = server.add_device(label="AN-1", role="analyst")[1]
     csrf = _sign_in(http, analyst)
     page = http.get("/camp/conflicts").text

@@ -25,7 +25,7 @@ from schema.records import Find  # noqa: E402
 from sync_server.app import create_app  # noqa: E402
 from sync_server.loopback import serve_in_thread  # noqa: E402
 from sync_server.sync import list_conflicts  # noqa: E402
-from tests.helpers import enrolled_tablet, find_data, seeded_server  # noqa: E402
+from tests.helpers import enrolled_tablet, find_data, seeded_server, unit_conflict  # noqa: E402
 
 FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
          "--disable-component-update", "--disable-sync"]
@@ -46,12 +46,7 @@ def test_a_manager_works_through_the_evening_in_a_browser(tmp_path: Path) -> Non
         (t1, c1), (t2, c2) = tablets
         find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
         low = t1.save_find(find=find_data(demo, number=t1.next_find_number(), z=99.30))  # a check: below its unit
-        c1.sync()
-        c2.sync()
-        t1.put(t1.get(Find, find.id).model_copy(update={"unit_id": demo.units["102"].id}))
-        t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["103"].id}))
-        c1.sync()
-        c2.sync()
+        unit_conflict(demo, (t1, c1), (t2, c2), find)
         assert len(list_conflicts(server)) == 1
 
         with playwright_api.sync_playwright() as p:
