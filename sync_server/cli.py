@@ -19,6 +19,11 @@ from schema.errors import BaulkError
 __all__ = ["cli", "main"]
 
 
+# the server database every store command takes (the settings' default when not given)
+_db_option = click.option("--db", "database_url", default=None,
+                          help="Server database URL [default: the server's SQLite file].")
+
+
 class _BaulkGroup(click.Group):
     """Turns any domain error, from any subcommand, into one clear message (the fix included) and exit 1."""
 
@@ -205,7 +210,7 @@ def bundle_export(store_path: Path, out: Path) -> None:
 
 @bundle.command("import")
 @click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
-@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@_db_option
 def bundle_import(file: Path, database_url: str | None) -> None:
     """Check a bundle whole, then apply it exactly like a push (a bad bundle changes nothing)."""
     from .bundles import import_bundle
@@ -220,7 +225,7 @@ def bundle_import(file: Path, database_url: str | None) -> None:
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True, help="Folder to write into.")
 @click.option("--seasons", "seasons", multiple=True, help="Season label to include (repeatable) [default: all].")
 @click.option("--strict", is_flag=True, help="Leave out every find an error-severity check names (listed in excluded.csv).")
-@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@_db_option
 def export(out: Path, seasons: tuple[str, ...], strict: bool, database_url: str | None) -> None:
     """Write the analyst's files: counts and densities per horizon and unit, finds, excluded finds, volumes,
     Darwin Core occurrences, a GeoPackage, a Frictionless data package and a manifest."""
@@ -242,7 +247,7 @@ def season() -> None:
 
 @season.command("archive")
 @click.option("--out", type=click.Path(dir_okay=False, path_type=Path), required=True, help="Archive file to write.")
-@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@_db_option
 def season_archive(out: Path, database_url: str | None) -> None:
     """Write this store's whole version log (and its highest find number) into one archive file."""
     from .seasons import write_archive
@@ -254,7 +259,7 @@ def season_archive(out: Path, database_url: str | None) -> None:
 
 @season.command("import")
 @click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
-@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@_db_option
 def season_import(file: Path, database_url: str | None) -> None:
     """Check an archive whole, then merge it into this store (clashes become conflicts; a bad archive changes nothing)."""
     from .seasons import import_archive
@@ -297,7 +302,7 @@ def device() -> None:
 @click.option("--role", type=click.Choice(["recorder", "manager", "analyst"]), required=True,
               help="recorder: a trench tablet; manager: the data manager; analyst: read and export only.")
 @click.option("--label", required=True, help="A name people will recognise, e.g. TAB-4.")
-@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@_db_option
 @click.option("--server", default=None, help="The address tablets use [default: from the server settings].")
 @click.option("--png", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write the QR code as a PNG image here (to print or show on another screen).")
@@ -318,7 +323,7 @@ def device_add(role: str, label: str, database_url: str | None, server: str | No
 
 
 @device.command("list")
-@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@_db_option
 def device_list(database_url: str | None) -> None:
     """Every device, its role, when it enrolled and whether it is revoked."""
     from .devices import list_devices
@@ -334,7 +339,7 @@ def device_list(database_url: str | None) -> None:
 
 @device.command("revoke")
 @click.argument("which")
-@click.option("--db", "database_url", default=None, help="Server database URL [default: the server's SQLite file].")
+@_db_option
 def device_revoke(which: str, database_url: str | None) -> None:
     """Revoke a device by label or id: its token is refused from the next request on."""
     from .devices import revoke_device

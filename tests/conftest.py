@@ -3,7 +3,8 @@
 - ``pg``-marked tests need ``BAULK_TEST_PG_URL`` (a PostgreSQL database the suite may wipe); without it they
   skip with a reason. Under CI (``CI=true``) a skipped ``pg``, ``ui`` or ``browser`` test is turned into a failure.
 - ``browser``-marked tests drive Debian's Chromium (``/usr/bin/chromium``, or ``BAULK_CHROMIUM``) with Playwright.
-- ``server_url`` runs a test on SQLite and, when PostgreSQL is given, again on PostgreSQL.
+- ``server_url`` runs a test on SQLite and, when PostgreSQL is given, again on PostgreSQL; ``camp`` is a seeded
+  server on it behind the in-process HTTP client.
 """
 
 from __future__ import annotations
@@ -60,6 +61,21 @@ def server_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
     if request.param == "sqlite":
         return f"sqlite:///{tmp_path / 'server.sqlite'}"
     return request.getfixturevalue("pg_database")
+
+
+@pytest.fixture
+def camp(tmp_path: Path, server_url: str):  # type: ignore[no-untyped-def]
+    """A seeded server store (SQLite, then PostgreSQL when given) behind the in-process HTTP client:
+    ``(server, demo, http, tmp_path)``."""
+    from fastapi.testclient import TestClient
+
+    from sync_server.app import create_app
+    from tests.helpers import seeded_server
+
+    server, demo = seeded_server(server_url)
+    with TestClient(create_app(store=server)) as http:
+        yield server, demo, http, tmp_path
+    server.close()
 
 
 @pytest.fixture

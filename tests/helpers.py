@@ -58,3 +58,13 @@ def unit_conflict(demo: DemoSite, a: tuple[Any, Any], b: tuple[Any, Any], find: 
     t2.put(t2.get(Find, find.id).model_copy(update={"unit_id": demo.units["103"].id}))
     c1.sync()
     c2.sync()
+
+
+def synced_tablet(server: Any, http: Any, tmp: Any, label: str) -> tuple[Any, Any]:
+    """An enrolled tablet file and its sync client over ``http``, after its first sync (site set-up, block)."""
+    from mobile.sync import SyncClient
+
+    tablet, _device, token = enrolled_tablet(server, tmp / f"{label}.sqlite", label)
+    client = SyncClient(tablet, http, token, batch_size=50)
+    client.sync()
+    return tablet, client

@@ -24,6 +24,7 @@ from fastapi.templating import Jinja2Templates
 
 from schema.records import Device, Find, Trench, Unit
 from schema.errors import BaulkError
+from schema.tables import metadata
 
 from ..sync import list_conflicts, resolve_conflict
 from ..tables import push_batch
@@ -93,7 +94,7 @@ def today(request: Request) -> Response:
     from ..tables import validation_issue as T
 
     since = dt.datetime.now(dt.timezone.utc) - dt.timedelta(hours=24)
-    f, u, t = (store_table(n) for n in ("find", "unit", "trench"))
+    f, u, t = (metadata.tables[n] for n in ("find", "unit", "trench"))
     with store.read() as conn:
         pushes = dict(conn.execute(sa.select(push_batch.c.device, sa.func.max(push_batch.c.received_at))
                                    .group_by(push_batch.c.device)).all())
@@ -108,12 +109,6 @@ def today(request: Request) -> Response:
                 "last_push": _when(pushes.get(d.id))} for d in store.list(Device, order_by="label")]
     return _page(request, "today.html", session, "Today", page="today", devices=devices, conflicts=conflicts,
                  errors=errors, new_finds=[{"trench": a, "unit": b, "finds": n} for a, b, n in new])
-
-
-def store_table(name: str) -> sa.Table:
-    from schema.tables import metadata
-
-    return metadata.tables[name]
 
 
 def _when(t: dt.datetime | None) -> str | None:
@@ -145,13 +140,19 @@ def conflicts(request: Request, message: str | None = None) -> Response:
                  can_resolve=session.device.role == "manager", message=message)
 
 
-@router.post("/conflicts/resolve")
-async def resolve(request: Request) -> Response:
+async def _manager_form(request: Request, action: str) -> tuple[Session, dict[str, str]]:
+    """A form posted by a signed-in manager with the session's CSRF token; otherwise 303 / 403."""
     session = _signed_in(request)
     form = await _form(request)
     check_csrf(session, form.get("csrf"))
     if session.device.role != "manager":
-        raise HTTPException(403, detail="only a manager can settle a conflict")
+        raise HTTPException(403, detail=f"only a manager can {action}")
+    return session, form
+
+
+@router.post("/conflicts/resolve")
+async def resolve(request: Request) -> Response:
+    _session, form = await _manager_form(request, "settle a conflict")
     typed = form.get("typed", "").strip()
     try:
         value = json.loads(typed) if typed else json.loads(form.get("choice", "null"))
@@ -191,11 +192,7 @@ def checks(request: Request, code: str | None = None, severity: str | None = Non
 async def accept(request: Request) -> Response:
     from ..validation import accept_issue
 
-    session = _signed_in(request)
-    form = await _form(request)
-    check_csrf(session, form.get("csrf"))
-    if session.device.role != "manager":
-        raise HTTPException(403, detail="only a manager can accept a check")
+    session, form = await _manager_form(request, "accept a check")
     try:
         accept_issue(request.app.state.store, key=form.get("key", ""), by=session.device.label,
                      reason=form.get("reason", ""))
@@ -211,7 +208,7 @@ def finds(request: Request, q: str | None = None) -> Response:
     store = request.app.state.store
     units = {u.id: u.code for u in store.list(Unit)}
     trenches = {t.id: t.code for t in store.list(Trench)}
-    f = store_table("find")
+    f = metadata.tables["find"]
     query = sa.select(f.c.id, f.c.number, f.c.trench_id, f.c.unit_id, f.c.category, f.c.material, f.c.voided)
     text = (q or "").strip()
     if text.isdigit():

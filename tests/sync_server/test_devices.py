@@ -22,15 +22,7 @@ from sync_server.app import ROUTE_ROLES, create_app
 from sync_server.cli import cli
 from sync_server.devices import enrol_line, make_code
 from sync_server.settings import ServerSettings
-from tests.helpers import find_data, seeded_server
-
-
-@pytest.fixture
-def camp(tmp_path: Path, server_url: str):  # type: ignore[no-untyped-def]
-    server, demo = seeded_server(server_url)
-    with TestClient(create_app(store=server)) as http:
-        yield server, demo, http, tmp_path
-    server.close()
+from tests.helpers import find_data
 
 
 def test_a_code_enrols_a_tablet_once_and_it_syncs(camp) -> None:  # type: ignore[no-untyped-def]

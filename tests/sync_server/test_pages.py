@@ -11,8 +11,7 @@ from fastapi.testclient import TestClient
 from schema.records import Find
 from sync_server.app import ROUTE_ROLES, create_app
 from sync_server.sync import list_conflicts
-from tests.helpers import find_data, seeded_server, unit_conflict
-from tests.sync_server.test_sync import enrol
+from tests.helpers import find_data, seeded_server, synced_tablet, unit_conflict
 
 
 @pytest.fixture
@@ -69,7 +68,7 @@ def test_today_lists_devices_and_new_finds(camp) -> None:  # type: ignore[no-unt
     import datetime as dt
 
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     t1.save_find(find=find_data(demo, number=t1.next_find_number(), found_at=dt.datetime.now(dt.timezone.utc)))
     c1.sync()
     _sign_in(http, server.add_device(label="MGR", role="manager")[1])
@@ -79,8 +78,8 @@ def test_today_lists_devices_and_new_finds(camp) -> None:  # type: ignore[no-unt
 
 def test_a_manager_settles_a_conflict_from_the_page_and_an_analyst_cannot(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
-    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
     find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     unit_conflict(demo, (t1, c1), (t2, c2), find)
     analyst = server.add_device(label="AN-1", role="analyst")[1]
@@ -107,7 +106,7 @@ def test_checks_finds_matrix_and_exports_pages(camp) -> None:  # type: ignore[no
     import zipfile
 
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     low = t1.save_find(find=find_data(demo, number=t1.next_find_number(), z=99.30))  # below its unit: a check
     c1.sync()
     csrf = _sign_in(http, server.add_device(label="MGR", role="manager")[1])

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import uuid
-from pathlib import Path
 
 import pytest
 from fastapi.testclient import TestClient
@@ -14,8 +13,7 @@ from schema.records import Find
 from schema.sync import Version, batch_hash
 from schema.sync import upgrade as upgrade_mod
 from schema.sync.tables import field_version, pending_row
-from sync_server.app import create_app
-from tests.helpers import enrolled_tablet, find_data, seeded_server
+from tests.helpers import enrolled_tablet, find_data
 
 
 def test_upgrade_walks_every_step_and_passes_newer_versions() -> None:
@@ -34,14 +32,6 @@ def test_upgrade_walks_every_step_and_passes_newer_versions() -> None:
     with pytest.raises(ValueError, match="keep id and parents"):
         upgrade_mod.upgrade([v], steps={1: lambda x: x.model_copy(update={"id": "other:1", "schema_version": 2})},
                             current=2)
-
-
-@pytest.fixture
-def camp(tmp_path: Path):  # type: ignore[no-untyped-def]
-    server, demo = seeded_server(f"sqlite:///{tmp_path / 'server.sqlite'}")
-    with TestClient(create_app(store=server)) as http:
-        yield server, demo, http, tmp_path
-    server.close()
 
 
 def _push(http: TestClient, token: str, batch: int, versions: list[Version]) -> dict:  # type: ignore[type-arg]

@@ -3,51 +3,31 @@
 from __future__ import annotations
 
 import uuid
-from pathlib import Path
 
 import pytest
-from fastapi.testclient import TestClient
 
-from mobile.store import TabletStore
 from mobile.sync import SyncClient
 from schema.errors import SyncError
 from schema.records import Find, NumberBlock, Unit
 from schema.sync import Version, batch_hash
-from sync_server.app import create_app
-from sync_server.store import ServerStore
 from sync_server.sync import list_conflicts
-from tests.helpers import enrolled_tablet, find_data, seeded_server
-
-
-@pytest.fixture
-def camp(tmp_path: Path, server_url: str):  # type: ignore[no-untyped-def]
-    server, demo = seeded_server(server_url)
-    with TestClient(create_app(store=server)) as http:
-        yield server, demo, http, tmp_path
-    server.close()
-
-
-def enrol(server: ServerStore, http: TestClient, tmp: Path, label: str) -> tuple[TabletStore, SyncClient]:
-    tablet, _device, token = enrolled_tablet(server, tmp / f"{label}.sqlite", label)
-    client = SyncClient(tablet, http, token, batch_size=50)
-    client.sync()  # the first pull brings the site set-up and this tablet's number block
-    return tablet, client
+from tests.helpers import find_data, synced_tablet
 
 
 def test_first_pull_provisions_a_tablet(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    tablet, _client = enrol(server, http, tmp, "TAB-1")
+    tablet, _client = synced_tablet(server, http, tmp, "TAB-1")
     assert tablet.count(Unit) == 12 and tablet.get(Unit, demo.units["203"].id) == demo.units["203"]
     (block,) = tablet.list(NumberBlock)
     assert (block.first, block.last) == (1, 100) and tablet.next_find_number() == 1
-    other, _ = enrol(server, http, tmp, "TAB-2")
+    other, _ = synced_tablet(server, http, tmp, "TAB-2")
     assert [(b.first, b.last) for b in other.list(NumberBlock)] == [(101, 200)]  # only its own block travels
 
 
 def test_finds_reach_the_server_and_the_other_tablets(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
-    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
     for _ in range(3):
         t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     report = c1.sync()
@@ -69,8 +49,8 @@ def test_finds_reach_the_server_and_the_other_tablets(camp) -> None:  # type: ig
 
 def test_concurrent_edits_become_a_conflict_and_a_resolution_travels(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
-    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
     find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     c1.sync()
     c2.sync()
@@ -98,7 +78,7 @@ def test_concurrent_edits_become_a_conflict_and_a_resolution_travels(camp) -> No
 
 def test_a_batch_sent_twice_is_applied_once(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     c1.sync()
     first = c1._batch(1)  # noqa: SLF001
@@ -111,7 +91,7 @@ def test_a_batch_sent_twice_is_applied_once(camp) -> None:  # type: ignore[no-un
 
 def test_same_batch_different_content_is_refused_with_the_fix(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     c1.sync()
     versions = c1._batch(1)[:1]  # noqa: SLF001
@@ -123,7 +103,7 @@ def test_same_batch_different_content_is_refused_with_the_fix(camp) -> None:  # 
 
 def test_versions_of_another_device_are_refused(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    _t1, c1 = enrol(server, http, tmp, "TAB-1")
+    _t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     forged = Version(id=f"{uuid.UUID(int=9)}:1", record="find", record_id=uuid.uuid4(), field="z", value=1.0,
                      wall_ms=1, counter=0, device=uuid.UUID(int=9), seq=1)
     r = http.post("/v1/sync/push", headers=c1.headers,
@@ -135,7 +115,7 @@ def test_a_cut_connection_is_a_plain_error_and_the_retry_resends_the_same_batch(
     import httpx
 
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     t1.save_find(find=find_data(demo, number=t1.next_find_number()))
 
     def dead(_request: httpx.Request) -> httpx.Response:
@@ -154,7 +134,7 @@ def test_validation_runs_after_every_merge(camp) -> None:  # type: ignore[no-unt
     from sync_server.validation import list_issues
 
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     t1.save_find(find=find_data(demo, number=t1.next_find_number(), z=99.30))  # below its unit
     c1.sync()
     assert [r["code"] for r in list_issues(server)] == ["POS_BELOW_UNIT"]
@@ -164,7 +144,7 @@ def test_a_truncated_push_body_is_refused_and_nothing_applied(camp) -> None:  # 
     import json
 
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
     t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     from mobile import outbox
 
@@ -187,8 +167,8 @@ def test_a_number_used_twice_reaches_the_server_as_a_conflict_and_is_renumbered(
     from sync_server.validation import list_issues
 
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
-    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
     # TAB-2 was given an overlapping block by hand in camp (the mistake this guards against)
     t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
                                           issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
@@ -218,8 +198,8 @@ def test_a_number_used_twice_reaches_the_server_as_a_conflict_and_is_renumbered(
 
 def test_a_void_against_an_unseen_edit_is_a_conflict_and_a_restore_travels(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
-    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
     find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     c1.sync()
     c2.sync()
@@ -244,8 +224,8 @@ def test_a_void_against_an_unseen_edit_is_a_conflict_and_a_restore_travels(camp)
 
 def test_a_void_made_after_seeing_an_edit_raises_no_conflict(camp) -> None:  # type: ignore[no-untyped-def]
     server, demo, http, tmp = camp
-    t1, c1 = enrol(server, http, tmp, "TAB-1")
-    t2, c2 = enrol(server, http, tmp, "TAB-2")
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
     find = t1.save_find(find=find_data(demo, number=t1.next_find_number()))
     c1.sync()
     c2.sync()
