@@ -92,21 +92,32 @@ class TabletStore(RecordStore):
             )
 
     def device_id(self) -> uuid.UUID | None:
-        with self.read() as conn:
-            row = conn.exec_driver_sql("SELECT value FROM local_setting WHERE key='device_id'").first()
-            return uuid.UUID(row[0]) if row else None
+        value = self.setting("device_id")
+        return uuid.UUID(value) if value else None
 
     def set_token(self, token: str) -> None:
         """Keep the device token issued at enrollment (needed to sync and to seal bundles)."""
-        with self.atomic() as conn:
-            conn.exec_driver_sql(
-                "INSERT INTO local_setting (key, value) VALUES ('token', ?) "
-                "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (token,))
+        self.set_setting("token", token)
 
     def token(self) -> str | None:
+        return self.setting("token")
+
+    # -- the tablet's own settings (day choices, server address, last sync); never synced ------------------
+    def setting(self, key: str) -> str | None:
         with self.read() as conn:
-            row = conn.exec_driver_sql("SELECT value FROM local_setting WHERE key='token'").first()
+            row = conn.exec_driver_sql("SELECT value FROM local_setting WHERE key = ?", (key,)).first()
             return row[0] if row else None
+
+    def set_setting(self, key: str, value: str | None, *, conn: Connection | None = None) -> None:
+        """Set (or with ``None`` remove) one local setting, in the caller's transaction when given."""
+        if conn is None:
+            with self.atomic() as own:
+                return self.set_setting(key, value, conn=own)
+        if value is None:
+            conn.exec_driver_sql("DELETE FROM local_setting WHERE key = ?", (key,))
+        else:
+            conn.exec_driver_sql("INSERT INTO local_setting (key, value) VALUES (?, ?) "
+                                 "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (key, value))
 
     def add_number_block(self, *, block: NumberBlock) -> None:
         self.add(block)

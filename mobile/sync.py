@@ -24,7 +24,7 @@ from schema.sync.tables import field_version
 from . import outbox
 from .store import TabletStore
 
-__all__ = ["SyncClient", "SyncReport"]
+__all__ = ["Progress", "SyncClient", "SyncReport", "pending_count"]
 
 Progress = Callable[[str, int, int], None]
 
@@ -41,6 +41,16 @@ class SyncReport:
     acks: list[dict[str, Any]] = field(default_factory=list)
 
 
+def pending_count(store: TabletStore) -> int:
+    """This tablet's own versions not yet acknowledged by the server."""
+    with store.read() as conn:
+        me = load_identity(conn).device
+        acked = int(state_get(conn, "acked_batch", "0") or 0)
+        q = sa.select(sa.func.count()).select_from(field_version).where(
+            field_version.c.device == me, sa.or_(field_version.c.batch.is_(None), field_version.c.batch > acked))
+        return int(conn.execute(q).scalar_one())
+
+
 class SyncClient:
     def __init__(self, store: TabletStore, http: httpx.Client, token: str, *, batch_size: int = 500,
                  page_size: int = 500, progress: Progress | None = None):
@@ -52,12 +62,7 @@ class SyncClient:
     # -- batches ------------------------------------------------------------------------------------------
     def pending_count(self) -> int:
         """Own versions not yet acknowledged by the server."""
-        with self.store.read() as conn:
-            me = load_identity(conn).device
-            acked = int(state_get(conn, "acked_batch", "0") or 0)
-            q = sa.select(sa.func.count()).select_from(field_version).where(
-                field_version.c.device == me, sa.or_(field_version.c.batch.is_(None), field_version.c.batch > acked))
-            return int(conn.execute(q).scalar_one())
+        return pending_count(self.store)
 
     def _batch(self, number: int) -> list[Version]:
         return outbox.batch_versions(self.store, number)

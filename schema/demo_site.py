@@ -17,7 +17,7 @@ from .records import (
     AgeDetermination, ControlPoint, Horizon, LevelPoint, Relation, Season, Site, Spit, Trench, Unit,
 )
 
-__all__ = ["DemoSite", "TabletPlan", "build_site", "plan_finds"]
+__all__ = ["DemoSite", "TabletPlan", "build_site", "fit_demo_grid", "plan_finds"]
 
 TZ = dt.timezone(dt.timedelta(hours=3))
 SEASON_START = dt.date(2026, 7, 1)
@@ -118,6 +118,22 @@ class DemoSite:
             *self.units.values(), *self.relations, *self.level_points,
             *(s for spits in self.spits.values() for s in spits), *self.ages,
         ]
+
+
+def fit_demo_grid(demo: DemoSite) -> tuple[Site, Any, Any]:
+    """The site with its grid fitted from the control points (both systems known) and the PROJ-free tablet
+    polynomial (needs pyproj); returns (site, grid fit, polynomial)."""
+    from .records import GridPolynomial, GridTransform
+    from .survey.grid import PointPair, fit_grid, fit_grid_polynomial
+
+    pairs = [PointPair(cp.code, cp.e, cp.n, cp.crs_e, cp.crs_n, cp.z, cp.z - GRID_TIE["dz"])  # type: ignore[arg-type]
+             for cp in demo.control_points]
+    fit = fit_grid(pairs)
+    grid = GridTransform(**fit.as_grid_transform())
+    poly = fit_grid_polynomial(grid=grid, crs=demo.site.crs_epsg, centre_x=1010.0, centre_y=2000.0)
+    site = demo.site.model_copy(update={"grid": grid, "grid_polynomial": GridPolynomial.model_validate(poly.model_dump()),
+                                        "vertical_offset_m": fit.vertical_offset_m or 0.0})
+    return site, fit, poly
 
 
 def _surfaces() -> dict[str, tuple[float, float]]:

@@ -18,6 +18,7 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      |    +-- WrongDevice       versions that claim another device than the one authenticated
      |    +-- BundleInvalid     a bundle file that is corrupt, truncated or tampered with
      +-- EnrolmentRefused       an enrolment code that is unknown, used already or expired
+     +-- CautionUnanswered      a caution (possible human remains) that must be answered before the save
      +-- SurveyError            survey input or a survey result that cannot be used
           +-- ObservationInvalid  a reading outside its range (zenith, distance, ...)
           +-- WeakGeometry        control points duplicated, coincident or on one line
@@ -25,6 +26,8 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
           +-- UnknownCRS          an EPSG code PROJ does not know
           +-- ProjUnavailable     a CRS operation on a build without PROJ and no fitted fallback
           +-- FixNotAccepted      a GNSS fix not good enough for a piece-plot (and no override given)
+          +-- InstrumentLineInvalid  a line from an instrument that cannot be read (checksum, field, range)
+          +-- SetupNotReady       a total-station shot with no instrument setup accepted today
 """
 
 from __future__ import annotations
@@ -35,11 +38,13 @@ __all__ = [
     "BatchClash",
     "BaulkError",
     "BundleInvalid",
+    "CautionUnanswered",
     "DuplicateRecord",
     "EnrolmentRefused",
     "FieldProblem",
     "FixNotAccepted",
     "InputFileInvalid",
+    "InstrumentLineInvalid",
     "MigrationFailed",
     "NoNumbersLeft",
     "NumberOutsideBlock",
@@ -48,6 +53,7 @@ __all__ = [
     "RecordInvalid",
     "RecordNotFound",
     "ResectionRejected",
+    "SetupNotReady",
     "StoreError",
     "StoreTooNew",
     "SurveyError",
@@ -166,3 +172,15 @@ class BundleInvalid(SyncError):
 
 class EnrolmentRefused(BaulkError):
     """An enrolment code that is unknown, already used or expired; nothing was enrolled."""
+
+
+class InstrumentLineInvalid(SurveyError):
+    """A line from an instrument (or typed in) that cannot be read: bad checksum, missing field, out of range."""
+
+
+class SetupNotReady(SurveyError):
+    """A total-station shot was given but no instrument setup has been accepted today."""
+
+
+class CautionUnanswered(BaulkError):
+    """A caution that stops the flow (possible human remains) has not been answered."""

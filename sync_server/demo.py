@@ -31,7 +31,7 @@ from schema.records import Device, Find, GnssFix, Relation, Shot
 from schema.strata import validate
 from schema.survey.polar import Station
 from schema.survey.recompute import station_of
-from schema.survey.simulate import gga, gst, readings_for, rmc
+from schema.survey.simulate import gnss_epoch, readings_for
 
 from .app import create_app
 from .loopback import serve_in_thread
@@ -185,18 +185,10 @@ def _sync_rounds(server: ServerStore, tablets: dict[str, Any], demo: DemoSite, u
 
 def _fit_site_grid(server: ServerStore, demo: DemoSite) -> dict[str, Any]:
     """Fit the site grid from the control points (both systems known) and the PROJ-free tablet polynomial."""
-    from schema.records import GridPolynomial, GridTransform
-    from schema.survey.grid import PointPair, fit_grid, fit_grid_polynomial
+    from schema.demo_site import fit_demo_grid
 
-    pairs = [PointPair(cp.code, cp.e, cp.n, cp.crs_e, cp.crs_n, cp.z, cp.z - GRID_TIE["dz"])  # type: ignore[arg-type]
-             for cp in demo.control_points]
-    fit = fit_grid(pairs)
-    grid = GridTransform(**fit.as_grid_transform())
-    poly = fit_grid_polynomial(grid=grid, crs=demo.site.crs_epsg, centre_x=1010.0, centre_y=2000.0)
-    demo.site = server.put(demo.site.model_copy(update={
-        "grid": grid, "grid_polynomial": GridPolynomial.model_validate(poly.model_dump()),
-        "vertical_offset_m": fit.vertical_offset_m or 0.0,
-    }))
+    site, fit, poly = fit_demo_grid(demo)
+    demo.site = server.put(site)
     return {
         "grid_rotation_deg": round(fit.rotation_deg, 6), "grid_scale": round(fit.scale, 8),
         "grid_max_residual_m": round(max(float(r["d"]) for r in fit.residuals), 4),
@@ -239,19 +231,6 @@ def _set_up_instrument(tablet: Any, demo: DemoSite, plan: TabletPlan) -> tuple[A
                    "warnings": res.warnings}
 
 
-def _gnss_sentences(demo: DemoSite, e: float, n: float, z: float, at: dt.datetime, quality: int) -> list[str]:
-    from schema.survey.crs import projected_to_lonlat
-    from schema.survey.grid import grid_to_crs
-
-    ce, cn = grid_to_crs(demo.site.grid, [e], [n])
-    lon, lat = projected_to_lonlat(ce, cn, demo.site.crs_epsg)
-    utc = at.astimezone(dt.timezone.utc)
-    h = z - demo.site.vertical_offset_m
-    return [gga(utc, float(lat[0]), float(lon[0]), quality=quality, height_m=h, geoid_sep_m=-12.3),
-            rmc(utc, float(lat[0]), float(lon[0])),
-            gst(utc, sigma_lat=0.008 if quality == 4 else 0.03, sigma_lon=0.007 if quality == 4 else 0.03, sigma_alt=0.015)]
-
-
 def _record(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any, progress: Progress, rng: Any) -> dict[str, Any]:
     saved: list[Find] = []
     station = station_of(setup)
@@ -267,7 +246,7 @@ def _record(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any, progress:
         elif source == "gnss":
             e, n, z = (data.pop(k) for k in ("e", "n", "z"))
             quality = 5 if i % 7 == 3 else 4
-            sentences = _gnss_sentences(demo, e, n, z, data["found_at"], quality)
+            sentences = gnss_epoch(demo.site, e, n, z, data["found_at"], quality=quality)
             try:
                 saved.append(record_gnss_find(tablet, site=demo.site, sentences=sentences, find=data, sample=sample))
             except FixNotAccepted:

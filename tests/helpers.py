@@ -68,3 +68,25 @@ def synced_tablet(server: Any, http: Any, tmp: Any, label: str) -> tuple[Any, An
     client = SyncClient(tablet, http, token, batch_size=50)
     client.sync()
     return tablet, client
+
+
+def start_field_day(store: Any, demo: DemoSite, *, trench: str = "TR1", unit: str = "101",
+                    orientation: float = 12.3456) -> tuple[Any, Any]:
+    """A started day on ``trench`` (recorder AK) with the instrument on CP1, oriented on CP2 and CP3 from
+    simulated BKS lines and accepted; returns (DayController, the true station the lines came from)."""
+    from mobile.controllers import DayController
+    from mobile.instruments import ShotSimulator
+    from schema.survey.polar import Station
+
+    days = DayController(store, laser_class="3R")
+    days.start(site_code=demo.site.code, season_label=demo.season.label, trench_code=trench, recorder="AK")
+    days.choose_unit(unit)
+    cps = {cp.code: cp for cp in demo.control_points}
+    truth = Station(cps["CP1"].e, cps["CP1"].n, cps["CP1"].z, 1.552, orientation)
+
+    sim = ShotSimulator(truth)
+    days.set_up_on_point(station="CP1", backsights=[(c, sim.shot_line(cps[c].e, cps[c].n, cps[c].z, target_height_m=1.5))
+                                                    for c in ("CP2", "CP3")], instrument_height_m=1.552)
+    days.accept_setup(laser_acknowledged_by="AK")
+    return days, truth
+

@@ -16,7 +16,7 @@ from numpy.typing import ArrayLike, NDArray
 from .angles import from_rad, wrap
 from .polar import Station
 
-__all__ = ["gga", "gst", "nmea_sentence", "readings_for", "rmc"]
+__all__ = ["gga", "gnss_epoch", "gst", "nmea_sentence", "readings_for", "rmc"]
 
 F = NDArray[np.float64]
 
@@ -80,3 +80,19 @@ def gst(t: dt.datetime, *, sigma_lat: float, sigma_lon: float, sigma_alt: float,
     return nmea_sentence(
         f"{talker}GST,{_hms(t)},0.010,{sigma_lat:.3f},{sigma_lon:.3f},0.0,{sigma_lat:.3f},{sigma_lon:.3f},{sigma_alt:.3f}"
     )
+
+
+def gnss_epoch(site: object, e: float, n: float, z: float, at: dt.datetime, *, quality: int = 4) -> list[str]:
+    """GGA, RMC and GST sentences a receiver standing on site-grid point E, N, Z would send at ``at`` (uses
+    pyproj to go from the grid to latitude/longitude: the simulator runs where PROJ is, the demo and tests)."""
+    from .crs import projected_to_lonlat
+    from .grid import grid_to_crs
+
+    ce, cn = grid_to_crs(site.grid, [e], [n])  # type: ignore[attr-defined]
+    lon, lat = projected_to_lonlat(ce, cn, site.crs_epsg)  # type: ignore[attr-defined]
+    utc = at.astimezone(dt.timezone.utc)
+    h = z - site.vertical_offset_m  # type: ignore[attr-defined]
+    fixed = quality == 4
+    return [gga(utc, float(lat[0]), float(lon[0]), quality=quality, height_m=h, geoid_sep_m=-12.3),
+            rmc(utc, float(lat[0]), float(lon[0])),
+            gst(utc, sigma_lat=0.008 if fixed else 0.03, sigma_lon=0.007 if fixed else 0.03, sigma_alt=0.015)]

@@ -1,0 +1,120 @@
+"""The camp link: enrol the tablet (a typed code or the scanned line), see what waits to be sent, sync with
+progress, and write a bundle to a folder (a USB stick) when there is no Wi-Fi. Errors come back as plain words
+with what to do; the last sync and the last error are kept in the tablet file."""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+import httpx
+
+from schema.errors import BaulkError, EnrolmentRefused, StoreError
+from schema.records import Device
+
+from ..bundles import export_bundle
+from ..enrol import enrol, parse_enrol_line, pinned_context
+from ..store import TabletStore
+from ..sync import Progress, SyncClient, SyncReport, pending_count
+
+__all__ = ["CampLink", "LinkStatus", "HTTP_TIMEOUT_S"]
+
+HTTP_TIMEOUT_S = 60.0  # a push may wait its turn behind other tablets on a busy camp laptop
+
+ClientFactory = Callable[[str, Any], httpx.Client]
+
+
+def _client(server: str, verify: Any) -> httpx.Client:
+    return httpx.Client(base_url=server, timeout=HTTP_TIMEOUT_S, verify=verify if verify is not None else True)
+
+
+@dataclass(frozen=True)
+class LinkStatus:
+    enrolled: bool
+    device: str | None
+    server: str | None
+    pending_versions: int
+    numbers_left: int
+    last_sync: str | None
+    last_error: str | None
+
+    def lines(self) -> list[str]:
+        if not self.enrolled:
+            return ["Not enrolled: type or scan the code the data manager gives you."]
+        return [f"This tablet: {self.device}  ->  {self.server or 'no server address yet'}",
+                f"Waiting to be sent: {self.pending_versions} changes",
+                f"Find numbers left: {self.numbers_left}",
+                f"Last sync: {self.last_sync or 'never'}",
+                *([f"Last problem: {self.last_error}"] if self.last_error else [])]
+
+
+class CampLink:
+    def __init__(self, store: TabletStore, *, client_factory: ClientFactory = _client):
+        self.store, self.client_factory = store, client_factory
+
+    def _http(self) -> httpx.Client:
+        server = self.store.setting("link.server")
+        if not server:
+            raise EnrolmentRefused("no camp server address is set; enrol with the code the data manager gives you")
+        pin = self.store.setting("link.sha256")
+        return self.client_factory(server, pinned_context(server, pin) if pin else None)
+
+    def enrol(self, text: str, *, server: str | None = None) -> Device:
+        """Enrol from a scanned ``baulk-enrol:`` line or a typed code (then ``server`` is needed)."""
+        got = parse_enrol_line(text)
+        address = (got.get("server") or server or "").strip().rstrip("/")
+        if not address:
+            raise EnrolmentRefused("the code has no server address; type the camp server's address (e.g. "
+                                   "https://192.168.8.10:8765) beside the code")
+        self.store.set_setting("link.server", address)
+        self.store.set_setting("link.sha256", got.get("sha256"))
+        with self._http() as http:
+            return enrol(self.store, http, got["code"])
+
+    def status(self) -> LinkStatus:
+        device = self.store.device_id()
+        token = self.store.token()
+        pending = pending_count(self.store) if device and token else 0
+        return LinkStatus(enrolled=device is not None and token is not None,
+                          device=self._label(device), server=self.store.setting("link.server"),
+                          pending_versions=pending, numbers_left=self.numbers_left(),
+                          last_sync=self.store.setting("link.last_sync"), last_error=self.store.setting("link.last_error"))
+
+    def _label(self, device: Any) -> str | None:
+        if device is None:
+            return None
+        found = self.store.list(Device, id=device)
+        return found[0].label if found else str(device)[:8]
+
+    def numbers_left(self) -> int:
+        try:
+            nxt = self.store.next_find_number()
+        except BaulkError:
+            return 0
+        return sum(b.last - max(b.first, nxt) + 1 for b in self.store.number_blocks() if b.last >= nxt)
+
+    def sync(self, progress: Progress | None = None) -> SyncReport:
+        """Push, then pull; the outcome (or the plain-words error) is kept for the status."""
+        token = self.store.token()
+        if token is None:
+            raise EnrolmentRefused("this tablet is not enrolled; enrol it before syncing")
+        try:
+            with self._http() as http:
+                report = SyncClient(self.store, http, token, progress=progress).sync()
+        except BaulkError as exc:
+            self.store.set_setting("link.last_error", str(exc))
+            raise
+        now = dt.datetime.now().astimezone()
+        self.store.set_setting("link.last_sync", f"{now:%d %b %H:%M}, sent {report.pushed_versions}, "
+                                                 f"received {report.applied_versions}")
+        self.store.set_setting("link.last_error", None)
+        return report
+
+    def export_bundle(self, folder: Path) -> dict[str, Any]:
+        """Everything not yet acknowledged, sealed in one file in ``folder`` (a USB stick) for the data manager."""
+        folder = Path(folder)
+        if not folder.is_dir():
+            raise StoreError(f"the folder {folder} does not exist; plug the stick in and choose its folder")
+        return export_bundle(self.store, folder)

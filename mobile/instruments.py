@@ -1,0 +1,194 @@
+"""Instrument input on the tablet: a line reader for serial or Bluetooth streams, Baulk's own total-station line
+format, the GNSS receiver's status from its NMEA stream, and a simulator for the demo and tests. No Kivy here.
+
+The total-station line ("BKS", Baulk shot, version 1) is our own plain ASCII format, so any instrument or
+logger that can print a line can feed the tablet (a small script on a data collector, or a person typing)::
+
+    BKS,1,<hz>,<zenith>,<slope distance m>,<target height m>,<prism constant mm>,<deg|gon>*<checksum>
+
+Fields are decimal numbers with a point; the checksum is two hex digits, the XOR of every character between
+the leading ``B`` and the ``*`` inclusive of the ``B`` (the same checksum idea NMEA 0183 uses, applied to our
+own line). Example: ``BKS,1,45.0000,90.0000,5.0000,1.500,0,deg*28``. Lines that fail are reported with the
+reason and never guessed at.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import functools
+import operator
+from dataclasses import dataclass, field
+from typing import Iterable, Iterator, Protocol
+
+from schema.errors import InstrumentLineInvalid
+from schema.survey import gnss
+
+from .recording import Reading
+
+__all__ = [
+    "GnssMonitor", "LineReader", "ShotSimulator", "format_shot_line", "parse_shot_line", "shot_checksum",
+]
+
+MAX_LINE = 512  # longer runs without a line end are noise on the wire, dropped and reported
+
+
+class ByteSource(Protocol):
+    """What a serial port or a Bluetooth socket offers: ``read(n)`` returning up to n bytes (b"" when idle)."""
+
+    def read(self, n: int) -> bytes: ...
+
+
+@dataclass
+class LineReader:
+    """Turns a byte stream into text lines: CR, LF or CRLF ends a line; partial lines wait for more bytes;
+    bytes that are not ASCII, and over-long runs, are dropped with a reason in ``dropped``."""
+
+    source: ByteSource | None = None
+    dropped: list[str] = field(default_factory=list)
+    _buffer: bytearray = field(default_factory=bytearray)
+
+    def feed(self, data: bytes) -> list[str]:
+        """Add bytes; return the complete lines they finish (without line ends, blank lines skipped)."""
+        self._buffer += data
+        lines = []
+        while True:
+            cut = min((i for i in (self._buffer.find(b"\r"), self._buffer.find(b"\n")) if i >= 0), default=-1)
+            if cut < 0:
+                break
+            raw, self._buffer = bytes(self._buffer[:cut]), self._buffer[cut + 1:]
+            line = self._decode(raw)
+            if line:
+                lines.append(line)
+        if len(self._buffer) > MAX_LINE:
+            self.dropped.append(f"{len(self._buffer)} bytes without a line end were dropped")
+            self._buffer.clear()
+        return lines
+
+    def _decode(self, raw: bytes) -> str | None:
+        try:
+            text = raw.decode("ascii").strip()
+        except UnicodeDecodeError:
+            self.dropped.append(f"a line with non-ASCII bytes was dropped ({raw[:20]!r}...)")
+            return None
+        return text or None
+
+    def poll(self, chunk: int = 256) -> list[str]:
+        """Read what the source has now and return the finished lines."""
+        if self.source is None:
+            return []
+        return self.feed(self.source.read(chunk))
+
+
+def shot_checksum(body: str) -> str:
+    return f"{functools.reduce(operator.xor, (ord(c) for c in body), 0):02X}"
+
+
+def format_shot_line(reading: Reading, *, angle_unit: str) -> str:
+    """The BKS line for a reading (what the simulator sends and what the docs show)."""
+    body = (f"BKS,1,{reading.hz:.4f},{reading.zenith:.4f},{reading.slope_distance_m:.4f},"
+            f"{reading.target_height_m:.3f},{reading.prism_constant_mm:g},{angle_unit}")
+    return f"{body}*{shot_checksum(body)}"
+
+
+_FIELDS = ("hz", "zenith", "slope distance", "target height", "prism constant")
+
+
+def parse_shot_line(line: str, *, at: dt.datetime | None = None) -> tuple[Reading, str]:
+    """A reading and its angle unit from a BKS line; ``InstrumentLineInvalid`` names what is wrong."""
+    text = line.strip()
+    body, star, given = text.partition("*")
+    if not body.startswith("BKS,"):
+        raise InstrumentLineInvalid(f"the line {text[:40]!r} is not a shot line (it should start with 'BKS,'); "
+                                    "check the instrument's output format")
+    if not star or shot_checksum(body) != given.strip().upper():
+        raise InstrumentLineInvalid(f"the shot line {text[:40]!r} has a wrong or missing checksum "
+                                    f"(expected {shot_checksum(body)}); take the shot again")
+    parts = body.split(",")
+    if len(parts) != 8 or parts[1] != "1":
+        raise InstrumentLineInvalid(f"the shot line has {len(parts)} fields (version {parts[1] if len(parts) > 1 else '?'}); "
+                                    "Baulk reads version 1 with 8 fields")
+    values = []
+    for name, raw in zip(_FIELDS, parts[2:7]):
+        try:
+            values.append(float(raw))
+        except ValueError:
+            raise InstrumentLineInvalid(f"the {name} {raw!r} in the shot line is not a number; take the shot again") from None
+    unit = parts[7]
+    if unit not in ("deg", "gon"):
+        raise InstrumentLineInvalid(f"the angle unit {unit!r} is neither 'deg' nor 'gon'; set the instrument's unit")
+    hz, zen, sd, th, pc = values
+    full = 360.0 if unit == "deg" else 400.0
+    if not 0 <= hz < full or not 0 < zen < full:
+        raise InstrumentLineInvalid(f"angles hz {hz:g} / zenith {zen:g} are outside 0-{full:g} {unit}; re-read them")
+    if not 0 < sd < 2000:
+        raise InstrumentLineInvalid(f"slope distance {sd:g} m is not between 0 and 2000 m; take the shot again")
+    if not 0 <= th < 10:
+        raise InstrumentLineInvalid(f"target height {th:g} m is not between 0 and 10 m; check the pole height")
+    when = at or dt.datetime.now(dt.timezone.utc)
+    return Reading(hz, zen, sd, th, when, prism_constant_mm=pc, raw_line=text), unit
+
+
+@dataclass
+class GnssMonitor:
+    """The receiver's state from its NMEA stream: the last complete epoch (sentences sharing a GGA time) is
+    parsed by the survey engine (pynmea2, checksums enforced). ``latest`` is that fix, ``sentences`` its lines."""
+
+    sentences: list[str] = field(default_factory=list)
+    latest: gnss.Fix | None = None
+    rejected: list[str] = field(default_factory=list)
+    _epoch: list[str] = field(default_factory=list)
+
+    def feed(self, lines: Iterable[str]) -> None:
+        for line in lines:
+            if not line.startswith("$"):
+                continue
+            if line[3:6] == "GGA" and self._epoch:
+                self._close_epoch()
+            self._epoch.append(line)
+
+    def flush(self) -> None:
+        """Close the epoch being gathered (a receiver sends GGA first; call this when the stream pauses)."""
+        if self._epoch:
+            self._close_epoch()
+
+    def _close_epoch(self) -> None:
+        log = gnss.parse_nmea(self._epoch)
+        self.rejected = [f"line {r.line}: {r.reason}" for r in log.rejected]
+        if len(log.fixes) == 1 and not log.rejected:
+            self.latest, self.sentences = log.fixes[0], list(self._epoch)
+        self._epoch = []
+
+    def status(self) -> str:
+        """One line for the screen: fix quality, HDOP and sigmas, or why there is none."""
+        fix = self.latest
+        if fix is None:
+            return "no fix yet" + (f" ({self.rejected[0]})" if self.rejected else "")
+        sig = "/".join(f"{s * 100:.1f}" if s is not None else "?" for s in (fix.sigma_lat_m, fix.sigma_lon_m, fix.sigma_alt_m))
+        hdop = f"{fix.hdop:.1f}" if fix.hdop is not None else "?"
+        return f"{fix.quality_name}, HDOP {hdop}, sigma N/E/h {sig} cm"
+
+
+class ShotSimulator:
+    """Instrument lines for the demo and tests: the exact readings an instrument at ``where`` (a ``Station``, or
+    a stored ``StationSetup``) would give on a target at E, N, Z, optionally with noise (``rng``)."""
+
+    def __init__(self, where: object, *, rng: object | None = None):
+        from schema.survey.polar import Station
+        from schema.survey.recompute import station_of
+
+        self.station = where if isinstance(where, Station) else station_of(where)  # type: ignore[arg-type]
+        self.rng = rng
+
+    def shot_line(self, e: float, n: float, z: float, *, target_height_m: float = 1.3) -> str:
+        from schema.survey.simulate import readings_for
+
+        noise = {"rng": self.rng, "sigma_angle": 0.0003, "sigma_distance_m": 0.002} if self.rng is not None else {}
+        hz, zen, sd = readings_for(self.station, e, n, z, target_height_m, **noise)  # type: ignore[arg-type]
+        reading = Reading(float(hz[0]), float(zen[0]), float(sd[0]), target_height_m, dt.datetime.now(dt.timezone.utc))
+        return format_shot_line(reading, angle_unit=self.station.angle_unit)
+
+
+def stream_lines(lines: Iterable[str]) -> Iterator[bytes]:
+    """Lines as a device would send them (CRLF-terminated bytes); the simulator's wire form."""
+    for line in lines:
+        yield (line + "\r\n").encode("ascii")

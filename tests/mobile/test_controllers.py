@@ -1,0 +1,263 @@
+"""The tablet's controllers with no window: day start, recording (shot, GNSS, tape, sieve), live checks,
+corrections and confirmations, voids, units and relations, level points and the cautions."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import pytest
+
+from mobile.controllers import FindController, FindFilter, FindListController, Position, UnitsController
+from mobile.instruments import ShotSimulator
+from schema.demo_site import fit_demo_grid
+from schema.errors import CautionUnanswered, RecordInvalid, SetupNotReady
+from schema.records import Find, LevelPoint, Relation, SafetyCheck, Sample, Shot, Unit
+from schema.survey.simulate import gnss_epoch
+from tests.helpers import start_field_day
+
+
+@pytest.fixture
+def field(tablet, demo_site):  # type: ignore[no-untyped-def]
+    """The tablet with a fitted site grid, the day started on TR1 unit 101 and the instrument accepted."""
+    site, _fit, _poly = fit_demo_grid(demo_site)
+    demo_site.site = tablet.put(site)
+    days, truth = start_field_day(tablet, demo_site)
+    return tablet, demo_site, days, ShotSimulator(truth)
+
+
+def test_day_start_names_each_wrong_choice(tablet, demo_site):  # type: ignore[no-untyped-def]
+    from mobile.controllers import DayController
+
+    with pytest.raises(RecordInvalid) as exc:
+        DayController(tablet).start(site_code="VLM", season_label="1999", trench_code="TR9", recorder="ak")
+    assert exc.value.fields == ["season", "trench", "recorder"]
+    assert "type 2-4 capital letters, e.g. AK" in str(exc.value)
+
+
+def test_day_resumes_after_a_restart(field):  # type: ignore[no-untyped-def]
+    from mobile.controllers import DayController
+
+    store, _demo, days, _sim = field
+    again = DayController(store).resume()
+    assert again is not None
+    assert (again.trench.code, again.recorder, again.unit.code) == ("TR1", "AK", "101")
+    assert again.setup is not None and again.setup.id == days.day.setup.id
+
+
+def test_setup_review_shows_residuals_and_the_laser_check_is_kept(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, _sim = field
+    (laser,) = store.list(SafetyCheck, kind="laser")
+    assert laser.answer == "laser class 3R; acknowledged by AK"
+    assert days.review is None  # accepted
+    # the residuals of exact readings are zero to the printed precision
+    review = days.set_up_on_point(station="CP1", backsights=[
+        ("CP2", ShotSimulator(days.day.setup).shot_line(1030.0, 1992.0, 99.874, target_height_m=1.5))],
+        instrument_height_m=1.552)
+    assert review.lines == ["CP2: angle +0.0000 deg, distance +0.0 mm"]
+
+
+def test_a_plotted_find_is_saved_with_its_shot_and_passes_the_checks(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    saved = finds.record(category="artifact", values={"material": "obsidian", "length_mm": "23.5", "count": "1"},
+                         position=Position("shot", shot_line=sim.shot_line(1001.25, 2001.5, 99.81)))
+    f = saved.find
+    assert (f.number, f.recovery, f.position_source, f.length_mm) == (1, "plotted", "total_station", 23.5)
+    # the BKS line carries 0.0001 deg and 0.1 mm: 10 m away that is within 0.1 mm of the target
+    assert f.e == pytest.approx(1001.25, abs=1e-4) and f.z == pytest.approx(99.81, abs=1e-4)
+    assert store.get(Shot, f.shot_id).raw_line.startswith("BKS,1,")
+    assert saved.clean, saved.issues
+
+
+def test_a_find_in_the_wrong_unit_is_flagged_then_corrected(field):  # type: ignore[no-untyped-def]
+    store, demo, days, sim = field
+    finds = FindController(store, days)
+    # 99.40 lies in unit 102 (100.00 - 0.35 - 0.20 .. 99.65), not in 101
+    saved = finds.record(category="fossil", values={"material": "tooth", "taxon": "Suidae"},
+                         position=Position("shot", shot_line=sim.shot_line(1002.0, 2001.0, 99.55)))
+    codes = [i.code for i in saved.issues]
+    assert "POS_BELOW_UNIT" in codes, codes
+    assert FindListController(store).rows(FindFilter(unresolved_only=True))[0]["number"] == saved.find.number
+    fixed = finds.edit(saved.find.id, {"unit_code": "102"})
+    assert fixed.find.unit_id == demo.units["102"].id
+    assert "POS_BELOW_UNIT" not in [i.code for i in fixed.issues]
+    assert FindListController(store).rows(FindFilter(unresolved_only=True)) == []
+
+
+def test_a_flagged_find_can_be_confirmed_with_a_reason(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    saved = finds.record(category="artifact", values={"material": "chert"},
+                         position=Position("shot", shot_line=sim.shot_line(1002.0, 2001.0, 99.55)))
+    code = saved.issues[0].code
+    with pytest.raises(RecordInvalid, match="a confirmation needs a reason"):
+        finds.confirm(saved.find.id, code, "  ")
+    kept = finds.confirm(saved.find.id, code, "piece pressed down into the tuff by trampling")
+    assert kept.notes.endswith(f"[confirmed {code}: piece pressed down into the tuff by trampling]")
+    assert [c["confirmed_reason"] for c in finds.open_checks(saved.find.id) if c["code"] == code] == [
+        "piece pressed down into the tuff by trampling"]
+    assert FindListController(store).rows(FindFilter(unresolved_only=True)) == []
+
+
+def test_gnss_find_needs_rtk_fixed_or_an_override(field):  # type: ignore[no-untyped-def]
+    store, demo, days, _sim = field
+    finds = FindController(store, days)
+    at = dt.datetime.now(dt.timezone.utc)
+    days.feed_gnss(gnss_epoch(demo.site, 1003.0, 2002.0, 99.9, at, quality=5))
+    assert days.gnss.status().startswith("RTK float")
+    from schema.errors import FixNotAccepted
+
+    with pytest.raises(FixNotAccepted):
+        finds.record(category="artifact", values={"material": "basalt"}, position=Position("gnss"))
+    status = days.feed_gnss(gnss_epoch(demo.site, 1003.0, 2002.0, 99.9, at, quality=4))
+    assert status == "RTK fixed, HDOP 0.7, sigma N/E/h 0.8/0.7/1.5 cm"
+    saved = finds.record(category="artifact", values={"material": "basalt"}, position=Position("gnss"))
+    assert saved.find.position_source == "gnss"
+    assert saved.find.e == pytest.approx(1003.0, abs=0.002) and saved.find.n == pytest.approx(2002.0, abs=0.002)
+
+
+def test_tape_and_sieve_finds(field):  # type: ignore[no-untyped-def]
+    store, demo, days, _sim = field
+    finds = FindController(store, days)
+    taped = finds.record(category="artifact", values={"material": "quartz"}, position=Position(
+        "tape", tape_from="CP1", tape_east_m=6.0, tape_north_m=11.0, tape_depth_m=0.7))
+    assert (taped.find.e, taped.find.n, taped.find.z) == (1001.0, 2001.0, pytest.approx(99.812))
+    assert taped.find.position_sigma_m == 0.02
+    sieved = finds.record(category="fossil", values={"material": "bone"}, position=Position("sieve", spit=2, bucket="B-17"))
+    assert (sieved.find.recovery, sieved.find.e, sieved.find.bucket) == ("sieved", None, "B-17")
+    assert sieved.find.spit_id == demo.spits["101"][1].id
+    with pytest.raises(RecordInvalid, match="unit 101 has no spit 9"):
+        finds.record(category="fossil", values={"material": "bone"}, position=Position("sieve", spit=9))
+    with pytest.raises(RecordInvalid) as exc:
+        finds.record(category="artifact", values={"material": "quartz"}, position=Position("tape", tape_from="CP1"))
+    assert exc.value.fields == ["tape_east_m", "tape_north_m", "tape_depth_m"]
+
+
+def test_a_sample_is_saved_with_its_details_or_not_at_all(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    line = sim.shot_line(1001.5, 2002.5, 99.8)
+    with pytest.raises(RecordInvalid) as exc:
+        finds.record(category="sample", values={"material": "sediment", "purpose": "pollen"}, position=Position("shot", shot_line=line))
+    assert "container" in exc.value.fields
+    assert store.count(Find) == 0 and store.count(Shot) == 0  # nothing half-written
+    saved = finds.record(category="sample", values={"material": "sediment", "purpose": "pollen", "container": "foil + bag",
+                                                    "mass_g": "120"}, position=Position("shot", shot_line=line))
+    sample = store.list(Sample, find_id=saved.find.id)[0]
+    assert (sample.purpose, sample.mass_g) == ("pollen", 120.0)
+
+
+def test_fields_follow_the_category(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    assert "taxon" in [f.name for f in finds.form("fossil")]
+    assert "taxon" not in [f.name for f in finds.form("artifact")]
+    with pytest.raises(RecordInvalid, match="taxon: a artifact does not take this field"):
+        finds.record(category="artifact", values={"material": "chert", "taxon": "Bovidae"},
+                     position=Position("shot", shot_line=sim.shot_line(1001, 2001, 99.8)))
+    with pytest.raises(RecordInvalid, match=r"weight_g: 'heavy' is not a number"):
+        finds.record(category="artifact", values={"material": "chert", "weight_g": "heavy"},
+                     position=Position("shot", shot_line=sim.shot_line(1001, 2001, 99.8)))
+
+
+def test_no_shot_without_an_accepted_setup(tablet, demo_site):  # type: ignore[no-untyped-def]
+    from mobile.controllers import DayController
+
+    days = DayController(tablet)
+    days.start(site_code="VLM", season_label="2026", trench_code="TR1", recorder="AK")
+    days.choose_unit("101")
+    with pytest.raises(SetupNotReady, match="no instrument setup has been accepted today"):
+        FindController(tablet, days).record(category="artifact", values={"material": "chert"},
+                                            position=Position("shot", shot_line="BKS,1,1,90,5,1.5,0,deg*00"))
+
+
+def test_possible_human_remains_stop_until_someone_is_notified(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    line = sim.shot_line(1001.2, 2001.2, 99.8)
+    with pytest.raises(CautionUnanswered, match="Stop work at this spot"):
+        finds.record(category="fossil", values={"material": "bone"}, position=Position("shot", shot_line=line),
+                     possible_human_remains=True)
+    assert store.count(Find) == 0
+    saved = finds.record(category="fossil", values={"material": "bone"}, position=Position("shot", shot_line=line),
+                         possible_human_remains=True, human_remains_notified="site director JT, 10:40; police post by radio")
+    assert saved.find.human_remains is True
+    (check,) = store.list(SafetyCheck, kind="human_remains")
+    assert (check.find_id, check.notified) == (saved.find.id, "site director JT, 10:40; police post by radio")
+
+
+def test_deep_levels_ask_for_the_shoring_check_once(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    units = UnitsController(store, days)
+    days.choose_unit("104")
+    # the trench surface is at 100.00 (unit 101's top); 1.25 m down is past the site's 1.2 m
+    point, cautions = units.level_point(unit="104", surface="bottom", shot_line=sim.shot_line(1002, 2001, 98.75))
+    assert store.get(LevelPoint, point.id).z == pytest.approx(98.75)
+    (caution,) = cautions
+    assert caution.kind == "shoring" and caution.depth_m == pytest.approx(1.25)
+    assert "1.25 m below the trench's surface, past the 1.20 m set for this site" in caution.text
+    days.answer_caution(caution, "east face benched, checked by JT")
+    _p, again = units.level_point(unit="104", surface="bottom", shot_line=sim.shot_line(1003, 2001, 98.74))
+    assert again == []
+    _p, deeper = units.level_point(unit="104", surface="bottom", shot_line=sim.shot_line(1003, 2002, 98.40))
+    assert [c.kind for c in deeper] == ["shoring"]
+    # a find that deep asks too (nothing answered for 1.6 m yet)
+    saved = FindController(store, days).record(category="artifact", values={"material": "basalt"},
+                                               position=Position("shot", shot_line=sim.shot_line(1002, 2002, 98.40)))
+    assert [c.kind for c in saved.cautions] == ["shoring"]
+
+
+def test_edit_and_void_keep_the_number(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    saved = finds.record(category="artifact", values={"material": "chert"},
+                         position=Position("shot", shot_line=sim.shot_line(1001.25, 2001.5, 99.81)))
+    edited = finds.edit(saved.find.id, {"material": "obsidian", "weight_g": "3.5"})
+    assert (edited.find.material, edited.find.weight_g) == ("obsidian", 3.5)
+    with pytest.raises(RecordInvalid, match="a void needs a reason"):
+        finds.void(saved.find.id, "")
+    voided = finds.void(saved.find.id, "double entry of find 2")
+    assert (voided.voided, voided.number) == (True, saved.find.number)
+    assert store.get(Find, saved.find.id).void_reason == "double entry of find 2"
+    assert finds.next_number() == saved.find.number + 1  # a voided number is never given again
+
+
+def test_units_relations_and_matrix_checks(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, _sim = field
+    units = UnitsController(store, days)
+    new = units.save_unit({"code": "105", "kind": "cut", "description": "pit cut", "munsell": "", "status": "open"})
+    assert (new.trench_id, new.recorder, new.kind) == (days.day.trench.id, "AK", "cut")
+    with pytest.raises(RecordInvalid) as exc:
+        units.save_unit({"code": "106", "kind": "fill", "munsell": "10YR 5/3"})
+    assert exc.value.fields == ["munsell_condition"]
+    fill = units.save_unit({"code": "106", "kind": "fill", "munsell": "10YR 5/3", "munsell_condition": "moist",
+                            "texture": "loamy_sand"})
+    ok = units.relate(upper="106", lower="105", kind="fills")
+    assert ok.issues == []
+    assert units.relations("105") == [("lower", "fills", "106")]
+    # 101 over 106 over ... 101: a cycle is shown at once, not refused
+    units.relate(upper="105", lower="101", kind="cuts")
+    cyc = units.relate(upper="101", lower="106", kind="above")
+    assert "MATRIX_CYCLE" in [i.code for i in cyc.issues]
+    assert store.count(Relation) == len(field[1].relations) + 3  # the demo's eleven and these three
+    closed = units.save_unit({"status": "closed"}, code=fill.code)
+    assert closed.status == "closed" and closed.closed_on == days.day.now().date()
+    assert store.list(Unit, code="106")[0].status == "closed"
+
+
+def test_find_list_filters(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    finds.record(category="artifact", values={"material": "obsidian"}, position=Position("shot", shot_line=sim.shot_line(1001, 2001, 99.8)))
+    finds.record(category="fossil", values={"material": "tooth", "taxon": "Hippopotamidae"},
+                 position=Position("shot", shot_line=sim.shot_line(1001.5, 2001, 99.8)))
+    days.choose_unit("102")
+    finds.record(category="fossil", values={"material": "bone"}, position=Position("sieve", spit=1, bucket="7"))
+    listing = FindListController(store)
+    assert [r["number"] for r in listing.rows()] == [3, 2, 1]
+    assert [r["number"] for r in listing.rows(FindFilter(category="fossil"))] == [3, 2]
+    assert [r["number"] for r in listing.rows(FindFilter(unit="101"))] == [2, 1]
+    assert [r["number"] for r in listing.rows(FindFilter(text="hippo"))] == [2]
+    assert [r["number"] for r in listing.rows(FindFilter(day=dt.datetime.now(dt.timezone.utc).date()))] == [3, 2, 1]
+    assert listing.rows(FindFilter(day=dt.date(2020, 1, 1))) == []
+    assert listing.rows(FindFilter(text="2"))[0]["text"].startswith("2  101  fossil tooth  plotted")
