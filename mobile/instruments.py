@@ -26,7 +26,8 @@ from schema.survey import gnss
 from .recording import Reading
 
 __all__ = [
-    "GnssMonitor", "LineReader", "ShotSimulator", "format_shot_line", "parse_shot_line", "shot_checksum",
+    "FieldSimulator", "GnssMonitor", "LineReader", "ShotSimulator", "TtyPort", "format_shot_line", "parse_shot_line",
+    "shot_checksum", "stream_lines",
 ]
 
 MAX_LINE = 512  # longer runs without a line end are noise on the wire, dropped and reported
@@ -192,3 +193,73 @@ def stream_lines(lines: Iterable[str]) -> Iterator[bytes]:
     """Lines as a device would send them (CRLF-terminated bytes); the simulator's wire form."""
     for line in lines:
         yield (line + "\r\n").encode("ascii")
+
+
+class TtyPort:
+    """A serial or Bluetooth (SPP) link that the system shows as a device file (``/dev/ttyUSB0``,
+    ``/dev/rfcomm0``), read without blocking; set its speed beforehand (``stty -F /dev/ttyUSB0 9600``)."""
+
+    def __init__(self, path: str):
+        import os
+
+        self._fd = os.open(path, os.O_RDONLY | os.O_NONBLOCK)
+        self.reader = LineReader(self)
+
+    def read(self, n: int) -> bytes:
+        import os
+
+        try:
+            return os.read(self._fd, n)
+        except BlockingIOError:
+            return b""
+
+    def lines(self) -> list[str]:
+        out: list[str] = []
+        while True:
+            got = self.reader.poll()
+            if not got:
+                return out
+            out += got
+
+    def close(self) -> None:
+        import os
+
+        os.close(self._fd)
+
+
+class FieldSimulator:
+    """Stands in for the total station and the GNSS receiver in the demo, the tests and ``baulk tablet
+    --simulate``: backsight lines from a station whose orientation only the simulator knows, shots on random
+    points inside the trench at the depth of the unit being dug, and RTK-fixed GNSS epochs."""
+
+    def __init__(self, *, seed: int = 7, orientation: float = 37.5, instrument_height_m: float = 1.552):
+        import random
+
+        self.rng = random.Random(seed)
+        self.orientation, self.instrument_height_m = orientation, instrument_height_m
+
+    def backsight_line(self, station: object, target: object) -> str:
+        from schema.survey.polar import Station
+
+        s = Station(station.e, station.n, station.z, self.instrument_height_m, self.orientation)  # type: ignore[attr-defined]
+        return ShotSimulator(s).shot_line(target.e, target.n, target.z, target_height_m=1.5)  # type: ignore[attr-defined]
+
+    def target(self, outline: list[tuple[float, float]], top_z: float, bottom_z: float) -> tuple[float, float, float]:
+        """A random point well inside the trench's bounding box, between the unit's surfaces."""
+        xs, ys = [p[0] for p in outline], [p[1] for p in outline]
+        e = self.rng.uniform(min(xs) + 0.2, max(xs) - 0.2)
+        n = self.rng.uniform(min(ys) + 0.2, max(ys) - 0.2)
+        z = bottom_z + (top_z - bottom_z) * self.rng.uniform(0.3, 0.7)
+        return round(e, 3), round(n, 3), round(z, 3)
+
+    def shot_line(self, setup: object, point: tuple[float, float, float]) -> str:
+        return ShotSimulator(setup).shot_line(*point)
+
+    def gnss_lines(self, site: object, point: tuple[float, float, float]) -> list[str]:
+        from schema.errors import FixNotAccepted
+        from schema.survey.simulate import gnss_epoch
+
+        if getattr(site, "grid", None) is None:
+            raise FixNotAccepted(f"site {getattr(site, 'code', '?')} has no fitted grid yet, so the simulated receiver "
+                                 "cannot place itself; the data manager fits it (baulk survey fit-grid) and you sync")
+        return gnss_epoch(site, *point, dt.datetime.now(dt.timezone.utc), quality=4)

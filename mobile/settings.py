@@ -21,3 +21,7 @@ class TabletSettings(BaseSettings):
     model_config = SettingsConfigDict(env_prefix="BAULK_TABLET_", extra="forbid")
 
     store_path: Path = Field(default_factory=_default_store, description="the tablet's SQLite file")
+    labels_dir: Path = Field(default_factory=lambda: _default_store().parent / "labels",
+                             description="where bag-label sheets (PDF) are written")
+    laser_class: str = Field(default="see the instrument's label", max_length=40,
+                             description="the total station's laser class, shown with the instrument setup")

@@ -56,6 +56,27 @@ def demo(out: Path) -> None:
 
 
 @cli.command()
+@click.option("--store", "store_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="The tablet's SQLite file [default: tablet.sqlite in the user data folder].")
+@click.option("--simulate", is_flag=True, help="Stand-in total station and GNSS receiver (demo and training).")
+@click.option("--instrument", default=None, help="Device file the total station's BKS lines arrive on (e.g. /dev/rfcomm0).")
+@click.option("--receiver", default=None, help="Device file the GNSS receiver's NMEA sentences arrive on.")
+@click.option("--laser-class", default=None, help="The total station's laser class as marked on it (shown with the setup).")
+def tablet(store_path: Path | None, simulate: bool, instrument: str | None, receiver: str | None,
+           laser_class: str | None) -> None:
+    """Open the tablet app (Kivy) on a tablet file."""
+    import os
+
+    os.environ.setdefault("KIVY_NO_ARGS", "1")
+    from mobile.settings import TabletSettings
+    from mobile.ui.app import TabletApp
+
+    settings = TabletSettings()
+    TabletApp(store_path=store_path or settings.store_path, simulate=simulate, instrument=instrument, receiver=receiver,
+              labels_dir=settings.labels_dir, laser_class=laser_class or settings.laser_class).run()
+
+
+@cli.command()
 @click.option("--host", default=None, help="Address to listen on [default: 127.0.0.1; 0.0.0.0 for the camp Wi-Fi].")
 @click.option("--port", type=int, default=None, help="Port to listen on [default: 8765].")
 @click.option("--db", "database_url", default=None,

@@ -1,0 +1,152 @@
+"""The tablet app: a bar of six buttons that is always on screen (so nothing is more than two taps from
+Record) over the screens, each created the first time it is shown. ``baulk tablet`` starts it.
+
+Kivy reads its settings when first imported: set ``KIVY_NO_ARGS=1`` (the ``baulk`` command does) so that it
+leaves the command line alone.
+"""
+
+from __future__ import annotations
+
+import importlib
+from pathlib import Path
+from typing import Any
+
+from kivy.app import App
+from kivy.core.window import Window
+from kivy.properties import ListProperty, StringProperty
+from kivy.uix.boxlayout import BoxLayout
+from kivy.uix.screenmanager import NoTransition, ScreenManager
+
+from schema.records import LevelPoint
+
+from .. import controllers as c
+from ..instruments import FieldSimulator, TtyPort
+from ..store import TabletStore
+from . import theme
+from .widgets import load_kv
+
+__all__ = ["SCREENS", "TabletApp"]
+
+HERE = Path(__file__).parent
+
+# screen name -> (button text, module, class); the bar shows them in this order
+SCREENS: dict[str, tuple[str, str, str]] = {
+    "day": ("Day", "mobile.ui.screens.day", "DayScreen"),
+    "record": ("Record", "mobile.ui.screens.record", "RecordScreen"),
+    "units": ("Units", "mobile.ui.screens.units", "UnitsScreen"),
+    "finds": ("Finds", "mobile.ui.screens.finds", "FindsScreen"),
+    "labels": ("Labels", "mobile.ui.screens.labels", "LabelsScreen"),
+    "link": ("Camp", "mobile.ui.screens.link", "LinkScreen"),
+}
+
+
+class Shell(BoxLayout):
+    """The bar and the screen manager."""
+
+    current = StringProperty("day")
+
+    def show(self, name: str) -> Any:
+        manager: ScreenManager = self.ids.manager
+        if not manager.has_screen(name):
+            _label, module, cls = SCREENS[name]
+            mod = importlib.import_module(module)
+            load_kv(Path(mod.__file__).with_suffix(".kv"))  # type: ignore[arg-type]
+            manager.add_widget(getattr(mod, cls)(name=name))
+        manager.current = name
+        self.current = name
+        return manager.get_screen(name)
+
+
+class TabletApp(App):
+    """The Baulk tablet app over one tablet file."""
+
+    title = "Baulk"
+    bg = ListProperty(theme.THEMES["sun"]["bg"])
+    fg = ListProperty(theme.THEMES["sun"]["fg"])
+    button = ListProperty(theme.THEMES["sun"]["button"])
+    button_fg = ListProperty(theme.THEMES["sun"]["button_fg"])
+    field = ListProperty(theme.THEMES["sun"]["field"])
+    accent = ListProperty(theme.THEMES["sun"]["accent"])
+    alarm = ListProperty(theme.THEMES["sun"]["alarm"])
+    chosen = ListProperty(theme.THEMES["sun"]["chosen"])
+
+    def __init__(self, *, store_path: Path, simulate: bool = False, instrument: str | None = None,
+                 receiver: str | None = None, labels_dir: Path | None = None, laser_class: str = "see the instrument's label",
+                 **kw: Any):
+        super().__init__(**kw)
+        self.store_path = Path(store_path)
+        self.labels_dir = Path(labels_dir) if labels_dir else self.store_path.parent / "labels"
+        self.simulator = FieldSimulator() if simulate else None
+        self._instrument_path, self._receiver_path = instrument, receiver
+        self.laser_class = laser_class
+
+    # -- life cycle ---------------------------------------------------------------------------------------
+    def build(self) -> Shell:
+        self.store = TabletStore.open(self.store_path)
+        self.instrument = TtyPort(self._instrument_path) if self._instrument_path else None
+        self.receiver = TtyPort(self._receiver_path) if self._receiver_path else None
+        self.days = c.DayController(self.store, laser_class=self.laser_class)
+        self.finds = c.FindController(self.store, self.days)
+        self.units = c.UnitsController(self.store, self.days)
+        self.labels = c.LabelQueue(self.store)
+        self.link = c.CampLink(self.store)
+        load_kv(HERE / "widgets.kv")
+        load_kv(HERE / "app.kv")
+        Window.clearcolor = self.bg
+        shell = Shell()
+        day = self.days.resume()
+        shell.show("record" if day is not None and day.unit is not None else "day")
+        return shell
+
+    def on_stop(self) -> None:
+        for port in (self.instrument, self.receiver):
+            if port is not None:
+                port.close()
+        self.store.close()
+
+    def go(self, name: str) -> Any:
+        return self.root.show(name)
+
+    def set_theme(self, name: str) -> None:
+        for key, value in theme.THEMES[name].items():
+            setattr(self, key, value)
+        Window.clearcolor = self.bg
+
+    @property
+    def listing(self) -> c.FindListController:
+        day = self.days.day
+        return c.FindListController(self.store, timezone=day.site.timezone if day else "UTC")
+
+    # -- instruments ----------------------------------------------------------------------------------------
+    def read_shot_line(self) -> str | None:
+        """The latest shot line from the instrument (or the simulator, aimed inside the current unit)."""
+        if self.simulator is not None:
+            return self.simulator.shot_line(self.days.require_setup(), self.simulated_point())
+        if self.instrument is not None:
+            lines = [ln for ln in self.instrument.lines() if ln.startswith("BKS,")]
+            return lines[-1] if lines else None
+        return None
+
+    def read_backsight_line(self, station_code: str, target_code: str) -> str | None:
+        if self.simulator is None:
+            return self.read_shot_line() if self.instrument is not None else None
+        points = {p.code: p for p in self.days.control_points()}
+        return self.simulator.backsight_line(points[station_code], points[target_code])
+
+    def read_receiver(self) -> str:
+        """Feed the receiver's (or the simulator's) latest sentences to the GNSS monitor; returns its status."""
+        if self.simulator is not None:
+            lines = self.simulator.gnss_lines(self.days.require_day().site, self.simulated_point())
+        elif self.receiver is not None:
+            lines = self.receiver.lines()
+        else:
+            lines = []
+        return self.days.feed_gnss(lines)
+
+    def simulated_point(self) -> tuple[float, float, float]:
+        day = self.days.require_day()
+        levels = self.store.list(LevelPoint, unit_id=day.unit.id) if day.unit else []
+        tops = [p.z for p in levels if p.surface == "top"] or [100.0]
+        bottoms = [p.z for p in levels if p.surface == "bottom"] or [min(tops) - 0.2]
+        assert self.simulator is not None
+        return self.simulator.target(day.trench.outline, sum(tops) / len(tops), sum(bottoms) / len(bottoms))

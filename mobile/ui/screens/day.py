@@ -1,0 +1,105 @@
+"""Day start: site, season, trench, initials; the instrument setup with its residuals, accepted before shots are
+taken (the laser caution acknowledged with it); the GNSS receiver's status; the theme."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from kivy.properties import ListProperty, StringProperty
+
+from . import BaulkScreen
+
+__all__ = ["DayScreen"]
+
+NONE = "-"
+
+
+class DayScreen(BaulkScreen):
+    sites = ListProperty([])
+    seasons = ListProperty([])
+    trenches = ListProperty([])
+    points = ListProperty([])
+    cautions = StringProperty("")
+    residuals = StringProperty("")
+    gnss = StringProperty("no receiver read yet")
+    setup_state = StringProperty("No instrument setup accepted today.")
+
+    def refresh(self) -> None:
+        days = self.app.days
+        sites = days.sites()
+        self.sites = [s.code for s in sites]
+        ids = self.ids
+        if ids.site.text not in self.sites and self.sites:
+            ids.site.text = self.sites[0]
+        site = next((s for s in sites if s.code == ids.site.text), None)
+        self.seasons = [s.label for s in days.seasons(site)] if site else []
+        self.trenches = [t.code for t in days.trenches(site)] if site else []
+        if days.day is not None:
+            ids.season.text, ids.trench.text = days.day.season.label, days.day.trench.code
+            ids.recorder.text = days.day.recorder
+            self.points = [NONE, *(p.code for p in days.control_points())]
+            if days.day.setup is not None:
+                self.setup_state = f"Setup accepted: station {days.day.setup.station_code}."
+        else:
+            if ids.season.text not in self.seasons and self.seasons:
+                ids.season.text = self.seasons[-1]
+        if not self.sites:
+            self.message = "This tablet holds no site yet: enrol and sync on the Camp screen first."
+
+    def start_day(self) -> None:
+        ids = self.ids
+        day = self.guard(self.app.days.start, site_code=ids.site.text, season_label=ids.season.text,
+                         trench_code=ids.trench.text, recorder=ids.recorder.text.strip().upper())
+        if day is None:
+            return
+        self.cautions = "\n\n".join(f"{c.title.upper()}: {c.text}" for c in self.app.days.day_cautions())
+        self.message = f"Day started: {day.site.code} {day.season.label}, trench {day.trench.code}, {day.recorder}."
+        self.refresh()
+
+    def read_backsight(self, row: int) -> None:
+        ids = self.ids
+        target = ids[f"bs{row}_point"].text
+        if NONE in (target, ids.station.text) and ids.method.text == "on a point":
+            self.problem = "PROBLEM: choose the occupied point and this row's point first"
+            return
+        line = self.guard(self.app.read_backsight_line, ids.station.text, target)
+        if line:
+            ids[f"bs{row}_line"].text = line
+        elif line is None and self.problem == "":
+            self.problem = "PROBLEM: no line from the instrument yet; take the reading again or type it"
+
+    def _rows(self) -> list[tuple[str, str]]:
+        ids = self.ids
+        return [(ids[f"bs{i}_point"].text, ids[f"bs{i}_line"].text) for i in (1, 2, 3)
+                if ids[f"bs{i}_point"].text not in ("", NONE) and ids[f"bs{i}_line"].text.strip()]
+
+    def compute_setup(self) -> None:
+        ids = self.ids
+        try:
+            ih = float(ids.ih.text.replace(",", "."))
+        except ValueError:
+            self.problem = "PROBLEM: instrument height: type it in metres, e.g. 1.552"
+            return
+        if ids.method.text == "on a point":
+            review = self.guard(self.app.days.set_up_on_point, station=ids.station.text, backsights=self._rows(),
+                                instrument_height_m=ih)
+        else:
+            review = self.guard(self.app.days.set_up_free_station, code=ids.free_code.text.strip() or "FS",
+                                observations=self._rows(), instrument_height_m=ih)
+        if review is not None:
+            warn = "".join(f"\nWARNING: {w}" for w in review.warnings)
+            self.residuals = "Residuals:\n" + "\n".join(review.lines) + warn
+            self.setup_state = "Check the residuals, then accept."
+
+    def accept_setup(self) -> None:
+        setup = self.guard(self.app.days.accept_setup, laser_acknowledged_by=self.ids.laser_by.text)
+        if setup is not None:
+            self.setup_state = f"Setup accepted: station {setup.station_code}. Shots can be taken."
+
+    def read_receiver(self) -> None:
+        status = self.guard(self.app.read_receiver)
+        if status:
+            self.gnss = status
+
+    def theme(self, name: str) -> Any:
+        self.app.set_theme(name)

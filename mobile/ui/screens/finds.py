@@ -1,0 +1,64 @@
+"""The find list: search (number, material, taxon, notes) and filters (unit, category, today, open checks) over a
+recycled list that draws only the rows on screen; tap a row to correct it on Record or to void it."""
+
+from __future__ import annotations
+
+import uuid
+
+from kivy.properties import ListProperty, StringProperty
+
+from ...controllers import FindFilter
+from . import BaulkScreen
+
+__all__ = ["FindsScreen"]
+
+ANY = "any"
+
+
+class FindsScreen(BaulkScreen):
+    units = ListProperty([ANY])
+    chosen = StringProperty("")
+    detail = StringProperty("")
+    count = StringProperty("")
+
+    def refresh(self) -> None:
+        self.units = [ANY, *self.app.listing.units()]
+        self.search()
+
+    def filters(self) -> FindFilter:
+        ids = self.ids
+        day = self.app.days.day
+        return FindFilter(text=ids.text.text, unit=None if ids.unit.text in ("", ANY) else ids.unit.text,
+                          category=None if ids.category.text in ("", ANY) else ids.category.text,
+                          day=day.now().date() if ids.today.state == "down" and day else None,
+                          unresolved_only=ids.unresolved.state == "down")
+
+    def search(self) -> None:
+        rows = self.app.listing.rows(self.filters())
+        self.ids.rv.data = [{"text": r["text"], "find_id": r["id"]} for r in rows]
+        self.count = f"{len(rows)} finds"
+
+    def choose(self, find_id: str) -> None:
+        from schema.records import Find
+
+        find = self.app.store.get(Find, uuid.UUID(find_id))
+        self.chosen = find_id
+        checks = self.app.finds.open_checks(find.id)
+        self.detail = (f"Find {find.number}: {find.category} {find.material}, {find.recovery}"
+                       + (" VOIDED: " + (find.void_reason or "") if find.voided else "")
+                       + "".join(f"\n{c['severity'].upper()} {c['code']}: {c['message']}"
+                                 + (f" (confirmed: {c['confirmed_reason']})" if c["confirmed_reason"] else f". Fix: {c['fix']}")
+                                 for c in checks))
+
+    def correct(self) -> None:
+        if self.chosen:
+            self.app.go("record").load_find(self.chosen)
+
+    def void(self) -> None:
+        if not self.chosen:
+            return
+        done = self.guard(self.app.finds.void, uuid.UUID(self.chosen), self.ids.void_reason.text)
+        if done is not None:
+            self.ids.void_reason.text = ""
+            self.choose(self.chosen)
+            self.search()

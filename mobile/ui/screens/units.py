@@ -1,0 +1,101 @@
+"""Units of today's trench: choose one to edit or start a new one (fields from the model: kind, description,
+Munsell colour, condition, texture, status), relate it to another unit (matrix problems shown at once), and
+shoot levels on its top or bottom surface."""
+
+from __future__ import annotations
+
+from kivy.properties import ListProperty, StringProperty
+
+from schema import vocab
+from schema.munsell import parse_munsell
+
+from ..caution import CautionDialog
+from . import BaulkScreen
+
+__all__ = ["UnitsScreen"]
+
+
+class UnitsScreen(BaulkScreen):
+    units = ListProperty([])
+    kinds = ListProperty(list(vocab.values(vocab.RelationKind)))
+    relations = StringProperty("")
+    editing = StringProperty("")
+    munsell_note = StringProperty("")
+
+    def refresh(self) -> None:
+        if self.app.days.day is None:
+            self.message = "Start the day first (Day)."
+            return
+        self.units = [u.code for u in self.app.units.units()]
+        if not getattr(self.ids.form, "inputs", None):
+            self.ids.form.set_fields(self.app.units.form())
+            self.ids.form.inputs["munsell"].bind(text=lambda _w, text: self.check_munsell(text))
+        self.message = f"Units in trench {self.app.days.day.trench.code}: {len(self.units)}"
+
+    def check_munsell(self, text: str) -> None:
+        """Live help on the Munsell notation (hue value/chroma, e.g. 10YR 5/3)."""
+        if not text.strip():
+            self.munsell_note = ""
+            return
+        try:
+            parse_munsell(text)
+            self.munsell_note = f"Munsell {text.strip()}: reads as a valid notation."
+        except ValueError as exc:
+            self.munsell_note = f"MUNSELL: {exc}"
+
+    def pick(self, code: str) -> None:
+        if not code:
+            return
+        unit = self.guard(self.app.units.unit, code)
+        if unit is not None:
+            self.editing = code
+            self.ids.form.set_values(unit.model_dump())
+            self.show_relations()
+
+    def new_unit(self) -> None:
+        self.editing = ""
+        self.ids.form.set_values({})
+        self.relations = ""
+
+    def save(self) -> None:
+        unit = self.guard(self.app.units.save_unit, self.ids.form.values(), code=self.editing or None)
+        if unit is not None:
+            self.editing = unit.code
+            self.message = f"Unit {unit.code} saved ({unit.kind}, {unit.status})."
+            self.units = [u.code for u in self.app.units.units()]
+            self.show_relations()
+
+    def show_relations(self) -> None:
+        if not self.editing:
+            return
+        rows = self.guard(self.app.units.relations, self.editing) or []
+        self.relations = "\n".join(f"{self.editing} {kind} {other}" if role == "upper" else f"{other} {kind} {self.editing}"
+                                   for role, kind, other in rows) or "No relations yet."
+
+    def relate(self) -> None:
+        ids = self.ids
+        done = self.guard(self.app.units.relate, upper=ids.upper.text, lower=ids.lower.text, kind=ids.kind.text)
+        if done is None:
+            return
+        lines = [f"Relation saved: {ids.upper.text} {ids.kind.text} {ids.lower.text}."]
+        lines += [f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}" for i in done.issues]
+        self.message = "\n".join(lines)
+        self.show_relations()
+
+    def read_level(self) -> None:
+        line = self.guard(self.app.read_shot_line)
+        if line:
+            self.ids.level_line.text = line
+
+    def add_level(self) -> None:
+        ids = self.ids
+        got = self.guard(self.app.units.level_point, unit=self.editing or (self.app.days.day.unit.code if self.app.days.day.unit else ""),
+                         surface=ids.surface.text, shot_line=ids.level_line.text)
+        if got is None:
+            return
+        point, cautions = got
+        self.message = f"Level saved on the {point.surface} at Z {point.z:.3f}."
+        ids.level_line.text = ""
+        for caution in cautions:
+            self.dialog = CautionDialog(caution, lambda text, c=caution: self.guard(self.app.days.answer_caution, c, text))
+            self.dialog.open()
