@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 import json
 import sqlite3
+import time
 from pathlib import Path
 from typing import Any
 
@@ -87,4 +88,128 @@ benchmark(Bench(
     baseline=_bare_insert,
     repeats=REPEATS,
     doc="tablet store save_find (validate, number check, insert in a savepoint) vs a bare sqlite3 insert",
+))
+
+
+# -- the tablet with a season's finds already on it -----------------------------------------------------------
+NEW_FINDS = 200  # saves timed one by one for the p95
+
+
+def _prefilled(demo: Any, path: Path, count: int) -> list[dict[str, Any]]:
+    """A tablet file holding ``count`` finds with their versions (written in one transaction, as a season of
+    syncs would leave them); returns the finds still to be saved (numbers after those)."""
+    store = _fresh_store(demo, path)
+    plan = plan_finds(demo, label="TAB-1", first_number=1, count=int(count * 1.3) + 2 * NEW_FINDS, seed=11)
+    finds = [f for f in plan.finds if f["category"] != "sample"]  # samples need their details: left out here
+    assert len(finds) >= count + NEW_FINDS
+    with store.atomic() as conn:
+        for data in finds[:count]:
+            store.save_versioned(conn, Find.model_validate(data), new=True)
+    store.close()
+    return finds[count:count + NEW_FINDS]
+
+
+def _p95(values: list[float]) -> float:
+    ordered = sorted(values)
+    return round(ordered[min(len(ordered) - 1, int(0.95 * len(ordered)))] * 1000, 2)
+
+
+def _setup_full_save(size: int, work: Path) -> dict[str, Any]:
+    import shutil
+
+    demo = build_site()
+    todo = _prefilled(demo, work / "prefilled.sqlite", size)
+    cols = list(db.to_row(Find.model_validate(todo[0])))
+    rows = [[_plain(v) for v in db.to_row(Find.model_validate(f)).values()] for f in todo]
+    old = [[_plain(v) for v in db.to_row(Find.model_validate({**todo[0], "number": n + 1})).values()] for n in range(size)]
+    sql = f"INSERT INTO find ({', '.join(cols)}) VALUES ({', '.join('?' for _ in cols)})"
+    stores, bare = [], []
+    for i in range(REPEATS):
+        shutil.copy(work / "prefilled.sqlite", work / f"subject-{i}.sqlite")
+        stores.append(TabletStore.open(work / f"subject-{i}.sqlite"))
+        conn = _bare_table(work / f"baseline-{i}.sqlite", cols)
+        conn.execute("CREATE INDEX ix_number ON find (number)")
+        conn.execute("BEGIN")
+        conn.executemany(sql, [[f"old{i}-{k}", *r[1:]] for k, r in enumerate(old)])
+        conn.execute("COMMIT")
+        bare.append(conn)
+    return {"finds": todo, "rows": rows, "sql": sql, "stores": stores, "bare": bare, "subject_times": [],
+            "baseline_times": [], "report": {"finds_in_store": size, "saves_timed": len(todo)}}
+
+
+def _save_one_by_one(state: dict[str, Any], _work: Path, i: int) -> float:
+    store, total = state["stores"][i], 0.0
+    for data in state["finds"]:
+        t0 = time.perf_counter()
+        store.save_find(find=data)
+        took = time.perf_counter() - t0
+        state["subject_times"].append(took)
+        total += took
+    return total
+
+
+def _insert_one_by_one(state: dict[str, Any], _work: Path, i: int) -> float:
+    conn, total = state["bare"][i], 0.0
+    for row in state["rows"]:
+        t0 = time.perf_counter()
+        conn.execute("BEGIN IMMEDIATE")
+        conn.execute(state["sql"], row)
+        conn.execute("COMMIT")
+        took = time.perf_counter() - t0
+        state["baseline_times"].append(took)
+        total += took
+    return total
+
+
+def _p95_report(state: dict[str, Any], _work: Path) -> None:
+    state["report"]["save_p95_ms"] = _p95(state["subject_times"])
+    state["report"]["bare_insert_p95_ms"] = _p95(state["baseline_times"])
+
+
+benchmark(Bench(
+    name="tablet.save_find",
+    baseline_name="sqlite3 insert into the same-sized table, 1 txn/row",
+    sizes=(5000, 50000),
+    setup=_setup_full_save,
+    subject=_save_one_by_one,
+    baseline=_insert_one_by_one,
+    repeats=REPEATS,
+    after=_p95_report,
+    doc=f"save_find of {NEW_FINDS} finds, one at a time, into a tablet already holding n finds; save_p95_ms (goal <= 5)",
+))
+
+
+def _setup_list(size: int, work: Path) -> dict[str, Any]:
+    demo = build_site()
+    _prefilled(demo, work / "listed.sqlite", size)
+    store = TabletStore.open(work / "listed.sqlite")
+    bare = sqlite3.connect(work / "listed.sqlite")
+    return {"store": store, "bare": bare, "report": {"finds_in_store": size}}
+
+
+def _open_list(state: dict[str, Any], _work: Path, _i: int) -> float:
+    from .controllers import FindFilter, FindListController
+
+    t0 = time.perf_counter()
+    rows = FindListController(state["store"]).rows(FindFilter())
+    took = time.perf_counter() - t0
+    assert len(rows) == state["report"]["finds_in_store"]
+    state["report"]["open_ms"] = round(took * 1000, 1)
+    return took
+
+
+def _bare_select(state: dict[str, Any], _work: Path, _i: int) -> None:
+    state["bare"].execute("SELECT id, number, unit_id, category, material, recovery, found_at, voided, "
+                          "label_printed_at FROM find ORDER BY number DESC").fetchall()
+
+
+benchmark(Bench(
+    name="tablet.find_list",
+    baseline_name="sqlite3 select of the same columns",
+    sizes=(5000, 50000),
+    setup=_setup_list,
+    subject=_open_list,
+    baseline=_bare_select,
+    repeats=REPEATS,
+    doc="the find list's rows (query, unit codes, open checks, row text) over n finds; open_ms (goal <= 300)",
 ))

@@ -33,8 +33,16 @@ def _imports(package: str) -> dict[str, set[str]]:
     ],
 )
 def test_boundaries(package: str, forbidden: set[str], allowed_in: set[str]) -> None:
+    """Where each package may reach."""
     bad = {f: sorted(n & forbidden) for f, n in _imports(package).items() if n & forbidden and f not in allowed_in}
     assert bad == {}
+
+
+def test_only_the_screens_import_kivy() -> None:
+    """Controllers, the store, instruments and labels run with no Kivy (they are tested without a window)."""
+    screens = {f for f in _imports("mobile") if f.startswith("mobile/ui/")}
+    bad = {f: sorted(n & {"kivy"}) for f, n in _imports("mobile").items() if "kivy" in n and f not in screens}
+    assert screens and bad == {}
 
 
 def test_public_api_is_complete() -> None:

@@ -261,3 +261,24 @@ def test_find_list_filters(field):  # type: ignore[no-untyped-def]
     assert [r["number"] for r in listing.rows(FindFilter(day=dt.datetime.now(dt.timezone.utc).date()))] == [3, 2, 1]
     assert listing.rows(FindFilter(day=dt.date(2020, 1, 1))) == []
     assert listing.rows(FindFilter(text="2"))[0]["text"].startswith("2  101  fossil tooth  plotted")
+
+
+def test_gnss_find_without_proj_uses_the_site_polynomial(field, monkeypatch):  # type: ignore[no-untyped-def]
+    """A tablet build with no PROJ (Android) places a GNSS find with the polynomial the server fitted; it agrees
+    with the pyproj answer within the polynomial's stored maximum error."""
+    import schema.survey.crs as crs_mod
+    import schema.survey.grid as grid_mod
+
+    store, demo, days, _sim = field
+    at = dt.datetime.now(dt.timezone.utc)
+    lines = gnss_epoch(demo.site, 1003.0, 2002.0, 99.9, at, quality=4)  # made with pyproj (the simulator)
+    days.feed_gnss(lines)
+    with_proj = FindController(store, days).record(category="artifact", values={"material": "basalt"},
+                                                   position=Position("gnss")).find
+    monkeypatch.setattr(crs_mod, "have_proj", lambda: False)
+    monkeypatch.setattr(grid_mod, "have_proj", lambda: False)
+    without = FindController(store, days).record(category="artifact", values={"material": "basalt"},
+                                                 position=Position("gnss")).find
+    limit = demo.site.grid_polynomial.max_error_m
+    assert abs(without.e - with_proj.e) <= limit and abs(without.n - with_proj.n) <= limit
+    assert without.e != with_proj.e or without.n != with_proj.n  # a different method really ran
