@@ -27,7 +27,7 @@ from .recording import Reading
 
 __all__ = [
     "FieldSimulator", "GnssMonitor", "LineReader", "ShotSimulator", "TtyPort", "format_shot_line", "parse_shot_line",
-    "shot_checksum", "stream_lines",
+    "shot_checksum", "stream_lines", "typed_shot_line",
 ]
 
 MAX_LINE = 512  # longer runs without a line end are noise on the wire, dropped and reported
@@ -82,6 +82,19 @@ class LineReader:
 
 def shot_checksum(body: str) -> str:
     return f"{functools.reduce(operator.xor, (ord(c) for c in body), 0):02X}"
+
+
+def typed_shot_line(hz: str, zenith: str, slope_distance_m: str, target_height_m: str, *, angle_unit: str) -> str:
+    """A BKS line from readings typed off the instrument's screen; each value is checked like a received one."""
+    values = []
+    for name, text in zip(_FIELDS, (hz, zenith, slope_distance_m, target_height_m)):
+        try:
+            values.append(float(text.strip().replace(",", ".")))
+        except ValueError:
+            raise InstrumentLineInvalid(f"the {name} {text!r} is not a number; type it as shown on the instrument") from None
+    line = format_shot_line(Reading(*values, dt.datetime.now(dt.timezone.utc)), angle_unit=angle_unit)  # type: ignore[misc]
+    parse_shot_line(line)  # the same range checks as a received line
+    return line
 
 
 def format_shot_line(reading: Reading, *, angle_unit: str) -> str:

@@ -90,10 +90,14 @@ class TabletStore(RecordStore):
                 "ON CONFLICT(key) DO UPDATE SET value = excluded.value",
                 (str(device.id),),
             )
+        self._device_id = None  # read again on the next call
 
     def device_id(self) -> uuid.UUID | None:
-        value = self.setting("device_id")
-        return uuid.UUID(value) if value else None
+        """This tablet's device id (read once per open store: it changes only through ``set_identity``)."""
+        if getattr(self, "_device_id", None) is None:
+            value = self.setting("device_id")
+            self._device_id = uuid.UUID(value) if value else None
+        return self._device_id
 
     def set_token(self, token: str) -> None:
         """Keep the device token issued at enrollment (needed to sync and to seal bundles)."""

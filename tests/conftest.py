@@ -18,6 +18,13 @@ import sqlalchemy as sa
 
 from schema.demo_site import DemoSite, build_site
 
+# No test is timed (speed lives in `baulk bench`): Hypothesis's per-example deadline would turn a loaded machine
+# into a failure, so it is off for every property test.
+from hypothesis import settings as _hypothesis_settings
+
+_hypothesis_settings.register_profile("baulk", deadline=None)
+_hypothesis_settings.load_profile("baulk")
+
 PG_ENV = "BAULK_TEST_PG_URL"
 MUST_RUN = ("pg", "ui", "browser")
 

@@ -94,3 +94,15 @@ def test_gnss_monitor_reads_epochs_from_a_stream() -> None:
     monitor.flush()
     assert monitor.latest is kept  # a bad epoch never replaces the last good fix
     assert monitor.rejected[0].startswith("line 1:") and "checksum" in monitor.rejected[0]
+
+
+def test_typed_readings_become_a_checked_line() -> None:
+    from mobile.instruments import typed_shot_line
+
+    line = typed_shot_line("123,4567", "91.2", "12.5", "1.3", angle_unit="gon")
+    reading, unit = parse_shot_line(line)
+    assert (reading.hz, reading.zenith, reading.slope_distance_m, reading.target_height_m, unit) == (123.4567, 91.2, 12.5, 1.3, "gon")
+    with pytest.raises(InstrumentLineInvalid, match="the slope distance 'twelve' is not a number"):
+        typed_shot_line("1", "90", "twelve", "1.3", angle_unit="deg")
+    with pytest.raises(InstrumentLineInvalid, match="zenith 0 are outside 0-360 deg"):
+        typed_shot_line("1", "0", "12", "1.3", angle_unit="deg")

@@ -52,6 +52,22 @@ def test_every_screen_opens_and_is_captured(tablet, run_app, shots) -> None:  # 
 
     with Image.open(path) as img:  # the window really drew: a 800 x 1280 picture with more than one colour
         assert img.size == (800, 1280) and len(img.convert("L").getcolors(1 << 16) or []) > 2
+    # turned to landscape, Record puts the form and the position side by side
+    d.window.size = (1280, 800)
+    d.pump(10)
+    try:
+        rec = d.nav("record")
+        d.pump(5)
+        grid = rec.ids.form.parent.parent
+        assert grid.cols == 2
+        # the offscreen EGL surface keeps its first size, so this picture is drawn through an Fbo of the root
+        # widget (Widget.export_to_png) rather than read off the window
+        d.app.root.export_to_png(str(shots / "record-landscape.png"))
+        with Image.open(shots / "record-landscape.png") as img:
+            assert img.size == (1280, 800)
+    finally:
+        d.window.size = (800, 1280)
+        d.pump(5)
 
 
 def test_a_recorded_day_reaches_the_camp_server(tmp_path, run_app, shots) -> None:  # type: ignore[no-untyped-def]

@@ -12,24 +12,24 @@ from . import BaulkScreen
 
 __all__ = ["FindsScreen"]
 
-ANY = "any"
+ANY_UNIT, ANY_KIND = "any unit", "any category"
 
 
 class FindsScreen(BaulkScreen):
-    units = ListProperty([ANY])
+    units = ListProperty([ANY_UNIT])
     chosen = StringProperty("")
     detail = StringProperty("")
     count = StringProperty("")
 
     def refresh(self) -> None:
-        self.units = [ANY, *self.app.listing.units()]
+        self.units = [ANY_UNIT, *self.app.listing.units()]
         self.search()
 
     def filters(self) -> FindFilter:
         ids = self.ids
         day = self.app.days.day
-        return FindFilter(text=ids.text.text, unit=None if ids.unit.text in ("", ANY) else ids.unit.text,
-                          category=None if ids.category.text in ("", ANY) else ids.category.text,
+        return FindFilter(text=ids.text.text, unit=None if ids.unit.text in ("", ANY_UNIT) else ids.unit.text,
+                          category=None if ids.category.text in ("", ANY_KIND) else ids.category.text,
                           day=day.now().date() if ids.today.state == "down" and day else None,
                           unresolved_only=ids.unresolved.state == "down")
 

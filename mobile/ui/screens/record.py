@@ -11,6 +11,7 @@ from schema.forms import find_form
 
 from ...cautions import Caution, human_remains_caution
 from ...controllers import Position, Saved
+from ...instruments import typed_shot_line
 from ..caution import CautionDialog
 from . import BaulkScreen
 
@@ -83,6 +84,14 @@ class RecordScreen(BaulkScreen):
             self.ids.shot_line.text = line
         elif self.problem == "":
             self.problem = "PROBLEM: no shot line from the instrument yet; shoot again or type the line"
+
+    def use_typed_readings(self) -> None:
+        """Readings typed off the instrument's screen, in the accepted setup's angle unit."""
+        ids = self.ids
+        line = self.guard(typed_shot_line, ids.typed_hz.text, ids.typed_zen.text, ids.typed_sd.text, ids.typed_th.text,
+                          angle_unit=self.app.days.require_setup().angle_unit if self.app.days.day and self.app.days.day.setup else "deg")
+        if line:
+            ids.shot_line.text = line
 
     def read_receiver(self) -> None:
         status = self.guard(self.app.read_receiver)
