@@ -34,13 +34,14 @@ SQLITE_PRAGMAS = (
 )
 
 
-def sqlite_engine(path: Path | str, **kwargs: Any) -> Engine:
+def sqlite_engine(path: Path | str, *, pragmas: tuple[tuple[str, str], ...] = (), **kwargs: Any) -> Engine:
     """An engine on a SQLite file: WAL, synchronous=FULL, foreign keys on, writes begin IMMEDIATE.
 
     pysqlite's own transaction handling is switched off (``isolation_level=None``) and SQLAlchemy emits BEGIN
     itself, the recipe in SQLAlchemy's SQLite dialect documentation ("Serializable isolation / Savepoints /
     Transactional DDL"), so that savepoints nest and writers take the lock at BEGIN instead of mid-transaction.
     A connection with execution option ``baulk_read=True`` begins a deferred (read) transaction instead.
+    ``pragmas`` are set after Baulk's own (a store's tuning; durability is never weakened by them).
     """
     engine = sa.create_engine(f"sqlite:///{Path(path)}", **kwargs)
 
@@ -48,7 +49,7 @@ def sqlite_engine(path: Path | str, **kwargs: Any) -> Engine:
     def _on_connect(dbapi_conn: Any, _record: Any) -> None:
         dbapi_conn.isolation_level = None
         cur = dbapi_conn.cursor()
-        for name, value in SQLITE_PRAGMAS:
+        for name, value in (*SQLITE_PRAGMAS, *pragmas):
             cur.execute(f"PRAGMA {name}={value}")
         cur.close()
 

@@ -28,6 +28,7 @@ from .widgets import load_kv
 __all__ = ["SCREENS", "TabletApp"]
 
 HERE = Path(__file__).parent
+IDLE_CHECKPOINT_S = 30  # copy the write-ahead log back into the tablet file between saves (see TabletStore)
 
 # screen name -> (button text, module, class); the bar shows them in this order
 SCREENS: dict[str, tuple[str, str, str]] = {
@@ -94,6 +95,9 @@ class TabletApp(App):
         load_kv(HERE / "app.kv")
         Window.clearcolor = self.bg
         shell = Shell()
+        from kivy.clock import Clock
+
+        Clock.schedule_interval(lambda _dt: self.store.checkpoint(), IDLE_CHECKPOINT_S)
         day = self.days.resume()
         shell.show("record" if day is not None and day.unit is not None else "day")
         return shell
@@ -102,7 +106,13 @@ class TabletApp(App):
         for port in (self.instrument, self.receiver):
             if port is not None:
                 port.close()
+        self.store.checkpoint()
         self.store.close()
+
+    def on_pause(self) -> bool:
+        """Android sends the app to the background: copy the log back while nothing is being saved."""
+        self.store.checkpoint()
+        return True
 
     def go(self, name: str) -> Any:
         return self.root.show(name)

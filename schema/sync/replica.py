@@ -34,13 +34,20 @@ __all__ = ["Identity", "insert_versions", "load_identity", "materialize", "recor
 
 
 
+# built once: every save reads and writes the identity, and building the statements cost more than running them
+_STATE_GET = sa.select(sync_state.c.value).where(sync_state.c.key == sa.bindparam("k"))
+_STATE_SET = sync_state.update().where(sync_state.c.key == sa.bindparam("k")).values(value=sa.bindparam("v"))
+_IDENTITY_KEYS = ("device", "clock_offset_ms", "hlc_wall", "hlc_counter", "seq")
+_IDENTITY_GET = sa.select(sync_state.c.key, sync_state.c.value).where(sync_state.c.key.in_(_IDENTITY_KEYS))
+
+
 def state_get(conn: Connection, key: str, default: str | None = None) -> str | None:
-    row = conn.execute(sa.select(sync_state.c.value).where(sync_state.c.key == key)).first()
+    row = conn.execute(_STATE_GET, {"k": key}).first()
     return row[0] if row else default
 
 
 def state_set(conn: Connection, key: str, value: object) -> None:
-    done = conn.execute(sync_state.update().where(sync_state.c.key == key).values(value=str(value)))
+    done = conn.execute(_STATE_SET, {"k": key, "v": str(value)})
     if done.rowcount == 0:
         conn.execute(sync_state.insert().values(key=key, value=str(value)))
 
@@ -63,20 +70,23 @@ def load_identity(conn: Connection, *, default_device: "Callable[[], uuid.UUID |
     stored server offset."""
     import time
 
-    device = state_get(conn, "device")
+    state = dict(conn.execute(_IDENTITY_GET).all())
+    device = state.get("device")
     if device is None:
         device = str((default_device() if default_device else None) or uuid.uuid4())
         state_set(conn, "device", device)
-    offset = int(state_get(conn, "clock_offset_ms", "0") or 0)
-    clock = Clock(last=Stamp(int(state_get(conn, "hlc_wall", "0") or 0), int(state_get(conn, "hlc_counter", "0") or 0)),
+    offset = int(state.get("clock_offset_ms") or 0)
+    clock = Clock(last=Stamp(int(state.get("hlc_wall") or 0), int(state.get("hlc_counter") or 0)),
                   physical=lambda: time.time_ns() // 1_000_000 + offset)
-    return Identity(uuid.UUID(device), int(state_get(conn, "seq", "0") or 0), clock)
+    return Identity(uuid.UUID(device), int(state.get("seq") or 0), clock)
 
 
 def save_identity(conn: Connection, ident: Identity) -> None:
-    state_set(conn, "seq", ident.seq)
-    state_set(conn, "hlc_wall", ident.clock.last.wall_ms)
-    state_set(conn, "hlc_counter", ident.clock.last.counter)
+    values = {"seq": ident.seq, "hlc_wall": ident.clock.last.wall_ms, "hlc_counter": ident.clock.last.counter}
+    done = conn.execute(_STATE_SET, [{"k": k, "v": str(v)} for k, v in values.items()])
+    if done.rowcount != len(values):  # the first save: some keys are not there yet
+        for key, value in values.items():
+            state_set(conn, key, value)
 
 
 def row_to_version(r: Any) -> Version:

@@ -9,6 +9,7 @@ fields are add/remove sets: each version adds or removes one item, and a remove 
 from __future__ import annotations
 
 import json
+import re
 import uuid
 from typing import Any
 
@@ -71,8 +72,11 @@ def _integral(value: Any) -> Any:
     return int(value) if isinstance(value, float) and value.is_integer() else value
 
 
+_UNPRINTABLE = re.compile("[\x00-\x1f\ud800-\udfff]")
+
+
 def _printable(value: str) -> str:
-    if any(ord(c) < 32 or 0xD800 <= ord(c) <= 0xDFFF for c in value):
+    if _UNPRINTABLE.search(value):
         raise ValueError("control characters and unpaired surrogates are not allowed here")
     return value
 
