@@ -1,5 +1,5 @@
-"""Baulk's tablet side: the local store, and (in later modules) screens, controllers, instrument readers,
-sync client and labels. Kivy is imported only by the screen modules, never by the store or controllers.
+"""Baulk's tablet side: the local store, controllers, instrument readers, labels, the sync client and (under
+``mobile.ui``) the Kivy screens. Kivy is imported only by ``mobile.ui``, never by the store or controllers.
 """
 
 from __future__ import annotations

@@ -35,6 +35,9 @@ TABLET_PRAGMAS = (("wal_autocheckpoint", "10000"),)
 _BLOCKS = metadata.tables["number_block"]
 _IN_BLOCK = sa.select(_BLOCKS.c.id).where(_BLOCKS.c.device_id == sa.bindparam("me"),
                                           _BLOCKS.c.first <= sa.bindparam("n"), _BLOCKS.c.last >= sa.bindparam("n")).limit(1)
+_FINDS = metadata.tables["find"]
+_TAKEN = sa.select(_FINDS.c.id).where(_FINDS.c.site_id == sa.bindparam("site"), _FINDS.c.number == sa.bindparam("n"),
+                                      _FINDS.c.id != sa.bindparam("me")).limit(1)
 
 
 class TabletStore(RecordStore):
@@ -184,9 +187,7 @@ class TabletStore(RecordStore):
     def _refuse_taken_number(conn: Connection, find: Find) -> None:
         """A number already used at the site is refused here (the table allows it, for clashes that arrive by
         sync and must stay visible)."""
-        t = metadata.tables["find"]
-        taken = conn.execute(sa.select(t.c.id).where(t.c.site_id == find.site_id, t.c.number == find.number,
-                                                     t.c.id != find.id).limit(1)).first()
+        taken = conn.execute(_TAKEN, {"site": find.site_id, "n": find.number, "me": find.id}).first()
         if taken is not None:
             raise DuplicateRecord(f"find with number={find.number} already exists; choose another number or edit "
                                   "the existing record")

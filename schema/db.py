@@ -118,11 +118,15 @@ def _meta(info: Any) -> list[Any]:
 
 
 def insert(conn: Connection, record: Record) -> None:
-    """Insert one record inside a savepoint; a clash raises ``DuplicateRecord`` or ``RecordNotFound``."""
+    """Insert one record; a clash raises ``DuplicateRecord`` or ``RecordNotFound`` and leaves the caller's
+    transaction usable (SQLite undoes just the statement; elsewhere the insert runs in a savepoint)."""
     spec = spec_for(record)
     try:
-        with conn.begin_nested():
+        if conn.dialect.name == "sqlite":  # a failed statement leaves SQLite's transaction usable: no savepoint
             conn.execute(table(spec).insert(), to_row(record))
+        else:  # PostgreSQL aborts the whole transaction on an error, so the insert gets a savepoint of its own
+            with conn.begin_nested():
+                conn.execute(table(spec).insert(), to_row(record))
     except sa.exc.IntegrityError:
         raise _diagnose(conn, record, spec) from None
 

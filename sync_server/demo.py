@@ -25,7 +25,7 @@ import httpx
 
 from mobile.recording import Reading, record_gnss_find, record_plotted_find, setup_by_backsight, setup_by_resection
 from mobile.sync import SyncClient
-from schema.demo_site import GRID_TIE, SEASON_START, DemoSite, TabletPlan, build_site, plan_finds
+from schema.demo_site import SEASON_START, DemoSite, TabletPlan, build_site, plan_finds
 from schema.errors import BaulkError, FixNotAccepted
 from schema.records import Device, Find, GnssFix, Relation, Shot
 from schema.strata import validate

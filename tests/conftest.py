@@ -93,19 +93,9 @@ def demo_site() -> DemoSite:
 @pytest.fixture
 def tablet(tmp_path: Path, demo_site: DemoSite):  # type: ignore[no-untyped-def]
     """A tablet store holding the demo site's set-up, enrolled as TAB-1 with numbers 1-100."""
-    import datetime as dt
+    from tests.helpers import demo_tablet
 
-    from mobile.store import TabletStore
-    from schema.records import Device, NumberBlock
-
-    store = TabletStore.open(tmp_path / "tablet.sqlite")
-    device = Device(label="TAB-1", role="recorder")
-    with store.atomic():
-        store.set_identity(device=device)
-        store.add_number_block(block=NumberBlock(
-            device_id=device.id, first=1, last=100, issued_at=dt.datetime(2026, 6, 30, tzinfo=dt.timezone.utc)))
-        for record in demo_site.setup_records():
-            store.add(record)
+    store = demo_tablet(tmp_path / "tablet.sqlite", demo_site)
     yield store
     store.close()
 

@@ -21,6 +21,22 @@ def find_data(demo: DemoSite, **changes: Any) -> dict[str, Any]:
     return data
 
 
+def demo_tablet(path: Any, demo: DemoSite, *, label: str = "TAB-1", last: int = 100) -> Any:
+    """A tablet file holding the demo site's set-up, enrolled (offline) as ``label`` with numbers 1..``last``."""
+    from mobile.store import TabletStore
+    from schema.records import Device, NumberBlock
+
+    store = TabletStore.open(path)
+    device = Device(label=label, role="recorder")
+    with store.atomic():
+        store.set_identity(device=device)
+        store.add_number_block(block=NumberBlock(
+            device_id=device.id, first=1, last=last, issued_at=dt.datetime(2026, 6, 30, tzinfo=dt.timezone.utc)))
+        for record in demo.setup_records():
+            store.add(record)
+    return store
+
+
 def seeded_server(url: str) -> tuple[Any, DemoSite]:
     """A server store at ``url`` holding the invented site's set-up."""
     from schema.demo_site import build_site

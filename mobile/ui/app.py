@@ -15,7 +15,7 @@ from kivy.app import App
 from kivy.core.window import Window
 from kivy.properties import ListProperty, StringProperty
 from kivy.uix.boxlayout import BoxLayout
-from kivy.uix.screenmanager import NoTransition, ScreenManager
+from kivy.uix.screenmanager import ScreenManager
 
 from schema.records import LevelPoint
 

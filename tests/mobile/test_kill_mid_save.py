@@ -45,22 +45,10 @@ while True:
 
 
 def _prepare(path: Path) -> None:
-    import datetime as dt
-
-    from mobile.store import TabletStore
     from schema.demo_site import build_site
-    from schema.records import Device, NumberBlock
+    from tests.helpers import demo_tablet
 
-    demo = build_site()
-    store = TabletStore.open(path)
-    device = Device(label="TAB-K", role="recorder")
-    with store.atomic():
-        store.set_identity(device=device)
-        store.add_number_block(block=NumberBlock(device_id=device.id, first=1, last=100000,
-                                                 issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
-        for record in demo.setup_records():
-            store.add(record)
-    store.close()
+    demo_tablet(path, build_site(), label="TAB-K", last=100000).close()
 
 
 @pytest.mark.slow

@@ -7,7 +7,6 @@ see failure at all. See ``tests/powercut.py`` for the disk model.
 
 from __future__ import annotations
 
-import datetime as dt
 import os
 import shutil
 from pathlib import Path
@@ -17,18 +16,17 @@ import pytest
 pytest.importorskip("apsw", reason="the power-loss harness needs apsw (in the test extra)")
 
 from tests import powercut  # noqa: E402
-from tests.helpers import find_data  # noqa: E402
-from mobile.store import TabletStore  # noqa: E402
+from tests.helpers import demo_tablet, find_data  # noqa: E402
+from mobile.store import TABLET_PRAGMAS, TabletStore  # noqa: E402
 from schema.db import SQLITE_PRAGMAS  # noqa: E402
 from schema.demo_site import DemoSite  # noqa: E402
-from schema.records import Device, NumberBlock  # noqa: E402
 
 TRIALS = int(os.environ.get("BAULK_POWERCUT_TRIALS", "300"))
 FINDS = 12
 
 
 def _pragmas(journal: str) -> list[tuple[str, str]]:
-    return [(k, journal if k == "journal_mode" else v) for k, v in SQLITE_PRAGMAS]
+    return [(k, journal if k == "journal_mode" else v) for k, v in (*SQLITE_PRAGMAS, *TABLET_PRAGMAS)]
 
 
 @pytest.fixture(scope="module")
@@ -39,14 +37,7 @@ def recorded(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, powercut.T
     demo: DemoSite = build_site()
     folder = tmp_path_factory.mktemp("powercut")
     seeded = folder / "seed" / "tablet.sqlite"
-    store = TabletStore.open(seeded)
-    device = Device(label="TAB-1", role="recorder")
-    with store.atomic():
-        store.set_identity(device=device)
-        store.add_number_block(block=NumberBlock(device_id=device.id, first=1, last=500,
-                                                 issued_at=dt.datetime(2026, 6, 30, tzinfo=dt.timezone.utc)))
-        for record in demo.setup_records():
-            store.add(record)
+    store = demo_tablet(seeded, demo, last=500)
     store.close()  # checkpointed: one file, no WAL
     base = folder / "base" / "tablet.sqlite"
     base.parent.mkdir()
@@ -104,6 +95,6 @@ def test_the_harness_sees_lost_saves_without_sync(recorded, tmp_path: Path) -> N
     """WAL with ``synchronous=OFF`` keeps the file sound but forgets saves already acknowledged: the
     lost-find check has teeth too."""
     base, trace = recorded
-    pragmas = [(k, "OFF" if k == "synchronous" else v) for k, v in SQLITE_PRAGMAS]
+    pragmas = [(k, "OFF" if k == "synchronous" else v) for k, v in (*SQLITE_PRAGMAS, *TABLET_PRAGMAS)]
     outcomes = list(powercut.trials(base, trace, tmp_path, n=min(TRIALS, 100), pragmas=pragmas))
     assert any(o.lost for o in outcomes), "with no fsync some acknowledged saves must be lost; the harness saw none"
