@@ -39,9 +39,9 @@ class FindListController:
         """One row per find, its text put together by SQLite (tens of thousands of rows open in a blink; the
         time shown uses the site's UTC offset of today, a display choice only)."""
         find, unit = metadata.tables["find"], metadata.tables["unit"]
-        open_checks = (sa.select(sa.func.count()).select_from(live_check)
-                       .where(live_check.c.find_id == find.c.id, live_check.c.confirmed_reason.is_(None))
-                       .scalar_subquery())
+        waiting = (sa.select(live_check.c.find_id, sa.func.count().label("n"))
+                   .where(live_check.c.confirmed_reason.is_(None)).group_by(live_check.c.find_id).subquery())
+        open_checks = sa.func.coalesce(waiting.c.n, 0)
         offset = self.tz.utcoffset(dt.datetime.now()) or dt.timedelta(0)
         when = sa.func.strftime("%d/%m %H:%M", sa.type_coerce(find.c.found_at, sa.String),
                                 f"{int(offset.total_seconds() // 60):+d} minutes")
@@ -49,7 +49,8 @@ class FindListController:
                 + "  " + find.c.recovery + "  " + sa.func.coalesce(when, ""))
         q = (sa.select(sa.type_coerce(find.c.id, sa.String).label("id"), find.c.number, unit.c.code.label("unit"),
                        find.c.category, find.c.voided, open_checks.label("open_checks"), text.label("text"))
-             .select_from(find.join(unit, unit.c.id == find.c.unit_id)).order_by(find.c.number.desc()))
+             .select_from(find.join(unit, unit.c.id == find.c.unit_id).outerjoin(waiting, waiting.c.find_id == find.c.id))
+             .order_by(find.c.number.desc()))
         if f.text.strip():
             text = f.text.strip()
             like = f"%{text.lower()}%"
