@@ -44,8 +44,7 @@ class RecordScreen(BaulkScreen):
             return
         self.units = [u.code for u in days.units()]
         self.where = f"{day.site.code}  {day.trench.code}  {day.recorder}"
-        if day.unit is not None:
-            self.ids.unit.text = day.unit.code
+        self.ids.unit.text = day.unit.code if day.unit is not None else "choose the unit"
         self.datums = [p.code for p in days.control_points()]
         self._spits()
         self.guard(self._number)
@@ -64,7 +63,7 @@ class RecordScreen(BaulkScreen):
             if day and day.unit else []
 
     def choose_unit(self, code: str) -> None:
-        if code and self.app.days.day is not None and (self.app.days.day.unit is None or self.app.days.day.unit.code != code):
+        if code in self.units and self.app.days.day is not None and (self.app.days.day.unit is None or self.app.days.day.unit.code != code):
             self.guard(self.app.days.choose_unit, code)
             self._spits()
 

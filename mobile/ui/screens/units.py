@@ -44,7 +44,7 @@ class UnitsScreen(BaulkScreen):
             self.munsell_note = f"MUNSELL: {exc}"
 
     def pick(self, code: str) -> None:
-        if not code:
+        if code not in self.units:  # the placeholder, or nothing chosen yet
             return
         unit = self.guard(self.app.units.unit, code)
         if unit is not None:
