@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gc
 import time
 from pathlib import Path
 from typing import Any, Callable
@@ -50,6 +51,7 @@ class Driver:
         self.pump(1)
         touch.touch_up()
         self.pump(3)
+        gc.collect()  # collect now what a long session would collect some time: a widget kept only weakly fails here
 
     def nav(self, name: str) -> Any:
         self.tap(self.app.root.ids[f"nav_{name}"])

@@ -33,7 +33,8 @@ class RecordScreen(BaulkScreen):
 
     def on_kv_post(self, *_: object) -> None:
         # only the panel of the chosen position source is in the tree (a hidden one would still catch touches)
-        self._panels = {m: self.ids[f"panel_{m}"] for m in ("shot", "gnss", "tape", "sieve")}
+        # ``ids`` holds weak proxies: keep the panels themselves, or a panel out of the tree is collected
+        self._panels = {m: self.ids[f"panel_{m}"].__self__ for m in ("shot", "gnss", "tape", "sieve")}
         self.set_mode(self.mode)
 
     def refresh(self) -> None:
