@@ -194,8 +194,12 @@ def _open_list(state: dict[str, Any], _work: Path, _i: int) -> float:
     rows = FindListController(state["store"]).rows(FindFilter())
     took = time.perf_counter() - t0
     assert len(rows) == state["report"]["finds_in_store"]
-    state["report"]["open_ms"] = round(took * 1000, 1)
+    state.setdefault("opens", []).append(took)
     return took
+
+
+def _slowest_open(state: dict[str, Any], _work: Path) -> None:
+    state["report"]["open_ms"] = round(max(state["opens"]) * 1000, 1)  # the slowest repeat, first (cold) included
 
 
 def _bare_select(state: dict[str, Any], _work: Path, _i: int) -> None:
@@ -211,5 +215,6 @@ benchmark(Bench(
     subject=_open_list,
     baseline=_bare_select,
     repeats=REPEATS,
+    after=_slowest_open,
     doc="the find list's rows (query, unit codes, open checks, row text) over n finds; open_ms (goal <= 300)",
 ))
