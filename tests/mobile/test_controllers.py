@@ -282,3 +282,14 @@ def test_gnss_find_without_proj_uses_the_site_polynomial(field, monkeypatch):  #
     limit = demo.site.grid_polynomial.max_error_m
     assert abs(without.e - with_proj.e) <= limit and abs(without.n - with_proj.n) <= limit
     assert without.e != with_proj.e or without.n != with_proj.n  # a different method really ran
+
+
+def test_find_list_pages_and_counts(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, _sim = field
+    finds = FindController(store, days)
+    for i in range(7):
+        finds.record(category="artifact", values={"material": "chert"}, position=Position("sieve", spit=1, bucket=str(i)))
+    listing = FindListController(store)
+    assert listing.count(FindFilter()) == 7 and listing.count(FindFilter(category="fossil")) == 0
+    first, second = listing.rows(limit=3), listing.rows(limit=3, offset=3)
+    assert [r["number"] for r in first + second + listing.rows(limit=3, offset=6)] == [7, 6, 5, 4, 3, 2, 1]

@@ -13,6 +13,7 @@ from . import BaulkScreen
 __all__ = ["FindsScreen"]
 
 ANY_UNIT, ANY_KIND = "any unit", "any category"
+PAGE = 500  # rows fetched at a time: the list opens on the newest 500 and loads more as it is scrolled
 
 
 class FindsScreen(BaulkScreen):
@@ -31,12 +32,23 @@ class FindsScreen(BaulkScreen):
         return FindFilter(text=ids.text.text, unit=None if ids.unit.text in ("", ANY_UNIT) else ids.unit.text,
                           category=None if ids.category.text in ("", ANY_KIND) else ids.category.text,
                           day=day.now().date() if ids.today.state == "down" and day else None,
-                          unresolved_only=ids.unresolved.state == "down")
+                          unresolved_only=ids.unresolved.state == "down", site_id=day.site.id if day else None)
 
     def search(self) -> None:
-        rows = self.app.listing.rows(self.filters())
-        self.ids.rv.data = [{"text": r["text"], "find_id": r["id"]} for r in rows]
-        self.count = f"{len(rows)} finds"
+        """The first page at once; more pages as the list is scrolled towards its end (``more``)."""
+        self._filter = self.filters()
+        self._total = self.app.listing.count(self._filter)
+        self.ids.rv.data = self._page(0)
+        self.count = f"{self._total} finds"
+
+    def _page(self, offset: int) -> list[dict[str, str]]:
+        rows = self.app.listing.rows(self._filter, limit=PAGE, offset=offset)
+        return [{"text": r["text"], "find_id": r["id"]} for r in rows]
+
+    def more(self, scroll_y: float) -> None:
+        loaded = len(self.ids.rv.data)
+        if scroll_y < 0.2 and loaded < getattr(self, "_total", 0):
+            self.ids.rv.data.extend(self._page(loaded))
 
     def choose(self, find_id: str) -> None:
         from schema.records import Find
