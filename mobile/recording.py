@@ -19,7 +19,7 @@ from schema.survey.setup import Backsight, ControlObservation, KnownPoint, orien
 
 from .store import TabletStore
 
-__all__ = ["Reading", "record_gnss_find", "record_plotted_find", "setup_by_backsight", "setup_by_resection"]
+__all__ = ["Reading", "record_gnss_find", "record_plotted_find", "reduce_reading", "setup_by_backsight", "setup_by_resection"]
 
 
 @dataclass(frozen=True)
@@ -78,17 +78,23 @@ def setup_by_resection(
     return store.add(setup), result
 
 
-def record_plotted_find(
-    store: TabletStore, *, setup: StationSetup, reading: Reading, find: dict[str, Any],
-    sample: dict[str, Any] | None = None,
-) -> Find:
-    """Save the raw shot and the find it positions (E, N, Z from the reduction) in one transaction."""
+def reduce_reading(setup: StationSetup, reading: Reading) -> tuple[Shot, tuple[float, float, float]]:
+    """The raw shot to keep for a reading, and the E, N, Z it reduces to from ``setup``."""
     shot = Shot(
         setup_id=setup.id, hz=reading.hz, zenith=reading.zenith, slope_distance_m=reading.slope_distance_m,
         target_height_m=reading.target_height_m, prism_constant_mm=reading.prism_constant_mm,
         shot_at=reading.shot_at, raw_line=reading.raw_line,
     )
     ((e, n, z),) = shot_positions(setup, [shot]).values()
+    return shot, (e, n, z)
+
+
+def record_plotted_find(
+    store: TabletStore, *, setup: StationSetup, reading: Reading, find: dict[str, Any],
+    sample: dict[str, Any] | None = None,
+) -> Find:
+    """Save the raw shot and the find it positions (E, N, Z from the reduction) in one transaction."""
+    shot, (e, n, z) = reduce_reading(setup, reading)
     with store.atomic():
         store.add(shot)
         return store.save_find(

@@ -17,7 +17,7 @@ from pydantic import BaseModel
 from . import vocab
 from .records import Find, Sample, Unit
 
-__all__ = ["FIND_FIELDS", "SAMPLE_FIELDS", "UNIT_FIELDS", "FormField", "coerce", "find_form", "form_fields", "unit_form"]
+__all__ = ["FIND_FIELDS", "SAMPLE_FIELDS", "UNIT_FIELDS", "FormField", "coerce", "find_form", "form_fields", "typed_values", "unit_form"]
 
 Kind = Literal["text", "number", "integer", "choice", "flag"]
 
@@ -149,3 +149,10 @@ def coerce(field: FormField, text: str) -> Any:
                                                       "with a point for decimals")]) from None
         return int(value) if field.kind == "integer" and value.is_integer() else value
     return text
+
+
+def typed_values(fields: list[FormField], values: dict[str, Any]) -> dict[str, Any]:
+    """``values`` with each form string typed by its field (values already typed, and names the form does not
+    have, pass unchanged: the model then judges them)."""
+    by_name = {f.name: f for f in fields}
+    return {k: coerce(by_name[k], v) if isinstance(v, str) and k in by_name else v for k, v in values.items()}

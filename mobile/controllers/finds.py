@@ -13,7 +13,7 @@ from typing import Any, Literal
 import sqlalchemy as sa
 
 from schema.errors import CautionUnanswered, FieldProblem, RecordInvalid, RecordNotFound
-from schema.forms import FormField, coerce, find_form
+from schema.forms import FormField, coerce, find_form, typed_values
 from schema.records import ControlPoint, Find, SafetyCheck, Sample, Spit, Unit
 from schema.strata import Issue
 from schema.tables import metadata
@@ -217,8 +217,7 @@ class FindController:
     def edit(self, find_id: uuid.UUID, changes: dict[str, Any]) -> Saved:
         """Correct fields of a find (strings from the form are typed by its fields); re-runs the live checks."""
         current = self.store.get(Find, find_id)
-        fields = {f.name: f for f in self.form(current.category)}
-        typed = {k: coerce(fields[k], v) if isinstance(v, str) and k in fields else v for k, v in changes.items()}
+        typed = typed_values(self.form(current.category), changes)
         if "unit_code" in typed:
             code = typed.pop("unit_code")
             unit = next((u for u in self.store.list(Unit, trench_id=current.trench_id) if u.code == code), None)

@@ -6,16 +6,16 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from schema.errors import FieldProblem, RecordInvalid, RecordNotFound
-from schema.forms import FormField, coerce, unit_form
-from schema.records import LevelPoint, Relation, Shot, Unit
+from schema.errors import RecordNotFound
+from schema.forms import FormField, typed_values, unit_form
+from schema.records import LevelPoint, Relation, Unit
 from schema.strata import Issue
-from schema.survey.recompute import shot_positions
 from schema.validation import check
 
 from ..cautions import Caution
 from ..checks import check_matrix
 from ..instruments import parse_shot_line
+from ..recording import reduce_reading
 from ..store import TabletStore
 from .day import DayController
 from .finds import shoring_for
@@ -53,9 +53,7 @@ class UnitsController:
         """A new unit in today's trench, or (``code`` given) changes to that unit; strings are typed by the form.
         Closing a unit without a date closes it today."""
         day = self.days.require_day()
-        fields = {f.name: f for f in self.form()}
-        typed = {k: coerce(fields[k], v) if isinstance(v, str) and k in fields else v for k, v in values.items()}
-        typed = {k: v for k, v in typed.items() if v is not None or code is not None}
+        typed = {k: v for k, v in typed_values(self.form(), values).items() if v is not None or code is not None}
         if typed.get("status") == "closed" and not typed.get("closed_on"):
             typed["closed_on"] = day.now().date()
         if code is None:
@@ -95,13 +93,8 @@ class UnitsController:
         target = self.unit(unit)
         setup = self.days.require_setup()
         reading, _ = parse_shot_line(shot_line, at=day.now())
-        shot = Shot(setup_id=setup.id, hz=reading.hz, zenith=reading.zenith, slope_distance_m=reading.slope_distance_m,
-                    target_height_m=reading.target_height_m, prism_constant_mm=reading.prism_constant_mm,
-                    shot_at=reading.shot_at, raw_line=reading.raw_line)
-        ((e, n, z),) = shot_positions(setup, [shot]).values()
-        if surface not in ("top", "bottom"):
-            raise RecordInvalid("level point", [FieldProblem("surface", f"{surface!r} is not a surface", "choose top or bottom")])
-        with self.store.atomic():
+        shot, (e, n, z) = reduce_reading(setup, reading)
+        with self.store.atomic():  # a bad surface is refused by the model, and the shot goes with it
             self.store.add(shot)
             point = self.store.add(check(LevelPoint, {"unit_id": target.id, "surface": surface, "e": e, "n": n, "z": z,
                                                       "shot_id": shot.id}))

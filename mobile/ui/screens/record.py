@@ -87,9 +87,10 @@ class RecordScreen(BaulkScreen):
 
     def use_typed_readings(self) -> None:
         """Readings typed off the instrument's screen, in the accepted setup's angle unit."""
-        ids = self.ids
+        ids, day = self.ids, self.app.days.day
+        unit = day.setup.angle_unit if day is not None and day.setup is not None else "deg"
         line = self.guard(typed_shot_line, ids.typed_hz.text, ids.typed_zen.text, ids.typed_sd.text, ids.typed_th.text,
-                          angle_unit=self.app.days.require_setup().angle_unit if self.app.days.day and self.app.days.day.setup else "deg")
+                          angle_unit=unit)
         if line:
             ids.shot_line.text = line
 
