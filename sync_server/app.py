@@ -53,6 +53,7 @@ ROUTE_ROLES: dict[str, str] = {
     "POST /camp/checks/accept": "page: manager",
     "GET /camp/finds": "page: manager, analyst",
     "GET /camp/finds/{find_id}": "page: manager, analyst",
+    "GET /camp/safety": "page: manager, analyst",
     "GET /camp/matrix": "page: manager, analyst",
     "GET /camp/matrix.png": "page: manager, analyst",
     "GET /camp/exports": "page: manager, analyst",

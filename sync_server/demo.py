@@ -27,7 +27,7 @@ from mobile.recording import Reading, record_gnss_find, record_plotted_find, set
 from mobile.sync import SyncClient
 from schema.demo_site import SEASON_START, DemoSite, TabletPlan, build_site, plan_finds
 from schema.errors import BaulkError, FixNotAccepted
-from schema.records import Device, Find, GnssFix, Relation, Shot
+from schema.records import Device, Find, GnssFix, Relation, SafetyCheck, Shot
 from schema.strata import validate
 from schema.survey.polar import Station
 from schema.survey.recompute import station_of
@@ -88,6 +88,7 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
             plan = plan_finds(demo, label=label, first_number=block.first, count=count, seed=seed)
             setup, setup_report = _set_up_instrument(tablet, demo, plan)
             survey_summary["setups"][label] = setup_report
+            _morning_cautions(tablet, demo, plan, setup)
             tablet_counts[label] = _record(tablet, demo, plan, setup, progress, np.random.default_rng(seed))
             tablet_counts[label]["live_checks"] = _field_mistakes(tablet, demo, plan, setup)
             day_report = validate(tablet.site_data())
@@ -108,6 +109,8 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
     summary["tablets"] = tablet_counts
     summary["server"] = {"counts": server.counts(), "devices": [d.label for d in server.list(Device)]}
     summary["finds"] = _tables(server, demo)
+    summary["safety"] = {"safety_check": server.count(SafetyCheck),
+                         "by_kind": dict(sorted(collections.Counter(c.kind for c in server.list(SafetyCheck)).items()))}
     summary["seconds"] = round(time.perf_counter() - started, 1)
     server.close()
     _write_summary(out, summary)
@@ -229,6 +232,15 @@ def _set_up_instrument(tablet: Any, demo: DemoSite, plan: TabletPlan) -> tuple[A
     return setup, {"method": f"occupied {occupied}", "backsights": list(backsight_codes),
                    "max_angle_residual_deg": round(max(abs(b.angle_residual) for b in res.backsights), 5),
                    "warnings": res.warnings}
+
+
+def _morning_cautions(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any) -> None:
+    """The day-start cautions each recorder acknowledges on the tablet: heat, and the laser with the setup."""
+    trench = demo.trenches[plan.trench]
+    for kind, answer in (("heat", f"read at day start; water and shade checked by {plan.recorder}"),
+                         ("laser", f"laser class 3R; acknowledged by {plan.recorder}")):
+        tablet.add(SafetyCheck(site_id=demo.site.id, trench_id=trench.id, kind=kind, answer=answer,
+                               recorder=plan.recorder, checked_at=setup.set_up_at))
 
 
 def _record(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any, progress: Progress, rng: Any) -> dict[str, Any]:
@@ -433,6 +445,11 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
         f"{code} {_span(b)}" for code, b in s.get("age_brackets", {}).items())]
     lines += ["", "Finds (not voided) per horizon: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_horizon"].items())]
     lines += ["", "Finds per unit: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_unit"].items())]
+    sf = s["safety"]
+    lines += ["", "## Safety", "",
+              f"Each recorder acknowledged the day-start cautions on the tablet; the camp holds "
+              f"{sf.get('safety_check', 0)} safety checks (" + ", ".join(f"{k} {v}" for k, v in sf["by_kind"].items())
+              + "), listed on the camp's Safety page. Baulk records the answers; it never judges a trench safe."]
     lines += ["", "## Bad input is refused with the fix, and nothing is written", ""]
     for r in s.get("refused", []):
         lines.append(f"- **{r['input']}** (nothing written: {'yes' if r['nothing_written'] else 'NO'}): {r['message']}")

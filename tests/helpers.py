@@ -106,3 +106,24 @@ def start_field_day(store: Any, demo: DemoSite, *, trench: str = "TR1", unit: st
     days.accept_setup(laser_acknowledged_by="AK")
     return days, truth
 
+
+def safety_day(server: Any, demo: DemoSite, http: Any, tmp: Any) -> Any:
+    """A tablet records a shoring check today, a laser check ten days ago and possible human remains on a find
+    today (as the tablet's controllers do), then syncs; returns that find."""
+    from schema.records import SafetyCheck
+
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    now = dt.datetime.now(dt.timezone.utc)
+    unit = demo.units["101"]
+    bone = t1.save_find(find=find_data(demo, number=t1.next_find_number(), category="fossil", material="bone",
+                                       human_remains=True, found_at=now))
+    base = dict(site_id=demo.site.id, trench_id=unit.trench_id, recorder="AK")
+    t1.add(SafetyCheck(**base, kind="laser", answer="laser class 3R; acknowledged by AK",
+                       checked_at=now - dt.timedelta(days=10)))
+    t1.add(SafetyCheck(**base, unit_id=unit.id, kind="shoring", depth_m=1.35, checked_at=now - dt.timedelta(hours=2),
+                       answer="east face benched; checked by JT"))
+    t1.add(SafetyCheck(**base, unit_id=unit.id, find_id=bone.id, kind="human_remains", checked_at=now,
+                       answer="work stopped at the spot; the spot secured", notified="site director RM at 10:40"))
+    c1.sync()
+    return bone
+

@@ -13,9 +13,17 @@ from ..fields import Id, Initials, Ref, Timestamp, new_id
 from ..validation import FieldError
 from ._base import Record, spec
 
-__all__ = ["SafetyCheck", "SafetyCheckBase", "SafetyKind", "SPECS"]
+__all__ = ["KIND_LABELS", "SafetyCheck", "SafetyCheckBase", "SafetyKind", "SPECS"]
 
 SafetyKind = Literal["shoring", "human_remains", "laser", "heat"]
+
+# what each kind is called where people read it (the camp pages, reports)
+KIND_LABELS: dict[str, str] = {
+    "shoring": "shoring check",
+    "human_remains": "possible human remains",
+    "laser": "total station laser",
+    "heat": "heat",
+}
 
 
 class SafetyCheckBase(Record):

@@ -4,7 +4,8 @@ Pages: sign in / out; **Today** (devices and their last push, finds of the last 
 what waits); **Conflicts** (every open conflict with its competing values, settled by choosing or typing a
 value: a new version, exactly as ``POST /v1/conflicts/resolve``); **Checks** (validation issues filtered by
 code, severity, trench, unit; accepted with a reason); **Finds** (search; a find's fields and its history of
-versions); **Matrix** (the reduced Harris matrix picture); **Exports** (run one and download the zip). Pages are not part of the OpenAPI
+versions); **Safety** (every caution the tablets asked about and the answer, by trench, kind and time; possible
+human remains first on Today); **Matrix** (the reduced Harris matrix picture); **Exports** (run one and download the zip). Pages are not part of the OpenAPI
 schema; they answer a browser, redirecting to the sign-in page when there is no valid session.
 """
 
@@ -26,6 +27,9 @@ from schema.records import Device, Find, Trench, Unit
 from schema.errors import BaulkError
 from schema.tables import metadata
 
+from schema.records.safety import KIND_LABELS
+
+from ..safety import KINDS, safety_log, safety_summary
 from ..sync import list_conflicts, resolve_conflict
 from ..tables import push_batch
 from .session import COOKIE, LIFETIME_S, PAGE_ROLES, Session, check_csrf, current, make_cookie
@@ -107,8 +111,11 @@ def today(request: Request) -> Response:
             T.c.open, T.c.severity == "error", T.c.accepted_at.is_(None))).scalar_one()
     devices = [{"label": d.label, "role": d.role, "revoked": d.revoked_at is not None, "enrolled": d.token_hash is not None,
                 "last_push": _when(pushes.get(d.id))} for d in store.list(Device, order_by="label")]
+    safety = safety_summary(store, since=since)
     return _page(request, "today.html", session, "Today", page="today", devices=devices, conflicts=conflicts,
-                 errors=errors, new_finds=[{"trench": a, "unit": b, "finds": n} for a, b, n in new])
+                 errors=errors, new_finds=[{"trench": a, "unit": b, "finds": n} for a, b, n in new],
+                 safety={**safety, "human_remains": [_shown(c) for c in safety["human_remains"]]},
+                 kind_labels=KIND_LABELS)
 
 
 def _when(t: dt.datetime | None) -> str | None:
@@ -236,6 +243,28 @@ def find(request: Request, find_id: uuid.UUID) -> Response:
     fields = [(k, v) for k, v in f.model_dump(mode="json").items() if v not in (None, "", [])]
     history = changes(store, record="find", record_id=find_id, limit=2000)
     return _page(request, "find.html", session, f"Find {f.number}", page="finds", fields=fields, history=history)
+
+
+# -- safety ---------------------------------------------------------------------------------------------------
+_SPANS = {"1": 1, "7": 7, "30": 30}  # days back the Safety page can show; anything else shows every check
+
+
+def _shown(check: dict[str, Any]) -> dict[str, Any]:
+    return {**check, "at": _when(check["checked_at"]),
+            "depth": f"{check['depth_m']:.2f} m" if check["depth_m"] is not None else ""}
+
+
+@router.get("/safety", response_class=HTMLResponse)
+def safety(request: Request, trench: str | None = None, kind: str | None = None, days: str | None = None) -> Response:
+    session = _signed_in(request)
+    store = request.app.state.store
+    span = _SPANS.get(days or "")
+    since = dt.datetime.now(dt.timezone.utc) - dt.timedelta(days=span) if span else None
+    filters = {"trench": trench or None, "kind": kind if kind in KINDS else None}
+    rows = [_shown(c) for c in safety_log(store, since=since, limit=1001, **filters)]
+    trenches = sorted(t.code for t in store.list(Trench))
+    return _page(request, "safety.html", session, "Safety", page="safety", checks=rows[:1000], more=len(rows) > 1000,
+                 filters={**filters, "days": days if span else ""}, trenches=trenches, kinds=KIND_LABELS)
 
 
 # -- matrix and exports ---------------------------------------------------------------------------------------

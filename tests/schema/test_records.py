@@ -142,3 +142,12 @@ def test_json_round_trip(changes: dict) -> None:
     material = "obsidian" if changes["category"] == "artifact" else "bone"
     find = check(Find, find_data(demo, material=material, **changes))
     assert Find.model_validate_json(find.model_dump_json()) == find
+
+
+def test_every_safety_kind_has_a_label() -> None:
+    from typing import get_args
+
+    from schema.records.safety import KIND_LABELS, SafetyKind
+
+    assert list(KIND_LABELS) == list(get_args(SafetyKind))
+    assert all(label and label == label.lower() for label in KIND_LABELS.values())

@@ -11,7 +11,7 @@ from fastapi.testclient import TestClient
 from schema.records import Find
 from sync_server.app import ROUTE_ROLES, create_app
 from sync_server.sync import list_conflicts
-from tests.helpers import find_data, seeded_server, synced_tablet, unit_conflict
+from tests.helpers import find_data, safety_day, seeded_server, synced_tablet, unit_conflict
 
 
 @pytest.fixture
@@ -124,3 +124,44 @@ def test_checks_finds_matrix_and_exports_pages(camp) -> None:  # type: ignore[no
     assert png.status_code == 200 and png.content[:8] == b"\x89PNG\r\n\x1a\n"
     z = http.get("/camp/exports/download", params={"strict": "true"})
     assert z.status_code == 200 and "baulk-export/manifest.json" in zipfile.ZipFile(io.BytesIO(z.content)).namelist()
+
+
+def test_safety_page_lists_what_the_tablets_answered(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    bone = safety_day(server, demo, http, tmp)
+    _sign_in(http, server.add_device(label="AN-1", role="analyst")[1])  # read-only: an analyst sees it too
+
+    def rows(**params: str) -> list[str]:
+        page = http.get("/camp/safety", params=params)
+        assert page.status_code == 200
+        return re.findall(r'<td class="what">([^<]*?)(?: at <span|</td>)', page.text)
+
+    page = http.get("/camp/safety").text
+    assert "it never judges a trench safe" in page
+    # newest first: the human remains (linked to the find, with who was told), the shoring check, the laser
+    assert rows() == ["possible human remains", "shoring check", "total station laser"]
+    assert f'<a href="/camp/finds/{bone.id}">find {bone.number}</a>' in page
+    assert "Told: site director RM at 10:40" in page and '<span class="num">1.35 m</span>' in page
+    assert rows(kind="shoring") == ["shoring check"]
+    assert rows(days="7") == ["possible human remains", "shoring check"]
+    assert rows(trench="TR1", kind="laser") == ["total station laser"]
+    assert rows(trench="TR2") == [] and "No safety check matches." in http.get("/camp/safety", params={"trench": "TR2"}).text
+    assert len(rows(kind="no-such-kind")) == 3  # an unknown kind in the address shows every kind
+
+
+def test_today_shows_possible_human_remains_first(camp) -> None:  # type: ignore[no-untyped-def]
+    server, demo, http, tmp = camp
+    _sign_in(http, server.add_device(label="MGR", role="manager")[1])
+    quiet = http.get("/camp/").text
+    assert 'role="alert"' not in quiet
+    assert "shoring check: <span class=\"num\">0</span>" in quiet
+    bone = safety_day(server, demo, http, tmp)
+    page = http.get("/camp/").text
+    alert = page.index('role="alert"')
+    assert alert < page.index("<h2>Devices</h2>")
+    assert f"find {bone.number}</a>" in page[alert:] and "Told: site director RM at 10:40" in page[alert:]
+    assert "stays stopped and the spot secured" in page
+    # the last 24 hours: the laser check of ten days ago is not counted
+    assert re.search(r"shoring check: <span class=\"num\">1</span>.*possible human remains: <span "
+                     r"class=\"num\">1</span>.*total station laser: <span class=\"num\">0</span>", page, re.S)
+
