@@ -154,6 +154,7 @@ def test_today_shows_possible_human_remains_first(camp) -> None:  # type: ignore
     _sign_in(http, server.add_device(label="MGR", role="manager")[1])
     quiet = http.get("/camp/").text
     assert 'role="alert"' not in quiet
+    assert '<span class="num">0</span> conflicts wait;\n<span class="num">0</span> checks are errors' in quiet
     assert "shoring check: <span class=\"num\">0</span>" in quiet
     bone = safety_day(server, demo, http, tmp)
     page = http.get("/camp/").text

@@ -62,7 +62,7 @@ def test_a_manager_works_through_the_evening_in_a_browser(tmp_path: Path) -> Non
             page.fill("#token", manager)
             page.click("button:has-text('Sign in')")
             page.wait_for_url(f"{base}/camp/")
-            assert "TAB-1" in page.content() and "1</span> conflicts wait" in page.content()
+            assert "TAB-1" in page.content() and "1</span> conflict waits" in page.content()
             page.screenshot(path=str(shots / "2-today.png"), full_page=True)
 
             page.click("header >> text=Conflicts")
