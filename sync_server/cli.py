@@ -10,13 +10,13 @@ from __future__ import annotations
 import datetime as dt
 import sys
 from pathlib import Path
-from typing import Any, get_args
+from typing import Any
 
 import click
 
 from schema import __version__
 from schema.errors import BaulkError
-from schema.records.safety import SafetyKind
+from schema.records.safety import SAFETY_KINDS
 
 __all__ = ["cli", "main"]
 
@@ -212,7 +212,7 @@ def _server_store(database_url: str | None) -> Any:
 
 @cli.command("safety")
 @click.option("--trench", default=None, help="Only this trench's checks (its code, e.g. TR1).")
-@click.option("--kind", type=click.Choice(get_args(SafetyKind)), default=None,
+@click.option("--kind", type=click.Choice(SAFETY_KINDS), default=None,
               help="Only checks of this kind.")
 @click.option("--days", type=click.IntRange(min=1), default=None, help="Only checks of the last N days [default: all].")
 @click.option("--csv", "csv_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
@@ -222,18 +222,13 @@ def safety_cmd(trench: str | None, kind: str | None, days: int | None, csv_path:
                database_url: str | None) -> None:
     """List the safety checks the tablets recorded, newest first: shoring at depth, possible human remains, the
     laser with each setup, heat, with each recorder's answer. Baulk records answers; it never judges a trench safe."""
-    from .safety import safety_log, write_safety_csv
+    from .safety import safety_line, safety_log, write_safety_csv
 
     since = dt.datetime.now(dt.timezone.utc) - dt.timedelta(days=days) if days else None
     with _server_store(database_url) as store:
-        rows = safety_log(store, trench=trench, kind=kind, since=since, limit=1_000_000)
-    for r in rows:
-        where = " ".join(filter(None, [r["trench"], r["unit"] and f"unit {r['unit']}",
-                                       r["find_number"] is not None and f"find {r['find_number']}"]))
-        depth = f" at {r['depth_m']:.2f} m" if r["depth_m"] is not None else ""
-        told = f" | told: {r['notified']}" if r["notified"] else ""
-        click.echo(f"{r['checked_at'].astimezone(dt.timezone.utc):%Y-%m-%d %H:%M}Z  {where or '-'}  {r['what']}{depth}"
-                   f"  [{r['recorder']}] {r['answer']}{told}")
+        rows = safety_log(store, trench=trench, kind=kind, since=since, limit=None)
+    for row in rows:
+        click.echo(safety_line(row))
     if csv_path is not None:
         write_safety_csv(rows, csv_path)
     click.echo(f"{len(rows)} safety check{'' if len(rows) == 1 else 's'}" + (f"; written to {csv_path}" if csv_path else ""),

@@ -109,7 +109,7 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
     summary["tablets"] = tablet_counts
     summary["server"] = {"counts": server.counts(), "devices": [d.label for d in server.list(Device)]}
     summary["finds"] = _tables(server, demo)
-    summary["safety"] = {"safety_check": server.count(SafetyCheck),
+    summary["safety"] = {"checks": server.count(SafetyCheck),
                          "by_kind": dict(sorted(collections.Counter(c.kind for c in server.list(SafetyCheck)).items()))}
     summary["seconds"] = round(time.perf_counter() - started, 1)
     server.close()
@@ -448,7 +448,7 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
     sf = s["safety"]
     lines += ["", "## Safety", "",
               f"Each recorder acknowledged the day-start cautions on the tablet; the camp holds "
-              f"{sf.get('safety_check', 0)} safety checks (" + ", ".join(f"{k} {v}" for k, v in sf["by_kind"].items())
+              f"{sf['checks']} safety checks (" + ", ".join(f"{k} {v}" for k, v in sf["by_kind"].items())
               + "), listed on the camp's Safety page. Baulk records the answers; it never judges a trench safe."]
     lines += ["", "## Bad input is refused with the fix, and nothing is written", ""]
     for r in s.get("refused", []):

@@ -11,26 +11,25 @@ from __future__ import annotations
 import csv
 import datetime as dt
 from pathlib import Path
-from typing import Any, get_args
+from typing import Any
 
 import sqlalchemy as sa
 
-from schema.records.safety import KIND_LABELS, SafetyKind
+from schema.records.safety import KIND_LABELS, SAFETY_KINDS as KINDS
 from schema.tables import metadata
 
 from .store import ServerStore
 
-__all__ = ["CSV_COLUMNS", "KINDS", "safety_log", "safety_summary", "write_safety_csv"]
+__all__ = ["CSV_COLUMNS", "KINDS", "safety_line", "safety_log", "safety_summary", "write_safety_csv"]
 
-KINDS: tuple[str, ...] = get_args(SafetyKind)
 CSV_COLUMNS = ("checked_at", "trench", "unit", "find_number", "kind", "what", "depth_m", "answer", "notified",
                "recorder", "id", "find_id")
 
 
 def safety_log(store: ServerStore, *, trench: str | None = None, kind: str | None = None,
-               since: dt.datetime | None = None, limit: int = 500) -> list[dict[str, Any]]:
-    """Safety checks, newest first, filtered by trench code, kind and time; each as a plain dict with the
-    trench and unit codes and the find's number (None where the check concerns none)."""
+               since: dt.datetime | None = None, limit: int | None = 500) -> list[dict[str, Any]]:
+    """Safety checks, newest first (at most ``limit``; None for all), filtered by trench code, kind and time;
+    each as a plain dict with the trench and unit codes and the find's number (None where it concerns none)."""
     if kind is not None and kind not in KINDS:
         raise ValueError(f"no safety check kind is called {kind!r}; choose one of {', '.join(KINDS)}")
     s, t, u, f = (metadata.tables[n] for n in ("safety_check", "trench", "unit", "find"))
@@ -44,7 +43,9 @@ def safety_log(store: ServerStore, *, trench: str | None = None, kind: str | Non
         q = q.where(s.c.kind == kind)
     if since is not None:
         q = q.where(s.c.checked_at >= since)
-    q = q.order_by(s.c.checked_at.desc(), s.c.id).limit(limit)
+    q = q.order_by(s.c.checked_at.desc(), s.c.id)
+    if limit is not None:
+        q = q.limit(limit)
     with store.read() as conn:
         return [{**row._asdict(), "what": KIND_LABELS[row.kind]} for row in conn.execute(q)]
 
@@ -58,6 +59,17 @@ def safety_summary(store: ServerStore, *, since: dt.datetime) -> dict[str, Any]:
                                    .group_by(s.c.kind)).all())
     return {"counts": {k: int(counts.get(k, 0)) for k in KINDS},
             "human_remains": safety_log(store, kind="human_remains", since=since)}
+
+
+def safety_line(row: dict[str, Any]) -> str:
+    """One row of :func:`safety_log` as a line of text: UTC time, where, what (with the depth), who and the
+    answer, and who was told."""
+    where = " ".join(filter(None, [row["trench"], row["unit"] and f"unit {row['unit']}",
+                                   row["find_number"] is not None and f"find {row['find_number']}"]))
+    depth = f" at {row['depth_m']:.2f} m" if row["depth_m"] is not None else ""
+    told = f" | told: {row['notified']}" if row["notified"] else ""
+    return (f"{row['checked_at'].astimezone(dt.timezone.utc):%Y-%m-%d %H:%M}Z  {where or '-'}  {row['what']}{depth}"
+            f"  [{row['recorder']}] {row['answer']}{told}")
 
 
 def write_safety_csv(rows: list[dict[str, Any]], path: Path) -> Path:

@@ -5,7 +5,7 @@ never declares a trench safe or a find handled correctly: local rules and licens
 from __future__ import annotations
 
 import uuid
-from typing import Annotated, Literal
+from typing import Annotated, Literal, get_args
 
 from pydantic import Field, model_validator
 
@@ -13,9 +13,10 @@ from ..fields import Id, Initials, Ref, Timestamp, new_id
 from ..validation import FieldError
 from ._base import Record, spec
 
-__all__ = ["KIND_LABELS", "SafetyCheck", "SafetyCheckBase", "SafetyKind", "SPECS"]
+__all__ = ["KIND_LABELS", "SAFETY_KINDS", "SafetyCheck", "SafetyCheckBase", "SafetyKind", "SPECS"]
 
 SafetyKind = Literal["shoring", "human_remains", "laser", "heat"]
+SAFETY_KINDS: tuple[str, ...] = get_args(SafetyKind)
 
 # what each kind is called where people read it (the camp pages, reports)
 KIND_LABELS: dict[str, str] = {

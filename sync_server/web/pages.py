@@ -24,10 +24,9 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
 from schema.records import Device, Find, Trench, Unit
+from schema.records.safety import KIND_LABELS
 from schema.errors import BaulkError
 from schema.tables import metadata
-
-from schema.records.safety import KIND_LABELS
 
 from ..safety import KINDS, safety_log, safety_summary
 from ..sync import list_conflicts, resolve_conflict

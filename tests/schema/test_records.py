@@ -147,7 +147,7 @@ def test_json_round_trip(changes: dict) -> None:
 def test_every_safety_kind_has_a_label() -> None:
     from typing import get_args
 
-    from schema.records.safety import KIND_LABELS, SafetyKind
+    from schema.records.safety import KIND_LABELS, SAFETY_KINDS, SafetyKind
 
-    assert list(KIND_LABELS) == list(get_args(SafetyKind))
+    assert list(KIND_LABELS) == list(SAFETY_KINDS) == list(get_args(SafetyKind))
     assert all(label and label == label.lower() for label in KIND_LABELS.values())

@@ -64,7 +64,7 @@ def test_demo_writes_a_summary(demo_out: Path) -> None:
     assert sync["open_after"] == 1 and sync["slip_unit_everywhere"] == ["104"]
     assert summary["server_validation"]["by_code"]["UNIT_IS_CUT"] == 1
     # safety: each tablet's day-start heat and laser acknowledgements reached the camp
-    assert summary["safety"] == {"safety_check": 6, "by_kind": {"heat": 3, "laser": 3}}
+    assert summary["safety"] == {"checks": 6, "by_kind": {"heat": 3, "laser": 3}}
     assert "the camp holds 6 safety checks (heat 3, laser 3)" in (out / "summary.md").read_text()
 
 
