@@ -67,6 +67,14 @@ class SiteBase(Record):
         default="UTC", description="the site's time zone (IANA name), for dates on finds and units",
         examples=["Africa/Nairobi"],
     )
+    country_code: str | None = Field(
+        default=None, pattern=r"^[A-Z]{2}$",
+        description="the country the site lies in, as an ISO 3166-1 alpha-2 code (for specimen records)",
+        examples=["KE"],
+    )
+    number_block_size: Annotated[
+        int, Field(ge=10, le=100000, description="find numbers the camp server issues to a tablet at a time")
+    ] = 500
 
     @model_validator(mode="after")
     def _known_zone(self) -> "SiteBase":

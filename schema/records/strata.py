@@ -28,6 +28,12 @@ class HorizonBase(Record):
     order: Annotated[int, Field(ge=1, description="position from the top, 1 = uppermost")]
     age_min_ka: float | None = Field(default=None, ge=0, allow_inf_nan=False, description="youngest age (ka)")
     age_max_ka: float | None = Field(default=None, ge=0, allow_inf_nan=False, description="oldest age (ka)")
+    formation: str | None = Field(default=None, min_length=1, max_length=120,
+                                  description="lithostratigraphic formation, if named", examples=["Vellan Formation"])
+    member: str | None = Field(default=None, min_length=1, max_length=120,
+                               description="lithostratigraphic member, if named", examples=["Upper Member"])
+    bed: str | None = Field(default=None, min_length=1, max_length=120,
+                            description="lithostratigraphic bed, if named", examples=["Tuff VL-1"])
 
     @model_validator(mode="after")
     def _age_bracket(self) -> "HorizonBase":
