@@ -72,6 +72,9 @@ class SiteBase(Record):
         description="the country the site lies in, as an ISO 3166-1 alpha-2 code (for specimen records)",
         examples=["KE"],
     )
+    grid_tolerance_m: Annotated[
+        float, Field(gt=0, le=10, description="largest residual of a control point accepted when the site grid is fitted (m)")
+    ] = 0.05
     number_block_size: Annotated[
         int, Field(ge=10, le=100000, description="find numbers the camp server issues to a tablet at a time")
     ] = 500
