@@ -44,7 +44,7 @@ def upgrade() -> None:
 
     with op.batch_alter_table('site', schema=None) as batch_op:
         batch_op.add_column(sa.Column('country_code', sa.String(), nullable=True, comment='the country the site lies in, as an ISO 3166-1 alpha-2 code (for specimen records)'))
-        batch_op.add_column(sa.Column('grid_tolerance_m', sa.Float(), nullable=False, server_default='0.05', comment='largest residual of a control point accepted when the site grid is fitted (m)'))
+        batch_op.add_column(sa.Column('grid_tolerance_m', sa.Double(), nullable=False, server_default='0.05', comment='largest residual of a control point accepted when the site grid is fitted (m)'))
         batch_op.add_column(sa.Column('number_block_size', sa.BigInteger(), nullable=False, server_default='500', comment='find numbers the camp server issues to a tablet at a time'))
 
     # ### end Alembic commands ###
