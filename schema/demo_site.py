@@ -17,7 +17,7 @@ from .records import (
     AgeDetermination, ControlPoint, Horizon, LevelPoint, Relation, Season, Site, Spit, Trench, Unit,
 )
 
-__all__ = ["DemoSite", "TabletPlan", "build_site", "fit_demo_grid", "plan_finds"]
+__all__ = ["DemoSite", "TabletPlan", "build_site", "control_csv", "dates_csv", "fit_demo_grid", "plan_finds", "setup_toml"]
 
 TZ = dt.timezone(dt.timedelta(hours=3))
 SEASON_START = dt.date(2026, 7, 1)
@@ -111,6 +111,11 @@ class DemoSite:
     ages: list[AgeDetermination]
     surfaces: dict[str, tuple[float, float]] = field(default_factory=dict)  # unit -> (top Z, bottom Z)
 
+    def recorded_records(self) -> list[Any]:
+        """The units, relations, level points and spits dug so far (what the tablets record), parents first."""
+        return [*self.units.values(), *self.relations, *self.level_points,
+                *(s for spits in self.spits.values() for s in spits)]
+
     def setup_records(self) -> list[Any]:
         """Every set-up record, parents first (the order a store needs)."""
         return [
@@ -151,18 +156,70 @@ def _surfaces() -> dict[str, tuple[float, float]]:
     return out
 
 
-def build_site() -> DemoSite:
-    """The invented site's set-up records."""
-    site = Site(code="VLM", name="Vellan Lake Margin", crs_epsg=32736, vertical_offset_m=0.0)
-    season = Season(site_id=site.id, label="2026", starts_on=SEASON_START, ends_on=dt.date(2026, 8, 15))
-    cps = [
-        ControlPoint(site_id=site.id, code=code, e=e, n=n, z=z, crs_e=ce, crs_n=cn)
-        for code, e, n, z, ce, cn in CONTROL
+SEASON_END = dt.date(2026, 8, 15)
+
+
+def setup_toml() -> str:
+    """The invented site's set-up file, as a data manager would write it for ``baulk site init`` (the demo
+    writes it next to its stores; the control points go in ``control.csv``, see ``control_csv``)."""
+    lines = [
+        "# Site set-up for baulk site init (invented demo site; see README.md, 'Your own site')",
+        'control_points_csv = "control.csv"',
+        "",
+        "[site]",
+        'code = "VLM"',
+        'name = "Vellan Lake Margin"',
+        "crs_epsg = 32736                 # WGS 84 / UTM zone 36S",
+        'timezone = "Africa/Nairobi"',
+        'country_code = "KE"',
+        "z_tolerance_m = 0.02",
+        "shoring_check_depth_m = 1.2      # set it to your local rule",
+        "number_block_size = 500",
+        "grid_tolerance_m = 0.01",
+        f"vertical_offset_m = {GRID_TIE['dz']}       # site datum Z minus CRS height",
+        "",
+        "[season]",
+        'label = "2026"',
+        f"starts_on = {SEASON_START.isoformat()}",
+        f"ends_on = {SEASON_END.isoformat()}",
     ]
-    trenches = {
-        code: Trench(site_id=site.id, code=code, outline=outline, seasons_opened=[season.id])
-        for code, outline, _z, _t, _r in TRENCHES
-    }
+    for code, outline, _z, _t, _r in TRENCHES:
+        corners = ", ".join(f"[{e:g}, {n:g}]" for e, n in outline)
+        lines += ["", "[[trench]]", f'code = "{code}"', f"outline = [{corners}]"]
+    return "\n".join(lines) + "\n"
+
+
+def control_csv() -> str:
+    """The invented site's control points, ``code,e,n,z,crs_e,crs_n``."""
+    return "code,e,n,z,crs_e,crs_n\n" + "".join(f"{c},{e:.3f},{n:.3f},{z:.3f},{ce:.3f},{cn:.3f}\n"
+                                               for c, e, n, z, ce, cn in CONTROL)
+
+
+def dates_csv() -> str:
+    """The invented laboratory dates, ``unit,method,age_ka,sigma_ka,lab_code,sample_find_number,note``."""
+    rows = ["unit,method,age_ka,sigma_ka,lab_code,sample_find_number,note"]
+    rows += [f'{u},{m},{a:g},{s:g},{lab},,"{note}"' for u, m, a, s, lab, note in AGES]
+    return "\n".join(rows) + "\n"
+
+
+def build_site(setup: Any = None, *, assign_horizons: bool = True) -> DemoSite:
+    """The invented site's set-up records. ``setup`` (a ``schema.setup_file.SetupPlan``, as ``baulk site init``
+    wrote it) supplies the site, season, control points and trenches instead of fresh ones; with
+    ``assign_horizons=False`` units start with no horizon (the demo assigns them as a data manager would)."""
+    if setup is not None:
+        site, season, cps = setup.site, setup.season, list(setup.control_points)
+        trenches = {t.code: t for t in setup.trenches}
+    else:
+        site = Site(code="VLM", name="Vellan Lake Margin", crs_epsg=32736, vertical_offset_m=0.0)
+        season = Season(site_id=site.id, label="2026", starts_on=SEASON_START, ends_on=SEASON_END)
+        cps = [
+            ControlPoint(site_id=site.id, code=code, e=e, n=n, z=z, crs_e=ce, crs_n=cn)
+            for code, e, n, z, ce, cn in CONTROL
+        ]
+        trenches = {
+            code: Trench(site_id=site.id, code=code, outline=outline, seasons_opened=[season.id])
+            for code, outline, _z, _t, _r in TRENCHES
+        }
     horizons = {code: Horizon(site_id=site.id, code=code, label=label, order=order) for code, label, order in HORIZONS}
     recorder = {code: rec for code, _o, _z, _t, rec in TRENCHES}
     units = {
@@ -170,7 +227,7 @@ def build_site() -> DemoSite:
             site_id=site.id, trench_id=trenches[trench].id, code=code, kind=kind, description=desc,
             munsell=munsell, munsell_condition="moist" if munsell else None, texture=texture,
             opened_on=SEASON_START, recorder=recorder[trench],
-            horizon_id=horizons[h].id if h else None,
+            horizon_id=horizons[h].id if h and assign_horizons else None,
         )
         for code, trench, kind, h, _t, texture, munsell, desc in UNITS
     }
