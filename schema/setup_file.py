@@ -8,8 +8,8 @@ file's line, the table and key, the bad value and the fix. The file looks like t
     control_points_csv = "control.csv"   # optional: code,e,n,z[,crs_e,crs_n]; relative to this file
 
     [site]
-    code = "KRB"
-    name = "Kerio Ridge Basin"
+    code = "MHW"
+    name = "Marl Hollow"
     crs_epsg = 32637                # a projected CRS
     timezone = "Africa/Nairobi"
     country_code = "KE"             # ISO 3166-1 alpha-2
@@ -23,7 +23,7 @@ file's line, the table and key, the bad value and the fix. The file looks like t
     starts_on = 2027-06-14
 
     [[control_point]]
-    code = "KB1"
+    code = "MH1"
     e = 500.000
     n = 1000.000
     z = 50.000

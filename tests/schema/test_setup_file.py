@@ -21,14 +21,14 @@ def _crs(e: float, n: float) -> tuple[float, float]:
     return round(TIE["tx"] + a * e - b * n, 3), round(TIE["ty"] + b * e + a * n, 3)
 
 
-CONTROL = [("KB1", 500.0, 1000.0, 50.0), ("KB2", 530.0, 1002.0, 49.8), ("KB3", 512.0, 1030.0, 50.4)]
+CONTROL = [("MH1", 500.0, 1000.0, 50.0), ("MH2", 530.0, 1002.0, 49.8), ("MH3", 512.0, 1030.0, 50.4)]
 
 GOOD = """\
 control_points_csv = "control.csv"
 
 [site]
-code = "KRB"
-name = "Kerio Ridge Basin"
+code = "MHW"
+name = "Marl Hollow"
 crs_epsg = 32737
 timezone = "Africa/Nairobi"
 country_code = "KE"
@@ -42,7 +42,7 @@ label = "2027"
 starts_on = 2027-06-14
 
 [[control_point]]
-code = "KB4"
+code = "MH4"
 e = 520.0
 n = 1010.0
 z = 51.2
@@ -53,7 +53,7 @@ outline = [[502, 1004], [506, 1004], [506, 1008], [502, 1008]]
 
 [[trench]]
 code = "B"
-outline = ["KB4", "KB2", "KB3"]
+outline = ["MH4", "MH2", "MH3"]
 """
 
 
@@ -81,9 +81,9 @@ def problems(tmp: Path, text: str, control: str | None = None) -> list[str]:
 
 def test_a_good_file_gives_the_whole_set_up(tmp_path: Path) -> None:
     plan = read_setup(write(tmp_path))
-    assert (plan.site.code, plan.site.crs_epsg, plan.site.country_code) == ("KRB", 32737, "KE")
+    assert (plan.site.code, plan.site.crs_epsg, plan.site.country_code) == ("MHW", 32737, "KE")
     assert (plan.site.number_block_size, plan.site.shoring_check_depth_m) == (300, 1.5)
-    assert [cp.code for cp in plan.control_points] == ["KB4", "KB1", "KB2", "KB3"]
+    assert [cp.code for cp in plan.control_points] == ["MH4", "MH1", "MH2", "MH3"]
     assert [t.code for t in plan.trenches] == ["A", "B"]
     assert plan.trenches[1].outline == [(520.0, 1010.0), (530.0, 1002.0), (512.0, 1030.0)]  # from the codes
     assert plan.trenches[0].seasons_opened == [plan.season.id]
@@ -114,7 +114,7 @@ def test_grid_and_polynomial_agree_with_pyproj_on_points_not_in_the_fit(tmp_path
         e, n = to_utm.transform(lon, lat)
         x, y = grid_of(e, n)
         rows.append(f"P{i},{x:.4f},{y:.4f},50,{e:.4f},{n:.4f}")
-    text = GOOD.replace('outline = ["KB4", "KB2", "KB3"]', 'outline = [[600, 1200], [604, 1200], [604, 1204]]')
+    text = GOOD.replace('outline = ["MH4", "MH2", "MH3"]', 'outline = [[600, 1200], [604, 1200], [604, 1204]]')
     centre = grid_of(*to_utm.transform(36.022, -1.169))
     text = text.replace("[[502, 1004], [506, 1004], [506, 1008], [502, 1008]]",
                         f"[[{centre[0]:.1f}, {centre[1]:.1f}], [{centre[0] + 4:.1f}, {centre[1]:.1f}], "
@@ -154,7 +154,7 @@ def test_bad_site_values_are_named_with_line_key_and_fix(tmp_path: Path, change:
 
 
 def test_a_missing_key_and_a_missing_table(tmp_path: Path) -> None:
-    got = problems(tmp_path, GOOD.replace('name = "Kerio Ridge Basin"\n', ""))
+    got = problems(tmp_path, GOOD.replace('name = "Marl Hollow"\n', ""))
     assert any(p.startswith("line 3, [site] name: ") and "required" in p.lower() for p in got), got
     got = problems(tmp_path, GOOD.replace("[season]", "[seasons]"))
     assert "top level seasons: unknown key 'seasons'; did you mean season?" in got[0]
@@ -176,19 +176,19 @@ def test_outlines_checked_with_shapely(tmp_path: Path) -> None:
 
 
 def test_overlapping_trenches_and_unknown_corner_codes(tmp_path: Path) -> None:
-    got = problems(tmp_path, GOOD.replace('["KB4", "KB2", "KB3"]', "[[504, 1006], [510, 1006], [510, 1010], [504, 1010]]"))
+    got = problems(tmp_path, GOOD.replace('["MH4", "MH2", "MH3"]', "[[504, 1006], [510, 1006], [510, 1010], [504, 1010]]"))
     assert got == ["line 30, [[trench]] B outline: the outline overlaps trench A by 4.00 m2; trenches may touch but "
                    "not overlap: correct one of the two outlines"]
-    got = problems(tmp_path, GOOD.replace('"KB4", "KB2"', '"KB9", "KB2"'))
-    assert got == ["line 30, [[trench]] B outline: control point KB9 not defined; define it or give E, N corners"]
+    got = problems(tmp_path, GOOD.replace('"MH4", "MH2"', '"MH9", "MH2"'))
+    assert got == ["line 30, [[trench]] B outline: control point MH9 not defined; define it or give E, N corners"]
 
 
 def test_a_control_point_far_from_the_others_is_named(tmp_path: Path) -> None:
     rows = _control().splitlines()
     code, e, n, z, ce, cn = rows[2].split(",")
-    rows[2] = ",".join([code, e, n, z, str(float(ce) + 4000), cn])  # a slipped digit in KB2's easting
+    rows[2] = ",".join([code, e, n, z, str(float(ce) + 4000), cn])  # a slipped digit in MH2's easting
     got = problems(tmp_path, GOOD, "\n".join(rows) + "\n")
-    assert got == ["line 1, top level control_points_csv: control point KB2: its CRS coordinates lie 3,993 m from where "
+    assert got == ["line 1, top level control_points_csv: control point MH2: its CRS coordinates lie 3,993 m from where "
                    "its grid coordinates put it among the other control points; check crs_e and crs_n for a typo (or "
                    "a point from another zone)"]
 
@@ -207,12 +207,12 @@ def test_residuals_over_the_tolerance_are_refused_unless_accepted(tmp_path: Path
 
 
 def test_bad_control_csv_and_bad_toml_and_no_file(tmp_path: Path) -> None:
-    got = problems(tmp_path, GOOD, "code,e,n,z,crs_e,crs_n\nKB1,500,1000,fifty,1,2\n")
+    got = problems(tmp_path, GOOD, "code,e,n,z,crs_e,crs_n\nMH1,500,1000,fifty,1,2\n")
     assert got == [f"line 1, top level control_points_csv: {tmp_path / 'control.csv'} line 2: z 'fifty' is not a "
                    "number; use a decimal point, e.g. 12.345",
-                   "line 30, [[trench]] B outline: control points KB2, KB3 not defined; define them or give E, N "
+                   "line 30, [[trench]] B outline: control points MH2, MH3 not defined; define them or give E, N "
                    "corners"]  # every problem at once, not the first alone
-    got = problems(tmp_path, GOOD.replace('code = "KRB"', 'code = "KRB'))
+    got = problems(tmp_path, GOOD.replace('code = "MHW"', 'code = "KRB'))
     assert got[0].startswith("not valid TOML: ") and "line 4" in got[0]
     with pytest.raises(InputFileInvalid, match="no such file; check the path"):
         read_setup(tmp_path / "nope.toml")
