@@ -29,6 +29,13 @@ def _store(database_url: str | None) -> Any:
     return _server_store(database_url)
 
 
+def _revalidate(store: Any) -> None:
+    """Every check runs again after a set-up change (a moved outline or a refitted grid changes what they say)."""
+    from .validation import run_validation
+
+    run_validation(store)
+
+
 def _grid_lines(grid: dict[str, Any] | None) -> list[str]:
     if grid is None:
         return ["site grid: not fitted (fewer than two control points known in both systems)"]
@@ -130,6 +137,7 @@ def site_control_point(code: str, e: float, n: float, z: float, crs_e: float | N
     with _store(database_url) as store:
         r = set_control_point(store, code=code, e=e, n=n, z=z, crs_e=crs_e, crs_n=crs_n,
                               accept_residuals=accept_residuals)
+        _revalidate(store)
     click.echo(f"control point {code} {'added' if r['added'] else 'corrected'}")
     if not r["refitted"]:
         click.echo("site grid unchanged (the point's CRS coordinates did not change)")
@@ -168,6 +176,7 @@ def site_trench(code: str, outline: str, season: str | None, database_url: str |
 
     with _store(database_url) as store:
         r = set_trench(store, code=code, outline=_outline(outline), season=season)
+        _revalidate(store)
     click.echo(f"trench {r['trench']} {'added' if r['added'] else 'outline changed'}: {r['corners']} corners, "
                f"{r['area_m2']:.2f} m2")
 
@@ -191,6 +200,7 @@ def season_open(label: str, starts: str, ends: str | None, database_url: str | N
     with _store(database_url) as store:
         s = open_season(store, label=label, starts_on=_date(starts, "--starts"),
                         ends_on=_date(ends, "--ends") if ends else None)
+        _revalidate(store)
     click.echo(f"season {s.label} opened on {s.starts_on}" + (f", ends {s.ends_on}" if s.ends_on else ""))
 
 
@@ -204,4 +214,5 @@ def season_close(label: str, ends: str, database_url: str | None) -> None:
 
     with _store(database_url) as store:
         s = close_season(store, label=label, ends_on=_date(ends, "--ends"))
+        _revalidate(store)
     click.echo(f"season {s.label} closed: {s.starts_on} to {s.ends_on}")
