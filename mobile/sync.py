@@ -39,6 +39,9 @@ class SyncReport:
     conflicts_open: int | None = None
     clock_offset_ms: int | None = None
     acks: list[dict[str, Any]] = field(default_factory=list)
+    # versions the server would not take from this device (set-up records only a manager writes), with the
+    # server's reason; acknowledged with their batch, so they are never sent again
+    refused: list[dict[str, Any]] = field(default_factory=list)
 
 
 def pending_count(store: TabletStore) -> int:
@@ -102,6 +105,7 @@ class SyncClient:
             report.replayed_batches += int(bool(ack.get("replayed")))
             report.conflicts_open = ack.get("conflicts_open")
             report.acks.append(ack)
+            report.refused.extend(ack.get("refused") or [])
             self.progress("push", k, len(todo))
 
     def pull(self, report: SyncReport) -> None:

@@ -13,12 +13,20 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      +-- StoreError             a store file or database that cannot be used
      |    +-- StoreTooNew       the file was written by a newer Baulk
      |    +-- MigrationFailed   an upgrade step failed (the store is left as it was)
+     |    +-- StoreMissing      no store at the path given (and none is to be created there)
+     |    +-- NotABaulkStore    a file or database that holds something else than a Baulk store
      +-- SyncError              a push or a bundle that cannot be applied as sent
      |    +-- BatchClash        the same (device, batch) with different content: a restored tablet
      |    +-- WrongDevice       versions that claim another device than the one authenticated
      |    +-- BundleInvalid     a bundle file that is corrupt, truncated or tampered with
      +-- EnrolmentRefused       an enrolment code that is unknown, used already or expired
      +-- CautionUnanswered      a caution (possible human remains) that must be answered before the save
+     +-- CurationError          a camp-side curation that cannot be made as asked (nothing is written)
+     |    +-- ReasonMissing     a correction or horizon assignment given no reason
+     |    +-- UnknownField      a field name the record does not have (the closest names are suggested)
+     |    +-- NothingChanged    a correction that gives a field the value it already has
+     |    +-- WrongSite         a unit put in a horizon of another site
+     |    +-- HorizonOrderInvalid  a new horizon order that misses, repeats or invents a code
      +-- SurveyError            survey input or a survey result that cannot be used
           +-- ObservationInvalid  a reading outside its range (zenith, distance, ...)
           +-- WeakGeometry        control points duplicated, coincident or on one line
@@ -39,28 +47,36 @@ __all__ = [
     "BaulkError",
     "BundleInvalid",
     "CautionUnanswered",
+    "CurationError",
     "DuplicateRecord",
     "EnrolmentRefused",
     "FieldProblem",
     "FixNotAccepted",
+    "HorizonOrderInvalid",
     "InputFileInvalid",
     "InstrumentLineInvalid",
     "MigrationFailed",
     "NoNumbersLeft",
+    "NotABaulkStore",
+    "NothingChanged",
     "NumberOutsideBlock",
     "ObservationInvalid",
     "ProjUnavailable",
+    "ReasonMissing",
     "RecordInvalid",
     "RecordNotFound",
     "ResectionRejected",
     "SetupNotReady",
     "StoreError",
+    "StoreMissing",
     "StoreTooNew",
     "SurveyError",
     "SyncError",
     "UnknownCRS",
+    "UnknownField",
     "WeakGeometry",
     "WrongDevice",
+    "WrongSite",
 ]
 
 
@@ -126,6 +142,14 @@ class MigrationFailed(StoreError):
     """A schema upgrade step failed and was rolled back."""
 
 
+class StoreMissing(StoreError):
+    """No store exists at the path given, and the command only opens existing stores."""
+
+
+class NotABaulkStore(StoreError):
+    """The file or database given is not a Baulk store (another program's, or not a database at all)."""
+
+
 class SurveyError(BaulkError):
     """Survey input or a survey result that cannot be used."""
 
@@ -184,3 +208,27 @@ class SetupNotReady(SurveyError):
 
 class CautionUnanswered(BaulkError):
     """A caution that stops the flow (possible human remains) has not been answered."""
+
+
+class CurationError(BaulkError):
+    """A camp-side curation (horizons, dates, corrections) that cannot be made as asked; nothing was written."""
+
+
+class ReasonMissing(CurationError):
+    """A correction or a horizon assignment was given no reason."""
+
+
+class UnknownField(CurationError):
+    """A field name the record does not have; the message suggests the closest names."""
+
+
+class NothingChanged(CurationError):
+    """A correction that gives a field the value it already has."""
+
+
+class WrongSite(CurationError):
+    """A unit put in a horizon of another site."""
+
+
+class HorizonOrderInvalid(CurationError):
+    """A new top-to-bottom horizon order that misses, repeats or invents a horizon code."""

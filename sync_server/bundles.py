@@ -17,7 +17,10 @@ __all__ = ["import_bundle"]
 
 
 def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
-    """Apply every batch of the bundle once (batches already applied by a push are answered from their ack)."""
+    """Apply every batch of the bundle once (batches already applied by a push are answered from their ack).
+
+    ``refused`` lists the versions of newly applied batches the server would not take from this device (set-up
+    records only a manager writes; see ``sync_server.sync.apply_push``), each with its reason."""
 
     def token_hash_of(device_id: uuid.UUID) -> str | None:
         found = store.list(Device, id=device_id)
@@ -32,5 +35,6 @@ def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
 
             acks.append(apply_push(store, device=device, batch=number, content_hash=batch_hash(versions),
                                    versions=versions))
-    return {"device": device.label, "batches": len(acks), "applied": sum(a["applied"] for a in acks if not a["replayed"]),
-            "replayed": sum(1 for a in acks if a["replayed"]), "acks": acks}
+    fresh = [a for a in acks if not a["replayed"]]
+    return {"device": device.label, "batches": len(acks), "applied": sum(a["applied"] for a in fresh),
+            "replayed": len(acks) - len(fresh), "refused": [r for a in fresh for r in a["refused"]], "acks": acks}

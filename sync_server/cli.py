@@ -204,10 +204,12 @@ def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
 
 
 def _server_store(database_url: str | None) -> Any:
+    """The existing store a command works on; only ``baulk serve`` and ``baulk site init`` make one, so a mistyped
+    --db is refused (nothing created) instead of starting an empty store."""
     from .settings import ServerSettings
     from .store import ServerStore
 
-    return ServerStore.open(database_url or ServerSettings().database_url)
+    return ServerStore.open(database_url or ServerSettings().database_url, create=False)
 
 
 @cli.command("safety")
@@ -266,7 +268,10 @@ def bundle_import(file: Path, database_url: str | None) -> None:
     with _server_store(database_url) as store:
         r = import_bundle(store, file)
     click.echo(f"imported {file.name} from {r['device']}: {r['batches']} batches, {r['applied']} new versions"
-               + (f", {r['replayed']} already applied" if r["replayed"] else ""))
+               + (f", {r['replayed']} already applied" if r["replayed"] else "")
+               + (f"; {len(r['refused'])} refused:" if r["refused"] else ""))
+    for refused in r["refused"]:
+        click.echo(f"  refused {refused['version']}: {refused['reason']}")
 
 
 @cli.command("export")
@@ -354,14 +359,26 @@ def device() -> None:
 @click.option("--server", default=None, help="The address tablets use [default: from the server settings].")
 @click.option("--png", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write the QR code as a PNG image here (to print or show on another screen).")
-def device_add(role: str, label: str, database_url: str | None, server: str | None, png: Path | None) -> None:
-    """Register a device and print its one-time enrolment code, as text and as a QR code."""
+@click.option("--json", "as_json", is_flag=True,
+              help="Print one JSON object (device, code, expires_at, enrol_line, server, fingerprint) and nothing else.")
+def device_add(role: str, label: str, database_url: str | None, server: str | None, png: Path | None,
+               as_json: bool) -> None:
+    """Register a device and print its one-time enrolment code, as text and as a QR code (or as JSON)."""
     from .devices import CODE_TTL, code_qr, enrol_line, make_code
 
     url, fingerprint = _public_url(server)
     with _server_store(database_url) as store:
         dev, code, expires = make_code(store, label=label, role=role)
     line = enrol_line(url, code, fingerprint=fingerprint)
+    if as_json:
+        import json
+
+        if png is not None:
+            code_qr(line, png=png)  # the PNG is still written when asked; no QR art on stdout
+        click.echo(json.dumps({"device": {"id": str(dev.id), "label": dev.label, "role": dev.role}, "code": code,
+                               "expires_at": expires.isoformat(), "enrol_line": line, "server": url,
+                               "fingerprint": fingerprint}))
+        return
     click.echo(code_qr(line, png=png))
     click.echo(f"device {dev.label} ({dev.role}) registered; enrolment code: {code}")
     click.echo(f"good once, until {expires:%Y-%m-%d %H:%M} UTC ({int(CODE_TTL.total_seconds() // 60)} minutes); "
@@ -422,9 +439,16 @@ def server_make_cert(hostnames: tuple[str, ...], ips: tuple[str, ...], out: Path
 
 
 def _register_groups() -> None:
+    from .cli_site import season_close, season_open, site
     from .cli_survey import survey
+    from .cli_curation import correct, date, horizon
 
     cli.add_command(survey)
+    for group in (horizon, date, correct):
+        cli.add_command(group)
+    cli.add_command(site)
+    season.add_command(season_open)
+    season.add_command(season_close)
 
 
 def _load_benchmarks() -> None:

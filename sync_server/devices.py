@@ -20,7 +20,7 @@ import time
 from collections import deque
 from pathlib import Path
 from typing import Any
-from urllib.parse import quote, urlencode
+from urllib.parse import parse_qs, quote, urlencode, urlsplit
 
 import sqlalchemy as sa
 
@@ -30,8 +30,8 @@ from schema.records import Device, DevicePublic
 from .store import ServerStore, hash_token
 from .tables import enrolment_code
 
-__all__ = ["CODE_TTL", "EnrolRateLimit", "code_qr", "enrol_line", "exchange_code", "list_devices", "make_code",
-           "normalise_code", "public", "revoke_device"]
+__all__ = ["CODE_TTL", "EnrolRateLimit", "code_from_text", "code_qr", "enrol_line", "exchange_code", "list_devices",
+           "make_code", "normalise_code", "public", "revoke_device"]
 
 CODE_TTL = dt.timedelta(minutes=15)
 _ALPHABET = "0123456789ABCDEFGHJKMNPQRSTVWXYZ"  # Crockford base 32: no I, L, O or U to misread in the sun
@@ -60,8 +60,12 @@ def make_code(store: ServerStore, *, label: str, role: str, by: str = "console",
     return device, code, now + ttl
 
 
-def exchange_code(store: ServerStore, code: str, *, now: dt.datetime | None = None) -> dict[str, Any]:
-    """Swap a code for the device's id and a new token (shown once). Recorders get their first number block."""
+def exchange_code(store: ServerStore, code: str, *, now: dt.datetime | None = None,
+                  roles: tuple[str, ...] | None = None) -> dict[str, Any]:
+    """Swap a code for the device's id and a new token (shown once). Recorders get their first number block.
+
+    With ``roles`` (the camp pages: manager and analyst), a code made for a device of another role is refused
+    and stays good for the device it was made for."""
     now = now or dt.datetime.now(dt.timezone.utc)
     token = secrets.token_urlsafe(32)
     with store.atomic() as conn:
@@ -76,11 +80,34 @@ def exchange_code(store: ServerStore, code: str, *, now: dt.datetime | None = No
         device = store.get(Device, row.device_id)
         if device.revoked_at is not None:
             raise EnrolmentRefused(f"device {device.label} was revoked; ask the data manager for a new code")
+        if roles is not None and device.role not in roles:
+            raise EnrolmentRefused(_wrong_role(device, row.expires_at, roles))
         conn.execute(enrolment_code.update().where(enrolment_code.c.code_hash == row.code_hash).values(used_at=now))
         device = store.put(device.model_copy(update={"token_hash": hash_token(token), "enrolled_at": now}))
         blocks = [store.issue_number_block(device_id=device.id, now=now)] if device.role == "recorder" else []
     return {"device_id": str(device.id), "label": device.label, "role": device.role, "token": token,
             "number_blocks": [{"first": b.first, "last": b.last} for b in blocks]}
+
+
+def _wrong_role(device: Device, expires: dt.datetime, roles: tuple[str, ...]) -> str:
+    wanted = " or ".join(f"{'an' if r[:1] in 'aeiou' else 'a'} {r}'s" for r in roles)
+    if device.role == "recorder":
+        return (f"this code enrols {device.label}, a recorder: recorder codes are for tablets, so type or scan it on "
+                f"that tablet's Camp screen (it is not used up and stays good until {expires:%H:%M} UTC); "
+                f"sign in here with {wanted} code or token")
+    return (f"this code enrols {device.label}, {'an' if device.role[:1] in 'aeiou' else 'a'} {device.role}, and "
+            f"cannot be used here (it is not used up); sign in here with {wanted} code or token")
+
+
+def code_from_text(text: str) -> str:
+    """The code from what was typed or pasted: a bare code, or a whole ``baulk-enrol:`` line (its ``code``)."""
+    text = text.strip()
+    if not text.startswith("baulk-enrol:"):
+        return text
+    found = parse_qs(urlsplit(text.removeprefix("baulk-enrol:")).query).get("code")
+    if not found or not found[0].strip():
+        raise EnrolmentRefused("this baulk-enrol: line holds no code; paste the whole line again or type the code")
+    return found[0].strip()
 
 
 def public(device: Device) -> DevicePublic:

@@ -19,12 +19,12 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 
 from schema import db
-from schema.errors import StoreError
+from schema.errors import NotABaulkStore, StoreError, StoreMissing, StoreTooNew
 from schema.records import Device, NumberBlock
 from schema.store import RecordStore
 from schema.tables import metadata
 
-__all__ = ["ServerStore", "hash_token", "make_engine", "migrate"]
+__all__ = ["ServerStore", "check_existing", "hash_token", "make_engine", "migrate"]
 
 MIGRATIONS_DIR = Path(__file__).parent / "migrations"
 DEFAULT_BLOCK_SIZE = 500
@@ -35,8 +35,8 @@ def hash_token(token: str) -> str:
     return hashlib.sha256(token.encode()).hexdigest()
 
 
-def make_engine(url: str) -> sa.Engine:
-    """An engine for a database URL, with Baulk's settings for SQLite or PostgreSQL."""
+def _parse_url(url: str) -> sa.URL:
+    """The URL of a database Baulk can use: a SQLite file or PostgreSQL."""
     try:
         parsed = sa.make_url(url)
     except sa.exc.ArgumentError:
@@ -47,12 +47,20 @@ def make_engine(url: str) -> sa.Engine:
     if parsed.get_backend_name() == "sqlite":
         if not parsed.database or parsed.database == ":memory:":
             raise StoreError("the server needs a SQLite file, not an in-memory database; give sqlite:///path")
-        path = Path(parsed.database)
+        return parsed
+    if parsed.get_backend_name() == "postgresql":
+        return parsed
+    raise StoreError(f"database {parsed.get_backend_name()!r} is not supported; use sqlite or postgresql")
+
+
+def make_engine(url: str) -> sa.Engine:
+    """An engine for a database URL, with Baulk's settings for SQLite or PostgreSQL."""
+    parsed = _parse_url(url)
+    if parsed.get_backend_name() == "sqlite":
+        path = Path(parsed.database)  # type: ignore[arg-type]
         path.parent.mkdir(parents=True, exist_ok=True)
         return db.sqlite_engine(path)
-    if parsed.get_backend_name() == "postgresql":
-        return sa.create_engine(parsed, isolation_level="READ COMMITTED", pool_pre_ping=True)
-    raise StoreError(f"database {parsed.get_backend_name()!r} is not supported; use sqlite or postgresql")
+    return sa.create_engine(parsed, isolation_level="READ COMMITTED", pool_pre_ping=True)
 
 
 def _alembic_config(conn: sa.Connection) -> Config:
@@ -81,6 +89,93 @@ def head_revision() -> str:
     return head
 
 
+def known_revisions() -> set[str]:
+    """Every schema revision this Baulk's migrations know (a store at any of them can be upgraded)."""
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
+    return {script.revision for script in ScriptDirectory.from_config(cfg).walk_revisions()}
+
+
+# what a Baulk store holds from its first revision on: Alembic's table and the device and find tables
+_BAULK_TABLES = frozenset({"alembic_version", "device", "find"})
+_SQLITE_MAGIC = b"SQLite format 3\x00"
+
+
+def check_existing(url: str) -> None:
+    """Refuse, changing nothing, a database that is not a Baulk store yet: a SQLite file that is missing (or whose
+    folder is), a file that is not SQLite or holds no Baulk tables, a PostgreSQL database with no
+    ``alembic_version`` table; a store made by a newer Baulk is refused too. A store of an older Baulk passes (it
+    is upgraded on open)."""
+    parsed = _parse_url(url)
+    if parsed.get_backend_name() == "sqlite":
+        _check_sqlite_file(Path(parsed.database))  # type: ignore[arg-type]
+        return
+    shown = parsed.render_as_string(hide_password=True)
+    engine = sa.create_engine(parsed, pool_pre_ping=True)
+    try:
+        with engine.connect() as conn:
+            tables = set(sa.inspect(conn).get_table_names())
+            revision = MigrationContext.configure(conn).get_current_revision() if "alembic_version" in tables else None
+    except sa.exc.OperationalError as exc:
+        raise StoreError(f"cannot open the server database ({exc.orig}); check the URL and that it is running") from None
+    finally:
+        engine.dispose()
+    if "alembic_version" not in tables:
+        raise NotABaulkStore(
+            f"the PostgreSQL database {shown} is not a Baulk store (it has no alembic_version table); check --db, "
+            f"or create the store with baulk site init SETUP --db {shown} (or baulk serve)")
+    _check_revision(shown, tables, revision)
+
+
+def _check_sqlite_file(path: Path) -> None:
+    where = path.absolute()
+    create = f"create one with baulk site init SETUP --db sqlite:///{where} (or baulk serve)"
+    if not where.parent.is_dir():
+        raise StoreMissing(f"no Baulk store at {where} (the folder {where.parent} does not exist); check the path, "
+                           f"or {create}")
+    if not where.exists():
+        raise StoreMissing(f"no Baulk store at {where}; check the path, or {create}")
+    if not where.is_file():
+        raise StoreMissing(f"no Baulk store at {where} (it is a folder); give the store file inside it, or {create}")
+    with where.open("rb") as fh:
+        head = fh.read(100)
+    if head and not head.startswith(_SQLITE_MAGIC):
+        raise NotABaulkStore(f"{where} is not a Baulk store (it is not a SQLite database); check --db")
+    tables, revision = _sqlite_tables(where, wal=len(head) > 18 and head[18] == 2) if head else (set(), None)
+    if not _BAULK_TABLES <= tables:
+        raise NotABaulkStore(f"{where} is not a Baulk store (it has no Baulk tables); check --db")
+    _check_revision(str(where), tables, revision)
+
+
+def _sqlite_tables(path: Path, *, wal: bool) -> tuple[set[str], str | None]:
+    """The file's table names and Alembic revision, read without writing a byte: read-only, and a WAL file whose
+    log is gone (nobody has it open) is read as immutable so that SQLite makes no -wal or -shm file beside it."""
+    import sqlite3
+    from urllib.parse import quote
+
+    mode = "immutable=1" if wal and not path.with_name(path.name + "-wal").exists() else "mode=ro"
+    try:
+        conn = sqlite3.connect(f"file:{quote(str(path))}?{mode}", uri=True)
+    except sqlite3.Error as exc:
+        raise StoreError(f"cannot read {path} ({exc}); check that this user may read it") from None
+    try:
+        tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        row = conn.execute("SELECT version_num FROM alembic_version").fetchone() if "alembic_version" in tables else None
+    except sqlite3.DatabaseError as exc:
+        raise NotABaulkStore(f"{path} is not a Baulk store (SQLite cannot read it: {exc}); check --db") from None
+    finally:
+        conn.close()
+    return tables, row[0] if row else None
+
+
+def _check_revision(shown: str, tables: set[str], revision: str | None) -> None:
+    if revision is not None and revision not in known_revisions():
+        if not _BAULK_TABLES <= tables:
+            raise NotABaulkStore(f"{shown} is not a Baulk store (it has no Baulk tables); check --db")
+        raise StoreTooNew(f"{shown} was written by a newer Baulk (schema revision {revision}; this Baulk knows up to "
+                          f"{head_revision()}); open it with that Baulk or a newer one")
+
+
 def number_floor(conn: sa.Connection) -> int:
     """The highest find number this store has issued, seen used or imported (``sync_server.seasons``): new
     blocks start above it, so a number is never issued twice, even across seasons."""
@@ -100,8 +195,13 @@ class ServerStore(RecordStore):
         self.url = url
 
     @classmethod
-    def open(cls, url: str, *, upgrade: bool = True) -> "ServerStore":
-        """Open the database at ``url`` and bring it to the newest migration."""
+    def open(cls, url: str, *, upgrade: bool = True, create: bool = True) -> "ServerStore":
+        """Open the database at ``url`` and bring it to the newest migration. With ``create=False`` (every command
+        but ``baulk serve`` and ``baulk site init``) only an existing Baulk store is opened: a missing file, a
+        mistyped folder or another program's database is refused with ``StoreMissing`` / ``NotABaulkStore`` and
+        left exactly as it was."""
+        if not create:
+            check_existing(url)  # before any engine: nothing is made or changed when it refuses
         engine = make_engine(url)
         try:
             if upgrade:
@@ -143,9 +243,12 @@ class ServerStore(RecordStore):
 
     # -- number blocks -------------------------------------------------------------------------------------
     def issue_number_block(
-        self, *, device_id: uuid.UUID, size: int = DEFAULT_BLOCK_SIZE, now: dt.datetime | None = None
+        self, *, device_id: uuid.UUID, size: int | None = None, now: dt.datetime | None = None
     ) -> NumberBlock:
-        """Issue the next block of find numbers to a device; numbers are never reissued."""
+        """Issue the next block of find numbers to a device; numbers are never reissued. The size is the site's
+        ``number_block_size`` (500 before a site is set up) unless given."""
+        if size is None:
+            size = self.block_size()
         if size < 1:
             raise ValueError(f"block size {size} must be at least 1")
         self.get(Device, device_id)  # RecordNotFound names the device
@@ -158,6 +261,13 @@ class ServerStore(RecordStore):
             )
             self.save_versioned(conn, block, new=True)  # the unique constraint on `first` is the safety net
         return block
+
+    def block_size(self) -> int:
+        """How many find numbers a block holds: the site's setting (the first site's, as a store holds one)."""
+        from schema.records import Site
+
+        sites = self.list(Site, order_by="code")
+        return sites[0].number_block_size if sites else DEFAULT_BLOCK_SIZE
 
     def _serialize(self, conn: sa.Connection, what: str) -> None:
         """Make writers of ``what`` take turns until this transaction ends.

@@ -8,6 +8,7 @@ and committed in order and a pulling tablet never skips a version committed late
 from __future__ import annotations
 
 import datetime as dt
+import json
 import time
 from typing import Any
 
@@ -16,6 +17,7 @@ import sqlalchemy as sa
 from schema.errors import BatchClash, RecordNotFound, WrongDevice
 from schema.records import Device, NumberBlock
 from schema.sync import SERVER_OWNED, Version, VersionSet, batch_hash, edit_parents, resolution_parents, version_id
+from schema.sync.versions import needs_manager
 from schema.sync.replica import (
     insert_versions, load_identity, materialize, record_versions, retry_pending, row_to_version, save_identity,
 )
@@ -25,7 +27,7 @@ from schema.tables import metadata
 from .store import ServerStore
 from .tables import push_batch
 
-__all__ = ["apply_push", "batch_hash", "list_conflicts", "pull_page", "resolve_conflict"]
+__all__ = ["apply_push", "batch_hash", "list_conflicts", "pull_page", "refusal", "resolve_conflict"]
 
 MAX_BATCH = 5000
 MAX_PAGE = 2000
@@ -41,7 +43,13 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
 
     A batch already applied is answered from its stored acknowledgement when the hash it names is the one
     applied (nothing is applied either way, so its versions need not be hashed again); a new batch must match
-    its hash before anything is written."""
+    its hash before anything is written.
+
+    The acknowledgement counts what became of every version sent: ``applied`` (new here), ``duplicates`` (held
+    already), ``ignored`` (server-owned records, never taken from a device) and ``refused``: set-up records and
+    fields a device other than a manager may not write (``schema.sync.versions.MANAGER_OWNED`` and
+    ``MANAGER_FIELDS``), each listed with its reason. Refused versions are acknowledged with their batch (the
+    device does not send them again) and never stored."""
     foreign = sorted({str(v.device) for v in versions if v.device != device.id})
     if foreign:
         raise WrongDevice(f"batch {batch} carries versions of device {foreign[0]}, not of {device.label}; "
@@ -55,10 +63,12 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
                     f"batch {batch} of {device.label} was already applied with different content: this tablet was "
                     "probably restored from an old copy. The data manager must re-enrol it as a new device"
                 )
-            return {**done.ack, "replayed": True, "server_time_ms": _now_ms()}
+            return {"refused": [], **done.ack, "replayed": True, "server_time_ms": _now_ms()}  # older acks: none refused
         if batch_hash(versions) != content_hash:
             raise BatchClash(f"batch {batch} does not match its own hash; it was damaged in transfer, send it again")
-        accepted = [v for v in versions if v.record not in SERVER_OWNED]  # server-owned: never taken from tablets
+        taken = [v for v in versions if v.record not in SERVER_OWNED]  # server-owned: never taken from tablets
+        refused = [] if device.role == "manager" else [v for v in taken if needs_manager(v.record, v.field)]
+        accepted = [v for v in taken if not needs_manager(v.record, v.field)] if refused else taken
         top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
         new = insert_versions(conn, accepted, next_log_seq=top + 1, batch=batch)
         stats = materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
@@ -66,7 +76,9 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
         blocks = _top_up(store, conn, device, now)
         ack = {
             "batch": batch, "received": len(versions), "applied": len(new),
-            "duplicates": len(accepted) - len(new), "ignored": len(versions) - len(accepted),
+            "duplicates": len(accepted) - len(new), "ignored": len(versions) - len(taken),
+            "refused": [{"version": v.id, "record": v.record, "field": v.field, "reason": refusal(v, device)}
+                        for v in refused],
             "rows_written": stats["written"],
             "pending_rows": int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one()),
             "conflicts_open": int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one()),
@@ -75,6 +87,22 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
         conn.execute(push_batch.insert().values(device=device.id, batch=batch, content_hash=content_hash, ack=ack,
                                                 received_at=now or dt.datetime.now(dt.timezone.utc)))
     return {**ack, "server_time_ms": _now_ms()}
+
+
+def refusal(version: Version, device: Device) -> str:
+    """Why a device that is not a manager may not write this set-up record or field, and what to do instead."""
+    value = json.dumps(version.value, ensure_ascii=False)
+    value = value if len(value) <= 60 else value[:57] + "..."
+    what = ("A unit's horizon is assigned" if (version.record, version.field) == ("unit", "horizon_id")
+            else f"{_SETUP_NAMES.get(version.record, version.record).capitalize()} records are set up")
+    article = "an" if device.role[:1] in "aeiou" else "a"
+    return (f"{device.label} is {article} {device.role} device and may not set {version.record}.{version.field} of "
+            f"{version.record} {version.record_id} to {value}. {what} only by a manager device or the camp server, "
+            "so this value was not applied; ask the data manager to make the change.")
+
+
+_SETUP_NAMES = {"control_point": "control point", "horizon_assignment": "horizon assignment",
+                "age_determination": "age determination"}
 
 
 def _top_up(store: ServerStore, conn: sa.Connection, device: Device, now: dt.datetime | None) -> list[NumberBlock]:
@@ -88,7 +116,7 @@ def _top_up(store: ServerStore, conn: sa.Connection, device: Device, now: dt.dat
     t = metadata.tables["find"]
     used = conn.execute(sa.select(sa.func.max(t.c.number)).where(t.c.device_id == device.id)).scalar() or 0
     if used >= newest.first + newest.size // 2:
-        return [store.issue_number_block(device_id=device.id, size=newest.size, now=now)]
+        return [store.issue_number_block(device_id=device.id, now=now)]  # the site's block size
     return []
 
 

@@ -221,7 +221,7 @@ def run_validation_job(*, database_url: str | None, out: Path, tablet_data: Site
         from .settings import ServerSettings
 
         url = database_url or ServerSettings().database_url
-        with ServerStore.open(url) as store:
+        with ServerStore.open(url, create=False) as store:  # an existing store only: a typo creates nothing
             report, run = run_validation(store)
             rows = list_issues(store, limit=10**9)
             data = store.site_data()

@@ -19,7 +19,8 @@ from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict, Fie
 
 from .clock import Stamp
 
-__all__ = ["LOCAL_ONLY", "SERVER_OWNED", "SET_FIELDS", "Version", "batch_hash", "version_id"]
+__all__ = ["LOCAL_ONLY", "MANAGER_FIELDS", "MANAGER_OWNED", "SERVER_OWNED", "SET_FIELDS", "Version", "batch_hash",
+           "needs_manager", "version_id"]
 
 # Fields that merge as add/remove sets rather than one value (record name -> field names).
 SET_FIELDS: dict[str, frozenset[str]] = {"find": frozenset({"photo_hashes"})}
@@ -29,6 +30,20 @@ SET_FIELDS: dict[str, frozenset[str]] = {"find": frozenset({"photo_hashes"})}
 # server keeps the token hashes). Records only the server may change: tablets' versions of them are ignored.
 LOCAL_ONLY: frozenset[str] = frozenset({"device"})
 SERVER_OWNED: frozenset[str] = frozenset({"device", "number_block"})
+
+# Set-up records and fields only a manager device (or the camp server itself) writes: the site and its grid, seasons,
+# trenches, control points, horizons and their assignment to units, laboratory dates and camp corrections. A
+# recorder's version of one is refused with a reason in the push answer (DESIGN.md section 2, "Who writes what").
+MANAGER_OWNED: frozenset[str] = frozenset({
+    "site", "season", "trench", "control_point", "horizon", "horizon_assignment", "age_determination", "correction",
+})
+# (record, field) pairs of records recorders write whose field is the manager's alone (a unit's horizon).
+MANAGER_FIELDS: frozenset[tuple[str, str]] = frozenset({("unit", "horizon_id")})
+
+
+def needs_manager(record: str, field: str) -> bool:
+    """Whether a version of ``record.field`` may come only from a manager device or the server itself."""
+    return record in MANAGER_OWNED or (record, field) in MANAGER_FIELDS
 
 
 _CANONICAL = json.JSONEncoder(sort_keys=True, separators=(",", ":"))  # one encoder, reused

@@ -31,12 +31,23 @@ class PushBody(BaseModel):
     versions: list[Version] = Field(max_length=MAX_BATCH)
 
 
+class Refused(BaseModel):
+    """A version the server would not take from this device, and why (the batch is acknowledged all the same)."""
+
+    version: str
+    record: str
+    field: str
+    reason: str = Field(description="a sentence naming the record and field, and who may set it")
+
+
 class PushAck(BaseModel):
     batch: int
-    received: int
+    received: int = Field(description="versions in the batch: applied + duplicates + ignored + refused")
     applied: int
-    duplicates: int
-    ignored: int
+    duplicates: int = Field(description="versions the server held already")
+    ignored: int = Field(description="versions of server-owned records (devices, number blocks), never taken from a device")
+    refused: list[Refused] = Field(
+        default=[], description="versions of set-up records or fields only a manager device or the server may write")
     rows_written: int
     pending_rows: int
     conflicts_open: int

@@ -1,8 +1,10 @@
 """The camp pages for the data manager (and, read-only, the analyst): server-rendered, no front-end build.
 
-Pages: sign in / out; **Today** (devices and their last push, finds of the last 24 hours per trench and unit,
-what waits); **Conflicts** (every open conflict with its competing values, settled by choosing or typing a
-value: a new version, exactly as ``POST /v1/conflicts/resolve``); **Checks** (validation issues filtered by
+Pages: sign in (a device token; or, once, a manager's or analyst's one-time enrolment code, exchanged as
+``POST /v1/enrol`` does, with the new token shown once) / out; **Today** (devices and their last push, finds of
+the last 24 hours per trench and unit, what waits); **Conflicts** (every open conflict with its competing
+values, settled by choosing or typing a value: a new version, exactly as ``POST /v1/conflicts/resolve``);
+**Checks** (validation issues filtered by
 code, severity, trench, unit; accepted with a reason); **Finds** (search; a find's fields and its history of
 versions); **Safety** (every caution the tablets asked about and the answer, by trench, kind and time; possible
 human remains first on Today); **Matrix** (the reduced Harris matrix picture); **Exports** (run one and download the zip). Pages are not part of the OpenAPI
@@ -68,16 +70,45 @@ def sign_in_page(request: Request) -> Response:
 
 @router.post("/sign-in")
 async def sign_in(request: Request) -> Response:
-    token = (await _form(request)).get("token", "").strip()
+    """A device token signs in; a manager's or analyst's one-time enrolment code (or its whole ``baulk-enrol:``
+    line) enrols this browser as that device and signs it in, showing the new token once."""
+    form = await _form(request)
+    if form.get("code", "").strip():
+        return _enrol_browser(request, form["code"])
+    token = form.get("token", "").strip()
     device = request.app.state.store.device_for_token(token) if token else None
     if device is None or device.role not in PAGE_ROLES:
         why = ("a recorder's token cannot open the camp pages; use a manager or analyst device"
                if device is not None else "this token is unknown or its device was revoked")
         return _page(request, "sign_in.html", None, "Sign in", status=401, message=why, error=True)
-    response = RedirectResponse("/camp/", status_code=303)
+    return _with_session(request, RedirectResponse("/camp/", status_code=303), device)
+
+
+def _with_session(request: Request, response: Response, device: Device) -> Response:
+    """The sign-in cookie on ``response``: the same for a token and for an enrolment code."""
     response.set_cookie(COOKIE, make_cookie(request, device), max_age=LIFETIME_S, httponly=True, samesite="strict",
                         secure=request.url.scheme == "https", path="/camp")
     return response
+
+
+def _enrol_browser(request: Request, text: str) -> Response:
+    """Exchange a manager's or analyst's code exactly as ``POST /v1/enrol`` does (same rate limit, same refusals);
+    a recorder's code is refused unspent. The token is in this answer only, never stored or sent again."""
+    from ..devices import code_from_text, exchange_code
+
+    who = request.client.host if request.client else "unknown"
+    if not request.app.state.enrol_limit.allow(who):
+        return _page(request, "sign_in.html", None, "Sign in", status=429, error=True,
+                     message="too many enrolment attempts from this address; wait a minute and try again")
+    store = request.app.state.store
+    try:
+        enrolled = exchange_code(store, code_from_text(text), roles=PAGE_ROLES)
+    except BaulkError as exc:
+        return _page(request, "sign_in.html", None, "Sign in", status=401, message=str(exc), error=True)
+    device = store.get(Device, uuid.UUID(enrolled["device_id"]))
+    response = _page(request, "sign_in.html", None, "Signed in", enrolled=enrolled)
+    response.headers["Cache-Control"] = "no-store"  # the token must not be kept by the browser's cache
+    return _with_session(request, response, device)
 
 
 @router.post("/sign-out")

@@ -145,6 +145,9 @@ def test_device_add_prints_a_code_a_qr_and_writes_a_png_that_reads_back(tmp_path
     from PIL import Image
 
     url = f"sqlite:///{tmp_path / 's.sqlite'}"
+    from sync_server.store import ServerStore
+
+    ServerStore.open(url).close()  # made by baulk serve or baulk site init; device add only opens it
     png = tmp_path / "enrol.png"
     out = CliRunner().invoke(cli, ["device", "add", "--role", "recorder", "--label", "TAB-8", "--db", url,
                                    "--server", "http://192.168.8.10:8765", "--png", str(png)])
