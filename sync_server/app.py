@@ -24,6 +24,7 @@ from .devices import EnrolRateLimit
 from .limits import BodyLimit
 from .tls import cert_fingerprint
 from .validation import Revalidator
+from .web.curation_pages import ROUTE_ROLES as CURATION_ROLES
 
 __all__ = ["ROUTE_ROLES", "create_app"]
 
@@ -58,6 +59,7 @@ ROUTE_ROLES: dict[str, str] = {
     "GET /camp/matrix.png": "page: manager, analyst",
     "GET /camp/exports": "page: manager, analyst",
     "GET /camp/exports/download": "page: manager, analyst",
+    **CURATION_ROLES,  # Horizons, Dates, corrections, Site: sync_server/web/curation_pages.py
 }
 
 _STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403,
@@ -155,9 +157,10 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
 
     for module in (issues, sync, devices, exports):
         app.include_router(module.router, responses=ERROR_RESPONSES)
-    from .web import pages
+    from .web import curation_pages, pages
 
     app.include_router(pages.router)
+    app.include_router(curation_pages.router)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     return app
 

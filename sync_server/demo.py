@@ -25,7 +25,7 @@ import httpx
 
 from mobile.recording import Reading, record_gnss_find, record_plotted_find, setup_by_backsight, setup_by_resection
 from mobile.sync import SyncClient
-from schema.demo_site import SEASON_START, DemoSite, TabletPlan, build_site, plan_finds
+from schema.demo_site import SEASON_START, UNITS, DemoSite, TabletPlan, build_site, plan_finds
 from schema.errors import BaulkError, FixNotAccepted
 from schema.records import Device, Find, GnssFix, Relation, SafetyCheck, Shot
 from schema.strata import validate
@@ -59,24 +59,16 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
         raise BaulkError(f"{out} already holds a demo; choose a new folder or delete {out / 'server.sqlite'} first")
     (out / "tablets").mkdir(parents=True, exist_ok=True)
     started = time.perf_counter()
-    demo = build_site()
-
-    progress("camp server: creating the store and the site set-up")
-    server = ServerStore.open(f"sqlite:///{out / 'server.sqlite'}")
-    with server.atomic():
-        for record in demo.setup_records():
-            server.add(record)
-
-    progress("camp server: fitting the site grid to UTM 36S from the control points (pyproj)")
-    survey_summary = _fit_site_grid(server, demo)
-    summary: dict[str, Any] = {"site": demo.site.code, "version": __version__, "tablets": {}, "survey": survey_summary}
+    server, demo, survey_summary, curation = _set_up_camp(out, progress)
+    summary: dict[str, Any] = {"site": demo.site.code, "version": __version__, "tablets": {}, "survey": survey_summary,
+                               "curation": curation}
     tablet_counts: dict[str, dict[str, Any]] = {}
     with serve_in_thread(create_app(store=server)) as url:
         progress(f"camp server: listening on {url} (loopback); tablets sync over real HTTP")
         tablets = {}
         for label, count, seed in TABLETS:
             device, token = server.add_device(label=label, role="recorder")
-            block = server.issue_number_block(device_id=device.id, size=500)
+            block = server.issue_number_block(device_id=device.id)  # the site's number_block_size
             progress(f"{label}: enrolled, numbers {block.first}-{block.last}; first sync brings the site set-up")
             tablet = TabletStore.open(out / "tablets" / f"{label}.sqlite")
             tablet.set_identity(device=device)
@@ -106,6 +98,7 @@ def run_demo(out: Path, *, progress: Progress = lambda _msg: None) -> DemoResult
     report, run = run_validation(server)
     summary["server_validation"] = {"finds_checked": report.finds_checked, "by_code": report.by_code(),
                                     "new": run.new}
+    summary["files"] = _analyst_files(server, report, out, progress)
     summary["tablets"] = tablet_counts
     summary["server"] = {"counts": server.counts(), "devices": [d.label for d in server.list(Device)]}
     summary["finds"] = _tables(server, demo)
@@ -186,18 +179,68 @@ def _sync_rounds(server: ServerStore, tablets: dict[str, Any], demo: DemoSite, u
     }
 
 
-def _fit_site_grid(server: ServerStore, demo: DemoSite) -> dict[str, Any]:
-    """Fit the site grid from the control points (both systems known) and the PROJ-free tablet polynomial."""
-    from schema.demo_site import fit_demo_grid
+def _set_up_camp(out: Path, progress: Progress) -> tuple[ServerStore, DemoSite, dict[str, Any], dict[str, Any]]:
+    """The data manager's public path, as README's 'Your own site' walks it: a set-up file checked and written by
+    the code behind ``baulk site init``; the units dug so far; horizons defined and units assigned to them with a
+    reason (``baulk horizon``); laboratory dates imported from a CSV (``baulk date import``)."""
+    from schema.demo_site import control_csv, dates_csv, setup_toml
+    from schema.records import AgeDetermination, Unit
+    from schema.setup_file import read_setup
 
-    site, fit, poly = fit_demo_grid(demo)
-    demo.site = server.put(site)
-    return {
+    from .curation import add_horizon, assign_units, import_dates_csv
+    from .site_setup import init_site
+
+    folder = out / "setup"
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "site.toml").write_text(setup_toml())
+    (folder / "control.csv").write_text(control_csv())
+    (folder / "dates.csv").write_text(dates_csv())
+    progress(f"camp server: baulk site init {folder / 'site.toml'} (checked whole, grid fitted to UTM 36S with pyproj)")
+    plan = read_setup(folder / "site.toml")
+    server = ServerStore.open(f"sqlite:///{out / 'server.sqlite'}", create=True)
+    init_site(server, plan)
+    demo = build_site(plan, assign_horizons=False)
+    with server.atomic():  # the units opened, related and levelled so far this season
+        for record in demo.recorded_records():
+            server.add(record)
+    progress("camp server: horizons defined and units assigned with a reason; laboratory dates imported from dates.csv")
+    for h in sorted(demo.horizons.values(), key=lambda h: h.order):
+        demo.horizons[h.code] = add_horizon(server, code=h.code, label=h.label, order=h.order)
+    assigned = 0
+    for code in demo.horizons:
+        units = [u for u, _t, _k, hz, *_ in UNITS if hz == code]
+        assign_units(server, horizon=code, units=units, by="DM",
+                     reason="section drawings and the tuff VL-1 marker, first season meeting")
+        assigned += len(units)
+    imported = import_dates_csv(server, folder / "dates.csv")
+    demo.units = {u.code: u for u in server.list(Unit, site_id=demo.site.id)}
+    demo.ages = server.list(AgeDetermination, site_id=demo.site.id)
+    fit, poly = plan.grid_fit, plan.polynomial
+    survey = {
         "grid_rotation_deg": round(fit.rotation_deg, 6), "grid_scale": round(fit.scale, 8),
         "grid_max_residual_m": round(max(float(r["d"]) for r in fit.residuals), 4),
-        "vertical_offset_m": fit.vertical_offset_m, "polynomial_max_error_m": poly.max_error_m,
+        "vertical_offset_m": plan.site.vertical_offset_m, "polynomial_max_error_m": poly.max_error_m,
         "polynomial_half_extent_m": poly.half_extent_m, "setups": {},
     }
+    curation = {"setup_file": "setup/site.toml", "horizons": list(demo.horizons), "units_assigned": assigned,
+                "dates_imported": len(imported.added), "dates_skipped": len(imported.skipped),
+                "dates_file": "setup/dates.csv"}
+    return server, demo, survey, curation
+
+
+def _analyst_files(server: ServerStore, report: Any, out: Path, progress: Progress) -> dict[str, Any]:
+    """What ``baulk validate --out DIR/checks`` and ``baulk export --out DIR/export`` write."""
+    from .exports import run_export
+    from .validation import list_issues, write_brackets, write_report
+
+    checks = out / "checks"
+    checks.mkdir(exist_ok=True)
+    write_report(list_issues(server, limit=10**9), checks)
+    write_brackets(report, server.site_data(), checks)
+    progress("analyst: export to export/ (per-horizon tables, GeoPackage, Darwin Core, data package)")
+    m = run_export(server, out / "export")
+    return {"checks": sorted(p.name for p in checks.iterdir()), "export": sorted(p.name for p in (out / "export").iterdir()),
+            "export_counts": m["counts"]}
 
 
 def _reading(station: Any, e: float, n: float, z: float, th: float, at: dt.datetime, rng: Any) -> Reading:
@@ -396,6 +439,18 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
             f"{c.get('sample', 0)} | {r.get('sieved', 0)} | {t['integrity']} |"
         )
     sv = s["survey"]
+    cu = s["curation"]
+    lines += [
+        "",
+        "## Set-up at camp",
+        "",
+        f"The data manager wrote the set-up file `{cu['setup_file']}` (site, CRS, time zone, country, tolerances, "
+        "find-number block size, first season, trenches; control points in `control.csv`) and ran the code behind "
+        "`baulk site init`: the whole file was checked first, then written in one transaction as versions of the "
+        f"camp server's own device. Horizons {', '.join(cu['horizons'])} were defined and {cu['units_assigned']} units "
+        f"assigned to them with a reason (`baulk horizon assign`); {cu['dates_imported']} laboratory dates were "
+        f"imported from `{Path(cu['dates_file']).name}` (`baulk date import`). Each tablet's first sync brought it all.",
+    ]
     lines += [
         "",
         "## Survey",
@@ -453,5 +508,13 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
     lines += ["", "## Bad input is refused with the fix, and nothing is written", ""]
     for r in s.get("refused", []):
         lines.append(f"- **{r['input']}** (nothing written: {'yes' if r['nothing_written'] else 'NO'}): {r['message']}")
+    fl = s.get("files", {})
+    if fl:
+        c = fl["export_counts"]
+        lines += ["", "## Files for the analyst", "",
+                  f"`checks/`: {', '.join(fl['checks'])} (what `baulk validate --out checks` writes).",
+                  f"`export/`: {', '.join(fl['export'])} (what `baulk export --out export` writes): "
+                  f"{c['finds_included']} finds counted, {c['finds_excluded']} left out with their reasons in "
+                  "excluded.csv."]
     lines += ["", f"Finished in {s['seconds']} s.", ""]
     (out / "summary.md").write_text("\n".join(lines))

@@ -38,7 +38,7 @@ def test_every_command_has_help(name: str, command: click.Command) -> None:
 
 def test_demo_writes_a_summary(demo_out: Path) -> None:
     out = demo_out
-    assert "[demo] camp server: creating the store and the site set-up" in (out / "cli-output.txt").read_text()
+    assert "[demo] camp server: baulk site init " in (out / "cli-output.txt").read_text()
     summary = json.loads((out / "summary.json").read_text())
     assert set(summary["tablets"]) == {"TAB-1", "TAB-2", "TAB-3"}
     assert sum(t["finds"] for t in summary["tablets"].values()) == 370
@@ -66,6 +66,27 @@ def test_demo_writes_a_summary(demo_out: Path) -> None:
     # safety: each tablet's day-start heat and laser acknowledgements reached the camp
     assert summary["safety"] == {"checks": 6, "by_kind": {"heat": 3, "laser": 3}}
     assert "the camp holds 6 safety checks (heat 3, laser 3)" in (out / "summary.md").read_text()
+
+
+def test_the_demo_takes_the_public_path_and_ends_with_the_analysts_files(demo_out: Path) -> None:
+    """The demo sets up from its own set-up file, horizons and dates as a data manager would, and leaves the
+    export and the checks where README's quick start says; the data package validates (frictionless)."""
+    from frictionless import Package  # the Frictionless Data reference library
+
+    from schema.setup_file import read_setup
+
+    summary = json.loads((demo_out / "summary.json").read_text())
+    plan = read_setup(demo_out / "setup" / "site.toml")  # the file the demo wrote is a valid set-up file
+    assert (plan.site.code, plan.site.crs_epsg, [t.code for t in plan.trenches]) == ("VLM", 32736, ["TR1", "TR2", "TR3"])
+    assert summary["curation"] == {"setup_file": "setup/site.toml", "horizons": ["H1", "H2", "H3", "H4"],
+                                   "units_assigned": 11, "dates_imported": 2, "dates_skipped": 0,
+                                   "dates_file": "setup/dates.csv"}
+    assert {"H1", "H2", "H3", "H4"} == set(summary["age_brackets"])
+    assert sorted(p.name for p in (demo_out / "checks").iterdir()) == ["age_brackets.json", "issues.csv", "issues.json"]
+    report = Package(str(demo_out / "export" / "datapackage.json")).validate()
+    assert report.valid, report.flatten(["rowNumber", "fieldName", "type", "note"])[:5]
+    md = (demo_out / "summary.md").read_text()
+    assert "ran the code behind `baulk site init`" in md and "`export/`: counts_by_horizon.csv" in md
 
 
 def test_demo_refuses_to_overwrite(demo_out: Path) -> None:
