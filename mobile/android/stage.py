@@ -12,7 +12,8 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parents[1]
-SKIP = shutil.ignore_patterns("__pycache__", "*.pyc", "android", "benchmarks.py")
+# the site set-up file is read on the camp server only (it needs PROJ and pycountry); tablets get the set-up by sync
+SKIP = shutil.ignore_patterns("__pycache__", "*.pyc", "android", "benchmarks.py", "setup_file.py")
 
 
 def stage(out: Path = HERE / "staging") -> Path:
