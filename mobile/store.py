@@ -7,15 +7,20 @@ is brought up to date without losing a row).
 
 from __future__ import annotations
 
+import contextlib
+import shutil
+import sqlite3
+import tempfile
 import uuid
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
+from urllib.parse import quote
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from schema import db
-from schema.errors import DuplicateRecord, FieldProblem, NoNumbersLeft, RecordInvalid, StoreError
+from schema.errors import DuplicateRecord, FieldProblem, NoNumbersLeft, NotABaulkStore, RecordInvalid, StoreError
 from schema.records import REGISTRY, Device, Find, NumberBlock, Sample
 from schema.store import RecordStore
 from schema.tables import metadata
@@ -23,7 +28,7 @@ from schema.validation import check
 
 from . import migrations
 
-__all__ = ["TABLET_PRAGMAS", "TabletStore"]
+__all__ = ["TABLET_PRAGMAS", "TabletStore", "check_tablet_file", "inspect_file"]
 
 # SQLite copies the write-ahead log back into the file every 1000 pages by default, inside whichever save
 # crosses the mark: with a season of finds that is one save in forty taking ten times as long. The tablet raises
@@ -55,6 +60,7 @@ class TabletStore(RecordStore):
             path.parent.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise StoreError(f"cannot create the folder for the tablet store {path}: {exc.strerror}") from None
+        _refuse_other_files(path)
         store = cls(path, db.sqlite_engine(path, pragmas=TABLET_PRAGMAS))
         if upgrade:
             with store.atomic() as conn:
@@ -235,21 +241,120 @@ class TabletStore(RecordStore):
             return {name: conn.exec_driver_sql(f"PRAGMA {name}").scalar() for name, _ in db.SQLITE_PRAGMAS}
 
 
-def inspect_file(path: Path) -> dict[str, Any]:
-    """A read-only report on a tablet file: integrity, applied and pending upgrade steps, record counts."""
-    engine = db.sqlite_engine(path)
+_SQLITE_MAGIC = b"SQLite format 3\x00"
+_TABLET_TABLE = "baulk_migration"  # every tablet file has it from its first upgrade step on
+
+
+def _not_a_tablet_file(path: Path, tables: set[str]) -> NotABaulkStore:
+    if "alembic_version" in tables:
+        return NotABaulkStore(f"{path} is not a tablet file: it is a camp server store; to check it, use "
+                              f"baulk validate --db sqlite:///{path.absolute()} instead")
+    return NotABaulkStore(f"{path} is not a tablet file (it is a SQLite database without Baulk's tablet tables); "
+                          "check the path and give the tablet's own .sqlite file")
+
+
+def _not_sqlite(path: Path) -> NotABaulkStore | None:
+    """The refusal for a file that is not a SQLite database at all (empty files are for the caller to judge)."""
+    with path.open("rb") as fh:
+        head = fh.read(len(_SQLITE_MAGIC))
+    if head and head != _SQLITE_MAGIC:
+        return NotABaulkStore(f"{path} is not a tablet file (it is not a SQLite database); check the path and give "
+                              "the tablet's own .sqlite file")
+    return None
+
+
+def _refuse_other_files(path: Path) -> None:
+    """Refuse, before anything is written, an existing file that is plainly not a tablet file (another program's,
+    or a camp server store), so that opening it never adds tablet tables to it; a new or empty file is a new
+    tablet file. The look is read-only and ignores the write-ahead log, so a doubt (a file being written, a damaged
+    one) is left to the open itself."""
+    if not path.is_file() or path.stat().st_size == 0:
+        return
+    if (bad := _not_sqlite(path)) is not None:
+        raise bad
     try:
-        with engine.connect().execution_options(baulk_read=True) as conn:
-            integrity = str(conn.exec_driver_sql("PRAGMA integrity_check").scalar())
-            done = migrations.applied(conn)
-            todo = migrations.pending(conn)
-            tables = {r[0] for r in conn.exec_driver_sql("SELECT name FROM sqlite_master WHERE type='table'")}
-            counts = {
-                name: int(conn.exec_driver_sql(f'SELECT count(*) FROM "{name}"').scalar_one())
-                for name in db.record_names() if name in tables
-            }
-    except sa.exc.DatabaseError as exc:
-        raise StoreError(f"{path} is not a readable tablet file ({exc.orig}); keep it and ask the data manager") from None
-    finally:
-        engine.dispose()
-    return {"integrity": integrity, "applied": done, "pending": todo, "counts": counts}
+        conn = sqlite3.connect(f"file:{quote(str(path.absolute()))}?mode=ro&immutable=1", uri=True)
+        try:
+            tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        finally:
+            conn.close()
+    except sqlite3.Error:
+        return
+    if tables and _TABLET_TABLE not in tables:
+        raise _not_a_tablet_file(path, tables)
+
+
+@contextlib.contextmanager
+def _read_only(path: Path) -> Iterator[sqlite3.Connection]:
+    """A connection that reads ``path`` as SQLite would and can neither change it nor make a file beside it.
+
+    No write-ahead log beside it: the file is opened read-only and immutable (SQLite takes no lock and writes
+    nothing). A log with its shared-memory index (the app has the file open): read-only, through SQLite's own
+    reader protocol. A log left without its index (nobody has it open): the file and its log are read from a
+    temporary copy, since SQLite would otherwise make the index beside the file.
+    """
+    wal, shm = (path.with_name(path.name + s) for s in ("-wal", "-shm"))
+    with contextlib.ExitStack() as stack:
+        target, options = path.absolute(), "mode=ro&immutable=1"
+        if wal.exists():
+            options = "mode=ro"
+            if not shm.exists():
+                folder = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="baulk-inspect-")))
+                target = folder / path.name
+                shutil.copyfile(path, target)
+                shutil.copyfile(wal, target.with_name(target.name + "-wal"))
+        conn = sqlite3.connect(f"file:{quote(str(target))}?{options}", uri=True)
+        stack.callback(conn.close)
+        yield conn
+
+
+def check_tablet_file(path: Path | str) -> None:
+    """Refuse, reading only (see ``_read_only``), anything but a tablet file: an empty file, one that is not SQLite,
+    a camp server store, another program's database (``NotABaulkStore``), or a damaged one (``StoreError``); each
+    in one sentence naming the file."""
+    path = Path(path)
+    if path.stat().st_size == 0:
+        raise NotABaulkStore(f"{path} is not a tablet file (it is empty); check the path and give the tablet's own "
+                             ".sqlite file")
+    if (bad := _not_sqlite(path)) is not None:
+        raise bad
+    with _reading(path) as conn:
+        tables = {r[0] for r in conn.exec_driver_sql("SELECT name FROM sqlite_master WHERE type='table'")}
+    if _TABLET_TABLE not in tables:
+        raise _not_a_tablet_file(path, tables)
+
+
+@contextlib.contextmanager
+def _reading(path: Path) -> Iterator[Connection]:
+    """A read-only SQLAlchemy connection on ``path`` (``_read_only``); SQLite's complaints become ``StoreError``."""
+    try:
+        with _read_only(path) as raw:
+            engine = sa.create_engine("sqlite://", creator=lambda: raw, poolclass=sa.pool.StaticPool)
+            try:
+                with engine.connect() as conn:
+                    yield conn
+            finally:
+                engine.dispose(close=False)
+    except (sa.exc.DatabaseError, sqlite3.DatabaseError) as exc:
+        reason = getattr(exc, "orig", None) or exc
+        raise StoreError(f"{path} is not a readable tablet file ({reason}); keep it and ask the data manager") from None
+
+
+def inspect_file(path: Path | str) -> dict[str, Any]:
+    """A report on a tablet file that never writes (see ``_read_only``): integrity, applied and pending upgrade
+    steps, record counts. Anything but a tablet file is refused first (``check_tablet_file``)."""
+    path = Path(path)
+    check_tablet_file(path)
+    with _reading(path) as conn:
+        return _report(conn)
+
+
+def _report(conn: Connection) -> dict[str, Any]:
+    tables = {r[0] for r in conn.exec_driver_sql("SELECT name FROM sqlite_master WHERE type='table'")}
+    integrity = "; ".join(str(r[0]) for r in conn.exec_driver_sql("PRAGMA integrity_check"))
+    counts = {
+        name: int(conn.exec_driver_sql(f'SELECT count(*) FROM "{name}"').scalar_one())
+        for name in db.record_names() if name in tables
+    }
+    return {"integrity": integrity, "applied": migrations.applied(conn), "pending": migrations.pending(conn),
+            "counts": counts}

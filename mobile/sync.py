@@ -18,6 +18,7 @@ import sqlalchemy as sa
 
 from schema.errors import SyncError
 from schema.sync import Version, batch_hash
+from schema.sync.versions import check_version_ids
 from schema.sync.replica import insert_versions, load_identity, materialize, retry_pending, state_get, state_set
 from schema.sync.tables import field_version
 
@@ -114,6 +115,9 @@ class SyncClient:
                 cursor = int(state_get(conn, "cursor", "0") or 0)
             page = self._call("GET", "/v1/sync/pull", params={"after": cursor, "limit": self.page_size})
             versions = [Version.model_validate(v, strict=False) for v in page["versions"]]
+            check_version_ids(versions, where=f"the camp server's page of changes after {cursor}", fix=(
+                "A version is named by the device that made it, so the camp server holds a version it should have "
+                "refused; update Baulk on the camp server, then sync again."))
             with self.store.atomic() as conn:
                 ident = load_identity(conn)
                 for v in versions:

@@ -18,7 +18,9 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      +-- SyncError              a push or a bundle that cannot be applied as sent
      |    +-- BatchClash        the same (device, batch) with different content: a restored tablet
      |    +-- WrongDevice       versions that claim another device than the one authenticated
+     |    |    +-- VersionIdMismatch  a version whose id is not ``<its device>:<its sequence>``
      |    +-- BundleInvalid     a bundle file that is corrupt, truncated or tampered with
+     +-- NumberTooFar           a find number or number floor far above the issued blocks, not confirmed
      +-- EnrolmentRefused       an enrolment code that is unknown, used already or expired
      +-- CautionUnanswered      a caution (possible human remains) that must be answered before the save
      +-- CurationError          a camp-side curation that cannot be made as asked (nothing is written)
@@ -32,6 +34,7 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
           +-- WeakGeometry        control points duplicated, coincident or on one line
           +-- ResectionRejected   a setup whose residuals exceed the tolerance
           +-- UnknownCRS          an EPSG code PROJ does not know
+          +-- UnusableCRS         an EPSG code that cannot be a site's CRS (unknown, geographic, geocentric)
           +-- ProjUnavailable     a CRS operation on a build without PROJ and no fitted fallback
           +-- FixNotAccepted      a GNSS fix not good enough for a piece-plot (and no override given)
           +-- InstrumentLineInvalid  a line from an instrument that cannot be read (checksum, field, range)
@@ -60,6 +63,7 @@ __all__ = [
     "NotABaulkStore",
     "NothingChanged",
     "NumberOutsideBlock",
+    "NumberTooFar",
     "ObservationInvalid",
     "ProjUnavailable",
     "ReasonMissing",
@@ -73,7 +77,9 @@ __all__ = [
     "SurveyError",
     "SyncError",
     "UnknownCRS",
+    "UnusableCRS",
     "UnknownField",
+    "VersionIdMismatch",
     "WeakGeometry",
     "WrongDevice",
     "WrongSite",
@@ -170,6 +176,10 @@ class UnknownCRS(SurveyError):
     """An EPSG code that PROJ does not know."""
 
 
+class UnusableCRS(SurveyError):
+    """An EPSG code that cannot be a site's CRS: unknown to PROJ, or geographic or geocentric, not projected."""
+
+
 class ProjUnavailable(SurveyError):
     """PROJ (pyproj) is missing and no fitted fallback covers the request."""
 
@@ -190,8 +200,28 @@ class WrongDevice(SyncError):
     """Versions claiming a device other than the authenticated one."""
 
 
+class VersionIdMismatch(WrongDevice):
+    """A version whose id is not ``<its device>:<its sequence>``: it would take another version's place."""
+
+
 class BundleInvalid(SyncError):
     """A bundle that fails its format or hash checks; nothing of it was applied."""
+
+
+class NumberTooFar(BaulkError):
+    """A find number or number floor far above every block issued so far, not confirmed as meant."""
+
+    def __init__(self, what: str, number: int, highest: str, block_size: int, fix: str,
+                 confirm: str = "confirm_far=True"):
+        self.parts = (what, number, highest, block_size, fix)
+        self.number = number
+        super().__init__(
+            f"{what}: that is more than 10 blocks of {block_size} numbers above {highest}, and every block issued "
+            f"after it would start above {number}. {fix}, or confirm the far number on purpose ({confirm}).")
+
+    def confirm_with(self, confirm: str) -> "NumberTooFar":
+        """The same refusal, naming how this caller confirms (a flag, a checkbox, a request field)."""
+        return NumberTooFar(*self.parts, confirm=confirm)
 
 
 class EnrolmentRefused(BaulkError):

@@ -15,6 +15,7 @@ from pydantic import AfterValidator, AwareDatetime, Field, StringConstraints
 from .munsell import MunsellError, parse_munsell
 
 __all__ = [
+    "MAX_JSON_INT",
     "Code",
     "Elevation",
     "Easting",
@@ -29,6 +30,11 @@ __all__ = [
     "Timestamp",
     "new_id",
 ]
+
+
+# The largest whole number every JSON reader keeps exactly (2^53 - 1): the bound on find numbers, number floors
+# and every other integer that travels between Baulk replicas.
+MAX_JSON_INT = 2**53 - 1
 
 
 @dataclass(frozen=True)

@@ -77,7 +77,9 @@ class RecordStore:
 
     def save_versioned(self, conn: Connection, record: Record, *, new: bool) -> None:
         """Write a record's visible row and, in the same transaction, the field versions of the change."""
-        from .sync.replica import insert_versions, load_identity, materialize, save_identity, versions_for_edit
+        from .sync.replica import (
+            insert_versions, load_identity, materialize, retry_waiting, save_identity, versions_for_edit,
+        )
 
         (db.insert if new else db.update)(conn, record)  # friendly errors for a local edit
         from .sync.versions import LOCAL_ONLY
@@ -91,6 +93,8 @@ class RecordStore:
             save_identity(conn, ident)
         if not new:  # a concurrent value from elsewhere may still win the field
             materialize(conn, [(record.record_name, getattr(record, "id"))])
+        else:  # a synced row may be waiting for this one (its parent)
+            retry_waiting(conn, [(record.record_name, getattr(record, "id"))])
 
     def default_device(self) -> "uuid.UUID | None":
         """The device id this store's versions carry when none is recorded yet (None: a fresh random id)."""

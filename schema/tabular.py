@@ -7,29 +7,44 @@ import csv
 import io
 import json
 import math
+import re
 from pathlib import Path
 from typing import Any
 
 from .errors import InputFileInvalid
 
-__all__ = ["read_csv", "read_json"]
+__all__ = ["json_key_lines", "read_csv", "read_json", "read_text"]
+
+# What each kind of input file is, and how to get a good one again, for a file that is not UTF-8 text.
+_NOT_TEXT = {
+    "CSV": "not a UTF-8 text file; export it again as CSV (UTF-8)",
+    "JSON": "not a JSON text file (it is binary, not UTF-8 text); save it again as JSON text (UTF-8)",
+    "NMEA": "not a text file of NMEA sentences (it is binary); copy the receiver's log again as plain text",
+}
 
 
-def _text(path: Path) -> str:
+def read_text(path: Path, *, kind: str = "CSV") -> str:
+    """The text of a small input file of ``kind`` (CSV, JSON or NMEA); a binary file is refused as not text."""
     try:
-        return Path(path).read_text(encoding="utf-8-sig")
+        text = Path(path).read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputFileInvalid(f"{path}: no such file; check the path") from None
     except UnicodeDecodeError:
-        raise InputFileInvalid(f"{path}: not a UTF-8 text file; export it again as CSV (UTF-8)") from None
+        raise InputFileInvalid(f"{path}: {_NOT_TEXT[kind]}") from None
+    if "\x00" in text:  # valid UTF-8, but no text file holds NUL characters
+        raise InputFileInvalid(f"{path}: {_NOT_TEXT[kind]}")
+    return text
 
 
 def read_csv(
-    path: Path, *, required: tuple[str, ...], numeric: tuple[str, ...] = (), optional: dict[str, Any] | None = None
+    path: Path, *, required: tuple[str, ...], numeric: tuple[str, ...] = (), optional: dict[str, Any] | None = None,
+    unique: tuple[str, ...] = (),
 ) -> list[dict[str, Any]]:
-    """Rows of a CSV with a header; ``numeric`` columns become floats, ``optional`` ones get their defaults."""
+    """Rows of a CSV with a header; ``numeric`` columns become finite floats, ``optional`` ones get their defaults
+    (a default of ``None`` stays ``None``), and a value repeated in a ``unique`` column is refused with both lines."""
     optional = optional or {}
-    reader = csv.DictReader(io.StringIO(_text(path)))
+    seen: dict[str, dict[str, int]] = {col: {} for col in unique}
+    reader = csv.DictReader(io.StringIO(read_text(path)))
     header = [h.strip() for h in reader.fieldnames or []]
     missing = [c for c in required if c not in header]
     if missing:
@@ -57,6 +72,11 @@ def read_csv(
             if not math.isfinite(value):
                 raise InputFileInvalid(f"{path} line {line}: {col} {row[col]!r} is not a finite number")
             row[col] = value
+        for col in unique:
+            first = seen[col].setdefault(row.get(col, ""), line)
+            if first != line:
+                raise InputFileInvalid(f"{path} line {line}: {col} {row.get(col, '')!r} is already used on line {first}; "
+                                       f"each row needs its own {col}: rename or remove one of them")
         row["_line"] = line
         rows.append(row)
     if not rows:
@@ -65,7 +85,28 @@ def read_csv(
 
 
 def read_json(path: Path) -> Any:
+    """The value of a small JSON file (``NaN`` and ``Infinity`` are read as Python reads them: check numbers)."""
+    return _loads(path, read_text(path, kind="JSON"))
+
+
+def _loads(path: Path, text: str) -> Any:
     try:
-        return json.loads(_text(path))
+        return json.loads(text)
     except json.JSONDecodeError as exc:
         raise InputFileInvalid(f"{path} line {exc.lineno}: not valid JSON ({exc.msg})") from None
+    except RecursionError:
+        raise InputFileInvalid(f"{path}: not a JSON file Baulk can read (nested too deeply); save it again as one "
+                               "flat JSON object") from None
+
+
+def json_key_lines(path: Path) -> tuple[Any, dict[str, int]]:
+    """A JSON file's value and, when it is an object, the line of each of its keys (for messages)."""
+    text = read_text(path, kind="JSON")
+    value = _loads(path, text)
+    lines: dict[str, int] = {}
+    if isinstance(value, dict):
+        for key in value:
+            found = re.search(r'"%s"\s*:' % re.escape(json.dumps(key)[1:-1]), text)
+            if found:
+                lines[key] = text.count("\n", 0, found.start()) + 1
+    return value, lines

@@ -14,7 +14,7 @@ from pydantic.fields import FieldInfo
 
 from .errors import FieldProblem, RecordInvalid
 
-__all__ = ["FieldError", "check", "problems"]
+__all__ = ["FieldError", "check", "field_problem", "problems"]
 
 M = TypeVar("M", bound=BaseModel)
 
@@ -88,6 +88,44 @@ def problems(model: type[BaseModel], exc: ValidationError) -> list[FieldProblem]
             continue
         out.append(FieldProblem(field, _describe(err), _fix_for(model, err, top)))
     return out
+
+
+def field_problem(model: type[BaseModel], field: str, exc: Exception) -> FieldProblem:
+    """The first problem of one field's value validated on its own (e.g. a synced version's value), named as that
+    field, with the value shown short (a 5,000-character note is not quoted whole)."""
+    errors = exc.errors() if isinstance(exc, ValidationError) else []
+    if not errors:
+        return FieldProblem(field, str(exc).splitlines()[0], _fix_for(model, {"type": "value_error"}, field))
+    err = errors[0]
+    cause = (err.get("ctx") or {}).get("error")
+    if isinstance(cause, FieldError):
+        return FieldProblem(field, cause.message, cause.fix)
+    msg = err["msg"]
+    return FieldProblem(field, f"{msg[0].lower()}{msg[1:]} (got {_short(err.get('input'))})",
+                        _value_fix(model, err, field))
+
+
+def _value_fix(model: type[BaseModel], err: Any, field: str) -> str:
+    ctx = err.get("ctx") or {}
+    if err["type"] == "string_too_long":
+        return f"shorten it to at most {ctx['max_length']} characters"
+    if err["type"].startswith("uuid"):
+        name = field.removesuffix("_id").replace("_", " ")
+        return f"choose the {name} again (the value must be the id of a {name})"
+    if "le" in ctx or "ge" in ctx:
+        hint = _field_hint(model, field)
+        bounds = " and ".join(x for x in (f"at least {ctx['ge']}" if "ge" in ctx else "",
+                                          f"at most {ctx['le']}" if "le" in ctx else "") if x)
+        return f"give {hint}, {bounds}"
+    return _fix_for(model, err, field)
+
+
+def _short(value: Any, limit: int = 60) -> str:
+    shown = repr(value)
+    if len(shown) <= limit:
+        return shown
+    size = f", {len(value)} characters" if isinstance(value, str) else ""
+    return f"{shown[:limit - 3]}...{size}"
 
 
 def check(model: type[M], data: Any, *, context: dict[str, Any] | None = None, record: str | None = None) -> M:

@@ -15,7 +15,8 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from schema import SCHEMA_VERSION, __version__
 from schema.errors import (
-    BatchClash, BaulkError, DuplicateRecord, EnrolmentRefused, RecordInvalid, RecordNotFound, WrongDevice,
+    BatchClash, BaulkError, DuplicateRecord, EnrolmentRefused, NumberTooFar, RecordInvalid, RecordNotFound,
+    VersionIdMismatch, WrongDevice,
 )
 
 from .settings import ServerSettings
@@ -37,6 +38,7 @@ ROUTE_ROLES: dict[str, str] = {
     "GET /v1/sync/pull": "recorder, manager, analyst",
     "GET /v1/conflicts": "manager",
     "POST /v1/conflicts/resolve": "manager",
+    "GET /v1/pending": "manager",
     "POST /v1/enrol": "public (a one-time code; rate-limited per address)",
     "GET /v1/devices": "manager",
     "POST /v1/devices": "manager",
@@ -63,7 +65,7 @@ ROUTE_ROLES: dict[str, str] = {
 }
 
 _STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403,
-           EnrolmentRefused: 401}
+           VersionIdMismatch: 422, NumberTooFar: 409, EnrolmentRefused: 401}
 
 
 class ErrorOut(BaseModel):

@@ -161,3 +161,184 @@ benchmark(Bench(
     setup=_setup_counts, subject=_counts_db, baseline=_counts_pandas, repeats=REPEATS,
     doc="per-horizon x category x material x recovery tallies computed by SQLite; goal ratio <= 1.0",
 ))
+
+
+# -- sync.pending: a push into a store holding many unrelated pending rows vs the same push into one with none --
+_PENDING_PUSH_FINDS = 20
+
+
+def _setup_pending(size: int, work: Path) -> dict[str, Any]:
+    """Two stores alike (the site, TAB-1 with a block) but for ``size`` pending rows, in one of them, of a record
+    type this Baulk does not know (a newer tablet's), and the batch of 20 finds each repeat pushes."""
+    from schema.sync import version_id
+
+    from .sync import MAX_BATCH
+
+    demo = build_site()
+    quiet, pending = work / "quiet.sqlite", work / "pending.sqlite"
+    with ServerStore.open(f"sqlite:///{quiet}") as server:
+        with server.atomic():
+            for r in demo.setup_records():
+                server.add(r)
+        device, _token = server.add_device(label="TAB-1", role="recorder")
+        server.issue_number_block(device_id=device.id, size=10**6)
+        newer, _token = server.add_device(label="TAB-NEW", role="recorder")
+    shutil.copy(quiet, pending)
+    rows = [Version(id=version_id(newer.id, k), record="soil_profile", record_id=uuid.UUID(int=k), field="depth_m",
+                    value=1.5, wall_ms=1_700_000_000_000 + k, counter=0, device=newer.id, seq=k, schema_version=2)
+            for k in range(1, size + 1)]
+    with ServerStore.open(f"sqlite:///{pending}", upgrade=False) as server:
+        for b, i in enumerate(range(0, len(rows), MAX_BATCH), start=1):
+            chunk = rows[i:i + MAX_BATCH]
+            ack = apply_push(server, device=newer, batch=b, content_hash=batch_hash(chunk), versions=chunk)
+    assert ack["pending_rows"] == size
+    versions = _versions(demo, _PENDING_PUSH_FINDS, device.id)
+    return {"templates": {"quiet": quiet, "pending": pending}, "device": device, "versions": versions,
+            "hash": batch_hash(versions), "report": {"pending_rows": size}}
+
+
+def _push_into(state: dict[str, Any], work: Path, i: int, tag: str) -> float:
+    import time
+
+    path = work / f"{tag}-{i}.sqlite"
+    shutil.copy(state["templates"][tag], path)
+    versions = state["versions"]
+    with ServerStore.open(f"sqlite:///{path}", upgrade=False) as store:
+        t0 = time.perf_counter()
+        ack = apply_push(store, device=state["device"], batch=1, content_hash=state["hash"], versions=versions)
+        took = time.perf_counter() - t0
+    assert ack["applied"] == len(versions) and ack["pending_rows"] == state["report"]["pending_rows"] * (tag == "pending")
+    path.unlink()
+    return took
+
+
+benchmark(Bench(
+    name="sync.pending", baseline_name="the same push with no pending rows", sizes=(2000, 20_000),
+    setup=_setup_pending, subject=lambda s, w, i: _push_into(s, w, i, "pending"),
+    baseline=lambda s, w, i: _push_into(s, w, i, "quiet"), repeats=5,
+    doc="a push of 20 finds into a store holding n unrelated pending rows (a newer Baulk's record type) vs none; "
+        "goal ratio ~1 (pending rows are retried only when what they wait for arrives)",
+))
+
+
+# -- bundle.import_memory: `baulk bundle import` of a big legitimate bundle, its peak memory over an idle one ------
+# Each child prints its seconds and its own peak resident memory (VmHWM: the high-water mark of its address space
+# since exec; ru_maxrss would also count the forking benchmark process it was copied from).
+_PEAK = """
+def _peak_mb():
+    try:
+        with open("/proc/self/status") as fh:
+            return next(int(line.split()[1]) for line in fh if line.startswith("VmHWM:")) / 1024
+    except (OSError, StopIteration):
+        import resource
+        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+"""
+_IDLE = _PEAK + """
+import sys
+import sync_server.bundles, sync_server.cli, sync_server.sync
+from sync_server.store import ServerStore
+ServerStore.open(sys.argv[1], create=False).close()
+print(0.0, _peak_mb())
+"""
+_IMPORT = _PEAK + """
+import sys, time
+from sync_server.cli import cli
+t0 = time.perf_counter()
+cli(["bundle", "import", sys.argv[2], "--db", sys.argv[1]], standalone_mode=False)
+print(time.perf_counter() - t0, _peak_mb())
+"""
+_PLAIN = _PEAK + """
+import json, sys, time, uuid
+import sync_server.bundles, sync_server.cli
+from schema.records import Device
+from schema.sync import Version, batch_hash
+from sync_server.store import ServerStore
+from sync_server.sync import apply_push
+t0 = time.perf_counter()
+with ServerStore.open(sys.argv[1], create=False) as store:
+    device = store.get(Device, uuid.UUID(sys.argv[3]))
+    with store.atomic(), open(sys.argv[2]) as fh:
+        for line in fh:
+            number, raw = json.loads(line)
+            versions = [Version.model_validate(v, strict=False) for v in raw]
+            apply_push(store, device=device, batch=number, content_hash=batch_hash(versions), versions=versions)
+print(time.perf_counter() - t0, _peak_mb())
+"""
+
+
+def _child(code: str, *args: str, log: Path) -> tuple[float, float]:
+    """Run ``code`` in a fresh interpreter; returns (its seconds, its peak resident memory in MB), both printed by
+    the child on its last line."""
+    import subprocess
+    import sys
+
+    with open(log, "w") as err:
+        done = subprocess.run([sys.executable, "-c", code, *args], stdout=subprocess.PIPE, stderr=err, check=False)
+    if done.returncode != 0:
+        raise RuntimeError(f"benchmark child failed ({done.returncode}): {log.read_text()[-2000:]}")
+    seconds, peak = done.stdout.decode().strip().splitlines()[-1].split()
+    return float(seconds), float(peak)
+
+
+def _setup_import(size: int, work: Path) -> dict[str, Any]:
+    """A store with the site and an enrolled TAB-1; a bundle of ``size`` finds from it (batches of 500 versions,
+    as a tablet cuts them), and the same batches as plain JSON lines for the baseline."""
+    import json
+
+    from schema.sync.bundle import write_bundle
+
+    template = work / "template.sqlite"
+    demo = build_site()
+    with ServerStore.open(f"sqlite:///{template}") as server:
+        with server.atomic():
+            for r in demo.setup_records():
+                server.add(r)
+        device, token = server.add_device(label="TAB-1", role="recorder")
+        server.issue_number_block(device_id=device.id, size=10**7)
+    versions = _versions(demo, size, device.id)
+    batches = [(n, versions[i:i + 500]) for n, i in enumerate(range(0, len(versions), 500), start=1)]
+    bundle = work / "day.baulkbundle"
+    write_bundle(bundle, device=device.id, label="TAB-1", token=token, batches=batches)
+    plain = work / "day.jsonl"
+    inflated = 0
+    with open(plain, "w") as fh:
+        for n, vs in batches:
+            line = json.dumps([n, [v.model_dump(mode="json") for v in vs]])
+            inflated += len(line)
+            fh.write(line + "\n")
+    idle_path = work / "idle.sqlite"
+    shutil.copy(template, idle_path)
+    _s, idle = _child(_IDLE, f"sqlite:///{idle_path}", log=work / "idle.log")
+    return {"template": template, "bundle": bundle, "plain": plain, "device": str(device.id), "idle": idle,
+            "peaks": {"subject": [], "baseline": []},
+            "report": {"finds": size, "versions": len(versions), "bundle_file_mb": round(bundle.stat().st_size / 2**20, 1),
+                       "versions_mb": round(inflated / 2**20, 1), "idle_mb": round(idle, 1)}}
+
+
+def _import_child(state: dict[str, Any], work: Path, i: int, tag: str) -> float:
+    path = work / f"{tag}-{i}.sqlite"
+    shutil.copy(state["template"], path)
+    url = f"sqlite:///{path}"
+    if tag == "subject":
+        took, peak = _child(_IMPORT, url, str(state["bundle"]), log=work / f"{tag}.log")
+    else:
+        took, peak = _child(_PLAIN, url, str(state["plain"]), state["device"], log=work / f"{tag}.log")
+    state["peaks"][tag].append(peak)
+    with ServerStore.open(url, upgrade=False) as store:
+        assert store.count(Find) == state["report"]["finds"], "every find of the bundle must be imported"
+    path.unlink()
+    return took
+
+
+def _import_report(state: dict[str, Any], _work: Path) -> None:
+    for tag in ("subject", "baseline"):
+        state["report"][f"{tag}_peak_over_idle_mb"] = round(max(state["peaks"][tag]) - state["idle"], 1)
+
+
+benchmark(Bench(
+    name="bundle.import_memory", baseline_name="apply_push of the same batches from plain JSON lines",
+    sizes=(900, 9000), setup=_setup_import, subject=lambda s, w, i: _import_child(s, w, i, "subject"),
+    baseline=lambda s, w, i: _import_child(s, w, i, "baseline"), repeats=1, after=_import_report,
+    doc="`baulk bundle import` of a bundle of n finds (about 50 MB of versions full, 5 MB quick), in its own "
+        "process; goal: peak memory <= idle + 150 MB (subject_peak_over_idle_mb <= 150; batches are read one at a time)",
+))

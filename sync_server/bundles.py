@@ -1,5 +1,6 @@
 """Importing a tablet's bundle on the camp server: checked whole, then applied through the same code path as
-a push, all batches in one transaction (so a failure part-way changes nothing)."""
+a push, all batches in one transaction (so a failure part-way changes nothing). The batches are read from the
+file one at a time (after the check, each again), so memory does not grow with the bundle's size."""
 
 from __future__ import annotations
 
@@ -8,7 +9,7 @@ from pathlib import Path
 from typing import Any
 
 from schema.records import Device
-from schema.sync.bundle import read_bundle
+from schema.sync.bundle import open_bundle
 
 from .store import ServerStore
 from .sync import apply_push
@@ -26,15 +27,13 @@ def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
         found = store.list(Device, id=device_id)
         return found[0].token_hash if found and found[0].revoked_at is None else None
 
-    manifest, batches = read_bundle(path, token_hash_of)
-    device = store.get(Device, uuid.UUID(manifest["device"]))
     acks = []
-    with store.atomic():
-        for number, versions in batches:
-            from schema.sync import batch_hash
-
-            acks.append(apply_push(store, device=device, batch=number, content_hash=batch_hash(versions),
-                                   versions=versions))
+    with open_bundle(path, token_hash_of) as bundle:  # checked whole here; batches are read again one at a time
+        device = store.get(Device, bundle.device)
+        with store.atomic():
+            for number, versions, content_hash in bundle.batches():
+                acks.append(apply_push(store, device=device, batch=number, content_hash=content_hash,
+                                       versions=versions))
     fresh = [a for a in acks if not a["replayed"]]
     return {"device": device.label, "batches": len(acks), "applied": sum(a["applied"] for a in fresh),
             "replayed": len(acks) - len(fresh), "refused": [r for a in fresh for r in a["refused"]], "acks": acks}

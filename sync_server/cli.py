@@ -1,8 +1,9 @@
 """The ``baulk`` command line: a thin shell over library functions.
 
-Each command parses its options, calls one library function and prints the result; a ``BaulkError`` becomes
-one message with the fix and exit code 1. This module and ``sync_server.demo`` are the only places that know
-both the tablet and the server packages; they import ``mobile`` lazily inside the commands that need it.
+Each command parses its options, calls one library function and prints the result; whatever goes wrong becomes
+one line (``sync_server.cli_boundary``): a ``BaulkError`` its message with the fix and exit code 1. This module
+and ``sync_server.demo`` are the only places that know both the tablet and the server packages; they import
+``mobile`` lazily inside the commands that need it.
 """
 
 from __future__ import annotations
@@ -15,8 +16,9 @@ from typing import Any
 import click
 
 from schema import __version__
-from schema.errors import BaulkError
 from schema.records.safety import SAFETY_KINDS
+
+from .cli_boundary import boundary
 
 __all__ = ["cli", "main"]
 
@@ -27,13 +29,14 @@ _db_option = click.option("--db", "database_url", default=None,
 
 
 class _BaulkGroup(click.Group):
-    """Turns any domain error, from any subcommand, into one clear message (the fix included) and exit 1."""
+    """The one error boundary of every subcommand (``sync_server.cli_boundary``): a domain error, a file that cannot
+    be read or written, a damaged database, even a bug, reaches the user as one line; exit 1, or 2 for a bug."""
 
     def invoke(self, ctx: click.Context) -> Any:
         try:
             return super().invoke(ctx)
-        except BaulkError as exc:
-            raise click.ClickException(str(exc)) from None
+        except Exception as exc:  # noqa: BLE001 - the boundary sorts them
+            raise boundary(exc) from None
 
 
 @click.group(cls=_BaulkGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -156,8 +159,9 @@ def _tablet_site_data(path: Path) -> Any:
     import shutil
     import tempfile
 
-    from mobile.store import TabletStore
+    from mobile.store import TabletStore, check_tablet_file
 
+    check_tablet_file(path)
     with tempfile.TemporaryDirectory(prefix="baulk-validate-") as tmp:
         copy = Path(tmp) / path.name
         shutil.copy2(path, copy)
@@ -229,10 +233,10 @@ def safety_cmd(trench: str | None, kind: str | None, days: int | None, csv_path:
     since = dt.datetime.now(dt.timezone.utc) - dt.timedelta(days=days) if days else None
     with _server_store(database_url) as store:
         rows = safety_log(store, trench=trench, kind=kind, since=since, limit=None)
+    if csv_path is not None:  # first: a path that cannot be written is refused before anything is listed
+        write_safety_csv(rows, csv_path)
     for row in rows:
         click.echo(safety_line(row))
-    if csv_path is not None:
-        write_safety_csv(rows, csv_path)
     click.echo(f"{len(rows)} safety check{'' if len(rows) == 1 else 's'}" + (f"; written to {csv_path}" if csv_path else ""),
                err=True)
 
@@ -250,8 +254,9 @@ def bundle() -> None:
 def bundle_export(store_path: Path, out: Path) -> None:
     """Write every batch the server has not acknowledged into one sealed bundle file."""
     from mobile.bundles import export_bundle
-    from mobile.store import TabletStore
+    from mobile.store import TabletStore, check_tablet_file
 
+    check_tablet_file(store_path)
     with TabletStore.open(store_path) as tablet:
         m = export_bundle(tablet, out)
     total = sum(b["versions"] for b in m["batches"])
@@ -312,14 +317,21 @@ def season_archive(out: Path, database_url: str | None) -> None:
 
 @season.command("import")
 @click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--confirm-far-number", "confirm_far", is_flag=True,
+              help="Accept a number floor more than 10 blocks above the highest number issued here.")
 @_db_option
-def season_import(file: Path, database_url: str | None) -> None:
+def season_import(file: Path, confirm_far: bool, database_url: str | None) -> None:
     """Check an archive whole, then merge it into this store (clashes become conflicts; a bad archive changes nothing)."""
+    from schema.errors import NumberTooFar
+
     from .seasons import import_archive
     from .validation import run_validation
 
     with _server_store(database_url) as store:
-        r = import_archive(store, file)
+        try:
+            r = import_archive(store, file, confirm_far=confirm_far)
+        except NumberTooFar as exc:
+            raise exc.confirm_with("run the import again with --confirm-far-number") from None
         run_validation(store)
     click.echo(f"imported {file.name}: {r['applied']} new versions ({r['already_held']} already here), "
                f"{r['rows_written']} rows written, {r['conflicts_open']} conflicts open "

@@ -60,7 +60,7 @@ def resect(control_csv: Path, observations_csv: Path, instrument_height: float, 
     r = resect_job(control_csv, observations_csv, instrument_height=instrument_height, angle_unit=angle_unit,
                    tolerance=tolerance)
     table = [
-        f"station  E {r['e']:.4f}  N {r['n']:.4f}  Z {r['z'] if r['z'] is None else format(r['z'], '.4f')}",
+        f"station  E {r['e']:.4f}  N {r['n']:.4f}  Z {'-' if r['z'] is None else format(r['z'], '.4f')}",
         f"orientation {r['orientation_deg']:.6f} deg   scale {r['scale']:.8f} ({r['scale_ppm']:+.1f} ppm)",
         "residuals (m):",
         *(f"  {x['point']:<8} dE {x['de']:+.4f}  dN {x['dn']:+.4f}  d {x['d']:.4f}" for x in r["residuals"]),

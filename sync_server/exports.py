@@ -149,9 +149,22 @@ def _sha256(path: Path) -> str:
 
 def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = None, strict: bool = False,
                progress: Progress | None = None) -> dict[str, Any]:
-    """Write every export file into ``out`` (created; files of an earlier export there are replaced)."""
-    say = progress or (lambda _msg: None)
+    """Write every export file into ``out`` (created; files of an earlier export there are replaced). The files
+    are made in ``out.part`` first, so an output folder that cannot be written is refused before any work, and a
+    failed export leaves nothing behind."""
     out = Path(out)
+    tmp = out.with_name(out.name + ".part")
+    shutil.rmtree(tmp, ignore_errors=True)
+    tmp.mkdir(parents=True)
+    try:
+        return _export_into(store, out, tmp, seasons=seasons, strict=strict, progress=progress)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)  # renamed to ``out`` when the export is whole
+
+
+def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str] | None, strict: bool,
+                 progress: Progress | None) -> dict[str, Any]:
+    say = progress or (lambda _msg: None)
     say("reading the site and running every check")
     data = store.site_data()
     report = validate(data)
@@ -169,9 +182,6 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
     units, horizons = data.units, store.list(Horizon, site_id=site.id)
     unit_ids = {u.id for u in units}
     spits = [s for s in store.list(Spit) if s.unit_id in unit_ids]
-    tmp = out.with_name(out.name + ".part")
-    shutil.rmtree(tmp, ignore_errors=True)
-    tmp.mkdir(parents=True)
     levels = [lp for lp in store.list(LevelPoint) if lp.unit_id in unit_ids]
     volumes = unit_volumes(spits, units=units, levels=levels, outlines={t.id: list(t.outline) for t in data.trenches})
     rows = _tables(store, tmp, site, season_ids, data.trenches, units, horizons, spits, volumes, sel, say)

@@ -10,7 +10,10 @@ data manager runs, on the server machine's own command line, not over the networ
 Importing applies the versions through the shared merge (``insert_versions`` + ``materialize``), in one
 transaction: records both stores hold merge by their versions (edits made in both become conflicts), finds
 sharing a number become ``duplicate_number`` conflicts, units and horizons carry over, and new number blocks
-start above every number the archive knew (``number_floor``). Importing the same archive again applies nothing.
+start above every number the archive knew (``number_floor``: a whole number up to 2^53 - 1; one more than ten
+blocks above the highest number issued or used here is imported only when the manager confirms it). The version
+log is read line by line within caps (``schema.sync.bundle``), so a crafted archive cannot fill the memory.
+Importing the same archive again applies nothing.
 Device rows and number blocks stay behind (server-owned: tablets are enrolled afresh each season).
 """
 
@@ -27,13 +30,14 @@ from typing import Any, Callable
 import sqlalchemy as sa
 from pydantic import ValidationError
 
-from schema.errors import BundleInvalid
+from schema.errors import BundleInvalid, NumberTooFar
+from schema.fields import MAX_JSON_INT
 from schema.sync import SERVER_OWNED, Version
-from schema.sync.bundle import open_checked_zip
+from schema.sync.bundle import ARCHIVE_LOG_CAP, MANIFEST_CAP, open_checked_zip
 from schema.sync.replica import insert_versions, load_identity, materialize, retry_pending, row_to_version, state_get, state_set
 from schema.sync.tables import field_version, open_conflict, pending_row
 
-from .store import ServerStore, number_floor
+from .store import ServerStore, far_number, number_floor
 
 __all__ = ["ARCHIVE_FORMAT", "ARCHIVE_VERSION", "import_archive", "number_floor", "read_archive", "write_archive"]
 
@@ -83,36 +87,48 @@ def write_archive(store: ServerStore, path: Path, *, progress: Callable[[int, in
 
 
 def read_archive(path: Path) -> tuple[dict[str, Any], list[Version]]:
-    """Check the whole archive; ``BundleInvalid`` names what is wrong."""
+    """Check the whole archive; ``BundleInvalid`` names what is wrong. The version log is read line by line
+    within its caps (``schema.sync.bundle.ARCHIVE_LOG_CAP``, ``LINE_CAP``), hashed as it streams."""
     path = Path(path)
-    z, manifest = open_checked_zip(path, what="season archive", again="write it again from the old store")
+    z, manifest = open_checked_zip(path, what="season archive", again="write it again from the old store",
+                                   total_cap=ARCHIVE_LOG_CAP + MANIFEST_CAP)
     with z:
+        if manifest.get("format") != ARCHIVE_FORMAT:
+            raise BundleInvalid(f"{path.name} is not a season archive (format {manifest.get('format')!r})")
+        if manifest.get("format_version") != ARCHIVE_VERSION:
+            raise BundleInvalid(f"{path.name} has archive format {manifest.get('format_version')}; this server reads "
+                                f"format {ARCHIVE_VERSION}: update Baulk on the server")
+        floor = manifest.get("number_floor")
+        if not isinstance(floor, int) or isinstance(floor, bool) or not 0 <= floor <= MAX_JSON_INT:
+            shown = json.dumps(floor)
+            raise BundleInvalid(f"{path.name}: the manifest's number_floor {shown[:60]} is not a whole number from 0 "
+                                f"to {MAX_JSON_INT}; write the archive again from the old store (nothing was imported)")
+        h = hashlib.sha256()
+        versions = []
         try:
-            raw = z.read("versions.jsonl")
+            for n, line in enumerate(z.lines("versions.jsonl", ARCHIVE_LOG_CAP), start=1):
+                h.update(line + b"\n")
+                try:
+                    versions.append(Version.model_validate_json(line))
+                except ValidationError as exc:
+                    where = ".".join(str(p) for p in exc.errors()[0]["loc"])
+                    raise BundleInvalid(f"{path.name}: line {n} of the version log is not a version ({where}); "
+                                        "nothing was imported") from None
         except KeyError:
             raise BundleInvalid(f"{path.name} has no version log; it is not a season archive or it was cut short") from None
-    if manifest.get("format") != ARCHIVE_FORMAT:
-        raise BundleInvalid(f"{path.name} is not a season archive (format {manifest.get('format')!r})")
-    if manifest.get("format_version") != ARCHIVE_VERSION:
-        raise BundleInvalid(f"{path.name} has archive format {manifest.get('format_version')}; this server reads "
-                            f"format {ARCHIVE_VERSION}: update Baulk on the server")
-    if hashlib.sha256(raw).hexdigest() != manifest.get("versions_sha256"):
+    if h.hexdigest() != manifest.get("versions_sha256"):
         raise BundleInvalid(f"{path.name}: the version log does not match its hash; nothing was imported")
-    versions = []
-    for n, line in enumerate(raw.splitlines(), start=1):
-        try:
-            versions.append(Version.model_validate_json(line))
-        except ValidationError as exc:
-            where = ".".join(str(p) for p in exc.errors()[0]["loc"])
-            raise BundleInvalid(f"{path.name}: line {n} of the version log is not a version ({where}); "
-                                "nothing was imported") from None
     if len(versions) != manifest.get("versions"):
         raise BundleInvalid(f"{path.name}: {len(versions)} versions where the manifest says {manifest.get('versions')}")
     return manifest, versions
 
 
-def import_archive(store: ServerStore, path: Path) -> dict[str, Any]:
-    """Check, then apply an archive in one transaction; returns what happened."""
+def import_archive(store: ServerStore, path: Path, *, confirm_far: bool = False) -> dict[str, Any]:
+    """Check, then apply an archive in one transaction; returns what happened.
+
+    The archive's ``number_floor`` (new blocks start above it) more than ten blocks above the highest number
+    issued or used here, once its finds are in, is refused (``NumberTooFar``, nothing applied) unless
+    ``confirm_far``: every block issued after it would start there."""
     manifest, versions = read_archive(path)
     accepted = [v for v in versions if v.record not in SERVER_OWNED]
     with store.atomic() as conn:
@@ -122,7 +138,13 @@ def import_archive(store: ServerStore, path: Path) -> dict[str, Any]:
         new = insert_versions(conn, accepted, next_log_seq=top + 1)
         stats = materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
         retry_pending(conn)
-        floor = max(number_floor(conn), int(manifest.get("number_floor") or 0))
+        imported = int(manifest["number_floor"])
+        block_size = store.block_size()
+        highest = None if confirm_far else far_number(conn, imported, block_size=block_size)
+        if highest is not None:
+            raise NumberTooFar(f"{Path(path).name} sets the number floor to {imported}", imported, highest, block_size,
+                               "Write the archive again from the old store if that floor is wrong")
+        floor = max(number_floor(conn), imported)
         state_set(conn, "number_floor", floor)
         conflicts = int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one())
         pending = int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one())

@@ -24,7 +24,7 @@ from schema.records import Device, NumberBlock
 from schema.store import RecordStore
 from schema.tables import metadata
 
-__all__ = ["ServerStore", "check_existing", "hash_token", "make_engine", "migrate"]
+__all__ = ["ServerStore", "check_existing", "far_number", "hash_token", "make_engine", "migrate"]
 
 MIGRATIONS_DIR = Path(__file__).parent / "migrations"
 DEFAULT_BLOCK_SIZE = 500
@@ -185,6 +185,22 @@ def number_floor(conn: sa.Connection) -> int:
     return max(int(conn.execute(sa.select(sa.func.max(blocks.c["last"]))).scalar() or 0),
                int(conn.execute(sa.select(sa.func.max(finds.c.number))).scalar() or 0),
                int(state_get(conn, "number_floor", "0") or 0))
+
+
+FAR_BLOCKS = 10  # a find number or number floor more blocks than this above the highest issued one needs confirming
+
+
+def far_number(conn: sa.Connection, number: int, *, block_size: int) -> str | None:
+    """None when ``number`` lies within ``FAR_BLOCKS`` blocks of ``block_size`` above the highest number this
+    store has issued, seen used or imported (``number_floor``); otherwise the words naming that highest number
+    and the highest block issued, for a message asking the manager to confirm."""
+    top = number_floor(conn)
+    if number <= top + FAR_BLOCKS * block_size:
+        return None
+    blocks = metadata.tables["number_block"]
+    last = conn.execute(sa.select(blocks.c.first, blocks.c["last"]).order_by(blocks.c["last"].desc()).limit(1)).first()
+    block = f"the highest block issued is {last[0]}-{last[1]}" if last else "no block is issued yet"
+    return f"the highest number issued or used here ({top}; {block})"
 
 
 class ServerStore(RecordStore):

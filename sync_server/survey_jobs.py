@@ -9,8 +9,10 @@ from typing import Any
 import numpy as np
 
 from schema import tabular
-from schema.errors import InputFileInvalid
+from schema.errors import InputFileInvalid, SurveyError, UnusableCRS
+from schema.setup_file import crs_problem
 from schema.survey import gnss, grid, polar, setup
+from schema.survey.angles import FULL_CIRCLE
 from schema.survey.crs import lonlat_to_projected
 
 __all__ = ["fit_grid_job", "nmea_job", "reduce_job", "resect_job"]
@@ -19,21 +21,11 @@ SETUP_KEYS = ("e", "n", "z", "instrument_height", "orientation")
 
 
 def reduce_job(setup_file: Path, shots_csv: Path, *, curvature: bool = False) -> list[dict[str, Any]]:
-    cfg = tabular.read_json(setup_file)
-    missing = [k for k in SETUP_KEYS if k not in cfg] if isinstance(cfg, dict) else list(SETUP_KEYS)
-    if missing:
-        raise InputFileInvalid(
-            f"{setup_file}: the setup needs {', '.join(SETUP_KEYS)} (and angle_unit 'deg' or 'gon'); "
-            f"missing {', '.join(missing)}"
-        )
-    station = polar.Station(
-        float(cfg["e"]), float(cfg["n"]), float(cfg["z"]), float(cfg["instrument_height"]),
-        float(cfg["orientation"]), str(cfg.get("angle_unit", "deg")),
-    )
+    station = _read_station(setup_file)
     rows = tabular.read_csv(
         shots_csv, required=("id", "hz", "zenith", "slope_distance", "target_height"),
         numeric=("hz", "zenith", "slope_distance", "target_height", "prism_constant_mm"),
-        optional={"prism_constant_mm": 0.0},
+        optional={"prism_constant_mm": 0.0}, unique=("id",),
     )
     col = lambda k: np.array([r[k] for r in rows], dtype=float)  # noqa: E731
     r = polar.reduce_shots(station, col("hz"), col("zenith"), col("slope_distance"), col("target_height"),
@@ -44,17 +36,40 @@ def reduce_job(setup_file: Path, shots_csv: Path, *, curvature: bool = False) ->
     ]
 
 
+def _read_station(setup_file: Path) -> polar.Station:
+    """The station of a setup file (a JSON object), every value checked: a number that is finite, a known unit."""
+    cfg, lines = tabular.json_key_lines(setup_file)
+    missing = [k for k in SETUP_KEYS if k not in cfg] if isinstance(cfg, dict) else list(SETUP_KEYS)
+    if missing:
+        raise InputFileInvalid(
+            f"{setup_file}: the setup needs {', '.join(SETUP_KEYS)} (and angle_unit 'deg' or 'gon'); "
+            f"missing {', '.join(missing)}"
+        )
+    where = lambda key: f"{setup_file} line {lines[key]}" if key in lines else str(setup_file)  # noqa: E731
+    unit = cfg.get("angle_unit", "deg")
+    if unit not in FULL_CIRCLE:
+        raise InputFileInvalid(f"{where('angle_unit')}: angle_unit {unit!r} is not known; use \"deg\" or \"gon\"")
+    values = {}
+    for key, what in polar.STATION_FIELDS.items():
+        try:
+            values[key] = polar.check_finite(key, cfg[key], f"give {what} as a JSON number")
+        except SurveyError as exc:
+            raise InputFileInvalid(f"{where(key)}: {exc}") from None
+    return polar.Station(**values, angle_unit=unit)
+
+
 def resect_job(
     control_csv: Path, observations_csv: Path, *, instrument_height: float, angle_unit: str, tolerance: float
 ) -> dict[str, Any]:
     control = {
-        r["code"]: setup.KnownPoint(r["code"], r["e"], r["n"], r["z"] if r["z"] != "" else None)
-        for r in tabular.read_csv(control_csv, required=("code", "e", "n"), numeric=("e", "n", "z"), optional={"z": ""})
+        r["code"]: setup.KnownPoint(r["code"], r["e"], r["n"], r["z"])
+        for r in tabular.read_csv(control_csv, required=("code", "e", "n"), numeric=("e", "n", "z"),
+                                  optional={"z": None}, unique=("code",))
     }
     obs = []
     for r in tabular.read_csv(
         observations_csv, required=("code", "hz", "zenith", "slope_distance"),
-        numeric=("hz", "zenith", "slope_distance", "target_height"), optional={"target_height": 0.0},
+        numeric=("hz", "zenith", "slope_distance", "target_height"), optional={"target_height": 0.0}, unique=("code",),
     ):
         if r["code"] not in control:
             raise InputFileInvalid(
@@ -73,7 +88,7 @@ def resect_job(
 def fit_grid_job(pairs_csv: Path) -> dict[str, Any]:
     rows = tabular.read_csv(
         pairs_csv, required=("code", "x", "y", "e", "n"), numeric=("x", "y", "e", "n", "z_grid", "z_crs"),
-        optional={"z_grid": None, "z_crs": None},
+        optional={"z_grid": None, "z_crs": None}, unique=("code",),
     )
     fit = grid.fit_grid([grid.PointPair(r["code"], r["x"], r["y"], r["e"], r["n"], r["z_grid"], r["z_crs"]) for r in rows])
     return {
@@ -84,8 +99,15 @@ def fit_grid_job(pairs_csv: Path) -> dict[str, Any]:
 
 
 def nmea_job(log: Path, *, epsg: int | None = None) -> dict[str, Any]:
-    text = tabular._text(log)  # noqa: SLF001 - same friendly errors for a missing or binary file
-    parsed = gnss.parse_nmea(text.splitlines())
+    if epsg is not None and (why := crs_problem(epsg)):
+        raise UnusableCRS(f"--epsg {epsg}: {why}")
+    lines = tabular.read_text(log, kind="NMEA").splitlines()
+    if not any(line.strip().startswith("$") for line in lines):
+        what = "the file is empty" if not any(line.strip() for line in lines) else (
+            f"none of its {len(lines)} lines starts with $ as a sentence does, e.g. $GNGGA,...")
+        raise InputFileInvalid(f"{log}: no NMEA sentence was found ({what}); give the receiver's log of NMEA 0183 "
+                               "sentences (GGA, RMC, GST), copied as plain text")
+    parsed = gnss.parse_nmea(lines)
     fixes = []
     for f in parsed.fixes:
         item: dict[str, Any] = {

@@ -14,10 +14,11 @@ from typing import Any
 
 import sqlalchemy as sa
 
-from schema.errors import BatchClash, RecordNotFound, WrongDevice
+from schema.errors import BatchClash, FieldProblem, NumberTooFar, RecordInvalid, RecordNotFound, WrongDevice
+from schema.fields import MAX_JSON_INT
 from schema.records import Device, NumberBlock
 from schema.sync import SERVER_OWNED, Version, VersionSet, batch_hash, edit_parents, resolution_parents, version_id
-from schema.sync.versions import needs_manager
+from schema.sync.versions import check_version_ids, needs_manager
 from schema.sync.replica import (
     insert_versions, load_identity, materialize, record_versions, retry_pending, row_to_version, save_identity,
 )
@@ -27,7 +28,8 @@ from schema.tables import metadata
 from .store import ServerStore
 from .tables import push_batch
 
-__all__ = ["apply_push", "batch_hash", "list_conflicts", "pull_page", "refusal", "resolve_conflict"]
+__all__ = ["apply_push", "batch_hash", "list_conflicts", "list_pending", "number_refusal", "pull_page", "refusal",
+           "resolve_conflict"]
 
 MAX_BATCH = 5000
 MAX_PAGE = 2000
@@ -48,12 +50,18 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
     The acknowledgement counts what became of every version sent: ``applied`` (new here), ``duplicates`` (held
     already), ``ignored`` (server-owned records, never taken from a device) and ``refused``: set-up records and
     fields a device other than a manager may not write (``schema.sync.versions.MANAGER_OWNED`` and
-    ``MANAGER_FIELDS``), each listed with its reason. Refused versions are acknowledged with their batch (the
-    device does not send them again) and never stored."""
+    ``MANAGER_FIELDS``) and find numbers past 2^53 - 1, each listed with its reason. Refused versions are
+    acknowledged with their batch (the device does not send them again) and never stored.
+
+    A batch holding a version whose id is not ``<its device>:<its sequence>`` is refused whole
+    (``VersionIdMismatch``): nothing of it is applied or acknowledged."""
     foreign = sorted({str(v.device) for v in versions if v.device != device.id})
     if foreign:
         raise WrongDevice(f"batch {batch} carries versions of device {foreign[0]}, not of {device.label}; "
                           "a tablet pushes only its own edits")
+    check_version_ids(versions, where=f"batch {batch} of {device.label}", fix=(
+        "A tablet names each version by its own device and sequence, so this batch was altered after the tablet "
+        "wrote it; ask the data manager to check that tablet and re-enrol it as a new device."))
     with store.atomic() as conn:
         store._serialize(conn, "changelog")  # noqa: SLF001
         done = conn.execute(sa.select(push_batch).where(push_batch.c.device == device.id, push_batch.c.batch == batch)).first()
@@ -67,8 +75,14 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
         if batch_hash(versions) != content_hash:
             raise BatchClash(f"batch {batch} does not match its own hash; it was damaged in transfer, send it again")
         taken = [v for v in versions if v.record not in SERVER_OWNED]  # server-owned: never taken from tablets
-        refused = [] if device.role == "manager" else [v for v in taken if needs_manager(v.record, v.field)]
-        accepted = [v for v in taken if not needs_manager(v.record, v.field)] if refused else taken
+        refused: list[tuple[Version, str]] = []
+        accepted: list[Version] = []
+        for v in taken:
+            why = _refusal(v, device)
+            if why is None:
+                accepted.append(v)
+            else:
+                refused.append((v, why))
         top = conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0
         new = insert_versions(conn, accepted, next_log_seq=top + 1, batch=batch)
         stats = materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
@@ -77,8 +91,7 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
         ack = {
             "batch": batch, "received": len(versions), "applied": len(new),
             "duplicates": len(accepted) - len(new), "ignored": len(versions) - len(taken),
-            "refused": [{"version": v.id, "record": v.record, "field": v.field, "reason": refusal(v, device)}
-                        for v in refused],
+            "refused": [{"version": v.id, "record": v.record, "field": v.field, "reason": why} for v, why in refused],
             "rows_written": stats["written"],
             "pending_rows": int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one()),
             "conflicts_open": int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one()),
@@ -87,6 +100,26 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
         conn.execute(push_batch.insert().values(device=device.id, batch=batch, content_hash=content_hash, ack=ack,
                                                 received_at=now or dt.datetime.now(dt.timezone.utc)))
     return {**ack, "server_time_ms": _now_ms()}
+
+
+def _refusal(version: Version, device: Device) -> str | None:
+    """Why this version is not taken from this device (None: it is taken)."""
+    if device.role != "manager" and needs_manager(version.record, version.field):
+        return refusal(version, device)
+    if (version.record, version.field) == ("find", "number") and _past_bound(version.value):
+        return number_refusal(version, device)
+    return None
+
+
+def _past_bound(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and value > MAX_JSON_INT
+
+
+def number_refusal(version: Version, device: Device) -> str:
+    """Why a find number past 2^53 - 1 is not taken: every block issued after it would start above it."""
+    return (f"{device.label} sent find number {version.value} for find {version.record_id}, past the largest find "
+            f"number Baulk keeps ({MAX_JSON_INT}, the largest whole number JSON carries exactly), so this value was "
+            "not applied; give the find a number from the tablet's own number block and sync again.")
 
 
 def refusal(version: Version, device: Device) -> str:
@@ -158,12 +191,17 @@ def list_conflicts(store: ServerStore) -> list[dict[str, Any]]:
     return out
 
 
-def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: str, value: Any) -> dict[str, Any]:
+def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: str, value: Any,
+                     confirm_far: bool = False) -> dict[str, Any]:
     """A manager's resolution: a new version of the field naming every competing version as a parent.
 
     - concurrent values of one field: ``value`` is the chosen (or edited) value;
     - a void against edits it did not see (field ``voided``): ``True`` keeps the void, ``False`` restores the find;
     - finds sharing a number (field ``number``): ``value`` is the new number for this find (the others keep theirs).
+
+    A find number must be a whole number from 1 to 2^53 - 1 (``RecordInvalid``); one more than ten blocks above
+    the highest number issued is refused (``NumberTooFar``) unless ``confirm_far``: every later block would start
+    above it.
     """
     with store.atomic() as conn:
         store._serialize(conn, "changelog")  # noqa: SLF001
@@ -173,6 +211,8 @@ def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: 
             open_conflict.c.record == record, open_conflict.c.record_id == record_id, open_conflict.c.field == field)).scalar()
         if listed is None:
             raise RecordNotFound(f"{record} {record_id} has no open conflict on {field}; list them first")
+        if (record, field) == ("find", "number"):
+            _check_renumbering(store, conn, record_id, value, confirm_far=confirm_far)
         if listed == "duplicate_number":
             parents = edit_parents(state, key)
         else:
@@ -188,3 +228,32 @@ def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: 
         still = conn.execute(sa.select(open_conflict.c.kind).where(
             open_conflict.c.record == record, open_conflict.c.record_id == record_id, open_conflict.c.field == field)).scalar()
     return {"version": v.id, "value": value, "kind": listed, "still_open": still}
+
+
+def _check_renumbering(store: ServerStore, conn: sa.Connection, find_id: Any, value: Any, *, confirm_far: bool) -> None:
+    """A new find number: whole, within 1..2^53 - 1, and not far above the issued blocks unless confirmed."""
+    from .store import far_number
+
+    if not isinstance(value, int) or isinstance(value, bool) or not 1 <= value <= MAX_JSON_INT:
+        shown = json.dumps(value, ensure_ascii=False)
+        raise RecordInvalid("find", [FieldProblem(
+            "number", f"the new number {shown[:60]} for find {find_id} is not a whole number from 1 to {MAX_JSON_INT}",
+            "type the find's new number as digits only, e.g. 1234")])
+    if confirm_far:
+        return
+    block_size = store.block_size()
+    highest = far_number(conn, value, block_size=block_size)
+    if highest is not None:
+        raise NumberTooFar(f"find {find_id} cannot be renumbered to {value}", value, highest, block_size,
+                           "Give it a number inside the issued blocks (a free one from a tablet's block)")
+
+
+def list_pending(store: ServerStore, *, limit: int = 500) -> dict[str, Any]:
+    """Records held here whose visible row cannot be written yet, each with its reason and what it waits for
+    (``schema.sync.replica``: a missing parent record, an update of Baulk, or a corrected value)."""
+    with store.read() as conn:
+        total = int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one())
+        rows = conn.execute(sa.select(pending_row).order_by(pending_row.c.record, pending_row.c.record_id)
+                            .limit(limit)).all()
+    return {"data": [{"record": r.record, "record_id": str(r.record_id), "reason": r.reason,
+                      "waits_for": r.waits_for} for r in rows], "count": total}

@@ -8,7 +8,7 @@ from typing import Annotated
 from pydantic import Field, ValidationInfo, model_validator
 
 from .. import vocab
-from ..fields import Easting, Elevation, Id, Initials, Northing, Ref, Sha256Hex, Timestamp, new_id
+from ..fields import MAX_JSON_INT, Easting, Elevation, Id, Initials, Northing, Ref, Sha256Hex, Timestamp, new_id
 from ..validation import FieldError
 from ._base import Record, spec
 
@@ -24,7 +24,8 @@ class FindBase(Record):
     issued to the recording device.
     """
 
-    number: Annotated[int, Field(ge=1, description="site-unique find number from the device's number block")]
+    number: Annotated[int, Field(ge=1, le=MAX_JSON_INT,
+                                 description="site-unique find number from the device's number block")]
     site_id: Annotated[uuid.UUID, Ref("site")]
     season_id: Annotated[uuid.UUID, Ref("season")]
     trench_id: Annotated[uuid.UUID, Ref("trench")]

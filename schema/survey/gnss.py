@@ -9,6 +9,7 @@ fix quality, HDOP and heights; RMC the date; GST the standard deviations. Only R
 from __future__ import annotations
 
 import datetime as dt
+import math
 from dataclasses import dataclass, field
 from typing import Iterable
 
@@ -73,27 +74,59 @@ class NmeaLog:
     ignored: int  # valid sentences of other types
 
 
-def _num(value: object) -> float | None:
+def _num(value: object, name: str) -> float | None:
+    """A sentence's number field (empty: None); ``ValueError`` naming the field for text or NaN/infinity."""
     if value in (None, ""):
         return None
-    return float(value)  # type: ignore[arg-type]
+    try:
+        number = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        raise ValueError(f"{name} {str(value)!r} is not a number") from None
+    if not math.isfinite(number):
+        raise ValueError(f"{name} {str(value)!r} is not a finite number")
+    return number
+
+
+def _int(value: object, name: str) -> int | None:
+    if value in (None, ""):
+        return None
+    try:
+        return int(value)  # type: ignore[call-overload, no-any-return]
+    except (TypeError, ValueError):
+        raise ValueError(f"{name} {value!r} is not a whole number") from None
 
 
 def _gga(msg: pynmea2.GGA, raw: str, line: int) -> Fix | None:
     if not msg.lat or not msg.lon:
         return None
+    lat, lon = _num(msg.latitude, "latitude"), _num(msg.longitude, "longitude")
+    if lat is None or lon is None or abs(lat) > 90 or abs(lon) > 180:
+        raise ValueError(f"position {msg.lat},{msg.lat_dir} {msg.lon},{msg.lon_dir} is not a latitude and longitude")
     return Fix(
-        time=msg.timestamp, lat=float(msg.latitude), lon=float(msg.longitude), quality=int(msg.gps_qual or 0),
-        satellites=int(msg.num_sats) if msg.num_sats else None, hdop=_num(msg.horizontal_dil),
-        orthometric_height_m=_num(msg.altitude), geoid_separation_m=_num(msg.geo_sep), sentences=[raw], lines=[line],
+        time=msg.timestamp, lat=lat, lon=lon,
+        quality=_int(msg.gps_qual, "fix quality") or 0, satellites=_int(msg.num_sats, "satellites"),
+        hdop=_num(msg.horizontal_dil, "HDOP"), orthometric_height_m=_num(msg.altitude, "altitude"),
+        geoid_separation_m=_num(msg.geo_sep, "geoid separation"), sentences=[raw], lines=[line],
     )
+
+
+def _extra(msg: pynmea2.RMC | pynmea2.GST) -> dict[str, object]:
+    """What an RMC (the date) or GST (the sigmas) sentence adds to the fix of its time; ``ValueError`` when a field
+    cannot be read."""
+    if isinstance(msg, pynmea2.RMC):
+        if msg.datestamp and not isinstance(msg.datestamp, dt.date):
+            raise ValueError(f"date {msg.datestamp!r} is not a date (DDMMYY)")
+        return {"date": msg.datestamp or None}
+    return {"sigma_lat_m": _num(msg.std_dev_latitude, "latitude sigma"),
+            "sigma_lon_m": _num(msg.std_dev_longitude, "longitude sigma"),
+            "sigma_alt_m": _num(msg.std_dev_altitude, "altitude sigma")}
 
 
 def parse_nmea(lines: Iterable[str]) -> NmeaLog:
     """Parse an NMEA log into fixes, rejecting bad lines with their number and reason."""
     fixes: list[Fix] = []
     by_time: dict[dt.time, Fix] = {}
-    pending: dict[dt.time, list[tuple[object, str, int]]] = {}
+    pending: dict[dt.time, list[tuple[dict[str, object], str, int]]] = {}
     rejected: list[Rejected] = []
     ignored = 0
     for number, raw in enumerate(lines, start=1):
@@ -114,8 +147,13 @@ def parse_nmea(lines: Iterable[str]) -> NmeaLog:
             detail = exc.args[0][0] if isinstance(exc.args[0], tuple) else exc.args[0]
             rejected.append(Rejected(number, text, f"not a valid NMEA 0183 sentence ({detail})"))
             continue
+        try:
+            fix = _gga(msg, text, number) if isinstance(msg, pynmea2.GGA) else None
+            extra = _extra(msg) if isinstance(msg, (pynmea2.RMC, pynmea2.GST)) else None
+        except ValueError as exc:
+            rejected.append(Rejected(number, text, f"{exc}; the sentence cannot be used, re-read it"))
+            continue
         if isinstance(msg, pynmea2.GGA):
-            fix = _gga(msg, text, number)
             if fix is None:
                 rejected.append(Rejected(number, text, "GGA sentence without a position (no fix)"))
                 continue
@@ -123,26 +161,23 @@ def parse_nmea(lines: Iterable[str]) -> NmeaLog:
             by_time[fix.time] = fix
             for other, otext, oline in pending.pop(fix.time, []):
                 _merge(fix, other, otext, oline)
-        elif isinstance(msg, (pynmea2.RMC, pynmea2.GST)):
+        elif extra is not None:
             t = msg.timestamp
             if t in by_time:
-                _merge(by_time[t], msg, text, number)
+                _merge(by_time[t], extra, text, number)
             else:
-                pending.setdefault(t, []).append((msg, text, number))
+                pending.setdefault(t, []).append((extra, text, number))
         else:
             ignored += 1
     return NmeaLog(fixes, rejected, ignored)
 
 
-def _merge(fix: Fix, msg: object, text: str, line: int) -> None:
+def _merge(fix: Fix, extra: dict[str, object], text: str, line: int) -> None:
     fix.sentences.append(text)
     fix.lines.append(line)
-    if isinstance(msg, pynmea2.RMC) and msg.datestamp:
-        fix.date = msg.datestamp
-    elif isinstance(msg, pynmea2.GST):
-        fix.sigma_lat_m = _num(msg.std_dev_latitude)
-        fix.sigma_lon_m = _num(msg.std_dev_longitude)
-        fix.sigma_alt_m = _num(msg.std_dev_altitude)
+    for name, value in extra.items():
+        if name != "date" or value is not None:
+            setattr(fix, name, value)
 
 
 @dataclass(frozen=True)

@@ -8,6 +8,8 @@ sight starts at Z + instrument height and ends at the target point Z + target he
 
 from __future__ import annotations
 
+import math
+import numbers
 from dataclasses import dataclass
 
 import numpy as np
@@ -16,7 +18,8 @@ from numpy.typing import ArrayLike, NDArray
 from ..errors import ObservationInvalid
 from .angles import FULL_CIRCLE, to_rad
 
-__all__ = ["EARTH_RADIUS_M", "K_REFRACTION", "Reduced", "Station", "check_shots", "reduce_shots"]
+__all__ = ["EARTH_RADIUS_M", "K_REFRACTION", "Reduced", "Station", "check_finite", "check_shots", "check_station",
+           "reduce_shots"]
 
 # Coefficient of atmospheric refraction: 0.13 is the customary value (Gauss), common practice, no source.
 K_REFRACTION = 0.13
@@ -49,6 +52,34 @@ class Reduced:
     z: F
 
 
+# What each number of a station is, for the fix of a message that refuses it.
+STATION_FIELDS = {
+    "e": "the station's grid easting in metres",
+    "n": "the station's grid northing in metres",
+    "z": "the height of the ground mark in metres",
+    "instrument_height": "the instrument's height above the ground mark in metres",
+    "orientation": "the grid bearing of the zero reading, in the angle unit",
+}
+
+
+def check_finite(name: str, value: object, fix: str) -> float:
+    """``value`` as a float when it is a finite number (not text, not true/false, not NaN or infinity);
+    otherwise ``ObservationInvalid`` naming ``name`` and the value, with ``fix``."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise ObservationInvalid(f"{name} {value!r} is not a number; {fix}")
+    if not math.isfinite(value):
+        raise ObservationInvalid(f"{name} {value!r} is not a finite number; {fix}")
+    return float(value)
+
+
+def check_station(station: Station) -> None:
+    """Refuse a station whose unit is not deg or gon, or one of whose numbers is not finite."""
+    if station.angle_unit not in FULL_CIRCLE:
+        raise ObservationInvalid(f"angle unit {station.angle_unit!r} is not known; use 'deg' or 'gon'")
+    for name, what in STATION_FIELDS.items():
+        check_finite(f"station {name}", getattr(station, name), f"give {what}")
+
+
 def check_shots(hz: F, zenith: F, slope_distance: F, target_height: F, unit: str) -> None:
     """Refuse readings outside their range, naming the first bad shot (0-based index) and its value."""
     full = FULL_CIRCLE[unit]
@@ -79,6 +110,7 @@ def reduce_shots(
     """Grid coordinates of target points from raw readings (arrays or scalars, broadcast together)."""
     hz_a, zen_a, sd_a, th_a = (np.atleast_1d(np.asarray(x, dtype=float)) for x in (hz, zenith, slope_distance, target_height))
     hz_a, zen_a, sd_a, th_a = np.broadcast_arrays(hz_a, zen_a, sd_a, th_a)
+    check_station(station)
     check_shots(hz_a, zen_a, sd_a, th_a, station.angle_unit)
     sd = sd_a + np.asarray(prism_constant_mm, dtype=float) / 1000.0
     z_rad = to_rad(zen_a, station.angle_unit)

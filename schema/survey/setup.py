@@ -12,7 +12,7 @@ import numpy as np
 
 from ..errors import ObservationInvalid, ResectionRejected, WeakGeometry
 from .angles import FULL_CIRCLE, circular_mean, from_rad, signed, to_rad, wrap
-from .polar import check_shots
+from .polar import check_finite, check_shots
 from .similarity import check_geometry, fit_similarity
 
 __all__ = [
@@ -129,6 +129,8 @@ def resect(
     that frame to the grid gives the station (its translation), the orientation (minus its rotation) and the
     scale. Refused when a point's residual exceeds ``tolerance_m``; warned when two points leave no redundancy.
     """
+    check_finite("instrument height", instrument_height, "give the instrument's height above the ground mark in metres")
+    check_finite("tolerance", tolerance_m, "give the largest residual to accept, in metres (e.g. 0.01)")
     if len(observations) < 2:
         raise WeakGeometry(f"a free station needs at least two control points; {len(observations)} given")
     pts = np.array([[o.point.e, o.point.n] for o in observations])
@@ -151,6 +153,9 @@ def resect(
         for c, r in zip(codes, sim.residuals)
     ]
     warnings = []
+    if z is None:
+        warnings.append("no control point has a height (z), so the station has no Z; give the control points' z "
+                        "to get one")
     if len(observations) < 3:
         warnings.append(
             f"only {len(observations)} control points: no redundancy, residuals are zero by construction; "

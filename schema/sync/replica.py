@@ -29,8 +29,9 @@ from .tables import field_version, open_conflict, pending_row, sync_state
 from .upgrade import upgrade
 from .versions import SET_FIELDS, Version, version_id
 
-__all__ = ["Identity", "insert_versions", "load_identity", "materialize", "record_versions", "retry_pending", "row_to_version", "save_identity",
-           "state_get", "state_set", "versions_for_edit"]
+__all__ = ["WAIT_EDIT", "Identity", "insert_versions", "load_identity", "materialize", "record_versions", "retry_pending",
+           "retry_waiting", "row_to_version", "save_identity", "state_get", "state_set", "versions_for_edit", "wait_row",
+           "wait_schema"]
 
 
 
@@ -222,6 +223,14 @@ def _adapter(record: str, fname: str) -> TypeAdapter[Any] | None:
     return TypeAdapter(Annotated[(info.annotation, *meta)] if meta else info.annotation)
 
 
+class _BadValue(Exception):
+    """A field value that does not validate as its field (``exc``: the validation error)."""
+
+    def __init__(self, field: str, exc: Exception):
+        super().__init__(field)
+        self.field, self.exc = field, exc
+
+
 def _row(record: str, values: dict[str, Any], rid: uuid.UUID) -> dict[str, Any]:
     table = metadata.tables[record]
     row: dict[str, Any] = {"id": rid}
@@ -233,8 +242,24 @@ def _row(record: str, values: dict[str, Any], rid: uuid.UUID) -> dict[str, Any]:
             row[col.name] = value
             continue
         adapter = _adapter(record, col.name)
-        row[col.name] = adapter.validate_python(value, strict=False) if adapter else value
+        try:
+            row[col.name] = adapter.validate_python(value, strict=False) if adapter else value
+            if isinstance(col.type, sa.BigInteger):  # past 2^53 - 1: beyond what JSON and a 64-bit column hold
+                row[col.name] = _whole_adapter().validate_python(row[col.name])
+        except ValueError as exc:
+            raise _BadValue(col.name, exc) from None
     return row
+
+
+@functools.lru_cache(maxsize=1)
+def _whole_adapter() -> TypeAdapter[Any]:
+    from typing import Annotated
+
+    from pydantic import Field
+
+    from ..fields import MAX_JSON_INT
+
+    return TypeAdapter(Annotated[int, Field(ge=-MAX_JSON_INT, le=MAX_JSON_INT)])
 
 
 def _with_defaults(record: str, values: dict[str, Any]) -> dict[str, Any]:
@@ -282,51 +307,149 @@ def materialize(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]], *,
     ``known``: versions of these records the caller has just inserted (saves reading them back). Rows are
     written table by table in dependency order, in bulk; a table whose bulk write hits a constraint is redone
     row by row so that only the offending rows become pending.
+
+    A pending row records what it waits for (``pending_row.waits_for``): a missing parent row, the row it clashes
+    with, a Baulk that reads a newer schema, or a new value of its own. The pending rows waiting for a row just
+    written are tried again at once (and those they unblock in turn), so no call reads pending rows that
+    nothing it wrote could unblock.
     """
+    stats, written = _materialize_once(conn, keys, list(known))
+    more = retry_waiting(conn, written)
+    stats["written"] += more["written"]
+    for key in ("retried", "number_clashes"):
+        if key in more:
+            stats[key] = stats.get(key, 0) + more[key]
+    return stats
+
+
+def retry_waiting(conn: Connection, written: Iterable[tuple[str, uuid.UUID]]) -> dict[str, int]:
+    """Try again the pending rows waiting for these rows, just written (a parent, a row they clashed with), and
+    the rows those unblock in turn; the ``waits_for`` index finds them, so rows waiting for anything else are not
+    read at all. ``materialize`` calls it for what it writes; a store calls it for a record it inserts directly."""
+    stats = {"written": 0, "retried": 0}
+    written = list(written)
+    while written:
+        waiting = _waiting_for(conn, written)
+        if not waiting:
+            break
+        more, written = _materialize_once(conn, waiting, [])
+        stats["written"] += more["written"]
+        stats["retried"] += len(waiting)
+        if "number_clashes" in more:
+            stats["number_clashes"] = stats.get("number_clashes", 0) + more["number_clashes"]
+    return stats
+
+
+def _materialize_once(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]],
+                      known: list[Version]) -> tuple[dict[str, int], list[tuple[str, uuid.UUID]]]:
     rank = _dependency_rank()
     todo = sorted(set(keys), key=lambda k: (rank.get(k[0], 99), str(k[1])))
     stats = {"written": 0, "pending": 0}
-    by_record = _version_set(conn, todo, list(known))
+    by_record = _version_set(conn, todo, known)
     grouped = by_record.records()
     finds = [rid for r, rid in todo if r == "find"]
     numbers = _number_pairs(conn, finds)  # before: a renumbered find may end a clash
     _replace_conflicts(conn, todo, by_record)
-    pending: dict[tuple[str, uuid.UUID], str] = {}
+    pending: dict[tuple[str, uuid.UUID], tuple[str, str]] = {}
     ready: dict[str, list[dict[str, Any]]] = {}
     for record, rid in todo:
         values = grouped.get((record, rid), {})
         spec = REGISTRY.get(record)
         if spec is None:  # a record type from a newer Baulk: its versions are kept and passed on, not shown
-            pending[(record, rid)] = f"record type {record!r} is unknown to this Baulk (schema {SCHEMA_VERSION}): update Baulk here"
+            pending[(record, rid)] = _unknown_record(conn, record, by_record.versions_of(record, rid))
             continue
         missing = [f for f, info in spec.model.model_fields.items() if info.is_required() and f != "id" and f not in values]
         if missing:
-            pending[(record, rid)] = f"waiting for fields: {', '.join(missing)}"
+            pending[(record, rid)] = (f"waiting for fields: {', '.join(missing)}", WAIT_EDIT)
             continue
         try:
             ready.setdefault(record, []).append(_row(record, _with_defaults(record, values), rid))
-        except ValueError as exc:  # a value in a shape this Baulk cannot read (a newer tablet's)
-            newest = max((v.schema_version for v in by_record.versions_of(record, rid)), default=SCHEMA_VERSION)
-            pending[(record, rid)] = (f"a value this Baulk cannot read (schema {newest}, this Baulk reads "
-                                      f"{SCHEMA_VERSION}): update Baulk here; {str(exc).splitlines()[0][:200]}")
+        except _BadValue as bad:  # a newer tablet's shape, or a value no Baulk accepts
+            pending[(record, rid)] = _bad_value(conn, record, rid, bad, by_record)
     written: list[tuple[str, uuid.UUID]] = []
     for record in sorted(ready, key=lambda r: rank.get(r, 99)):
         ok, failed = _write_rows(conn, metadata.tables[record], ready[record])
         written.extend((record, rid) for rid in ok)
         pending.update({(record, rid): why for rid, why in failed.items()})
-    for (record, rid), why in pending.items():
-        _pending(conn, record, rid, why)
+    for (record, rid), (why, waits_for) in pending.items():
+        _pending(conn, record, rid, why, waits_for)
     for record in {r for r, _ in written}:
         for chunk in _chunks([rid for r, rid in written if r == record]):
             conn.execute(pending_row.delete().where(pending_row.c.record == record, pending_row.c.record_id.in_(chunk)))
     stats["written"], stats["pending"] = len(written), len(pending)
     if finds:
         stats["number_clashes"] = _number_clashes(conn, numbers | _number_pairs(conn, finds))
-    return stats
+    return stats, written
 
 
-def _write_rows(conn: Connection, table: sa.Table, rows: list[dict[str, Any]]) -> tuple[list[uuid.UUID], dict[uuid.UUID, str]]:
-    """Insert the new rows and update the existing ones; returns (written ids, {refused id: reason})."""
+# What a pending row waits for (``pending_row.waits_for``): a new value of its own record, a Baulk that reads a
+# newer schema, or (``wait_row``) a row of another record: a missing parent, or the row a unique value clashes with.
+WAIT_EDIT = "edit"
+
+
+def wait_schema(n: int) -> str:
+    return f"schema:{n}"
+
+
+def wait_row(record: str, rid: object) -> str:
+    return f"{record}:{rid}"
+
+
+# built once: a local save asks it for every record it inserts
+_WAITING = sa.select(pending_row.c.record, pending_row.c.record_id).where(
+    pending_row.c.waits_for.in_(sa.bindparam("waits", expanding=True)))
+
+
+def _waiting_for(conn: Connection, written: list[tuple[str, uuid.UUID]]) -> list[tuple[str, uuid.UUID]]:
+    """The pending rows whose wait names one of these rows (found through the ``waits_for`` index)."""
+    out: list[tuple[str, uuid.UUID]] = []
+    for chunk in _chunks([wait_row(r, rid) for r, rid in written]):
+        out.extend((r.record, r.record_id) for r in conn.execute(_WAITING, {"waits": chunk}))
+    return out
+
+
+def _labels(conn: Connection, devices: Iterable[uuid.UUID]) -> dict[uuid.UUID, str]:
+    """Device labels this replica knows (the server knows every enrolled device; a tablet only itself)."""
+    t = metadata.tables["device"]
+    ids = list(set(devices))
+    return dict(conn.execute(sa.select(t.c.id, t.c.label).where(t.c.id.in_(ids))).all()) if ids else {}
+
+
+def _who(conn: Connection, device: uuid.UUID) -> str:
+    return _labels(conn, [device]).get(device) or f"device {device}"
+
+
+def _unknown_record(conn: Connection, record: str, versions: list[Version]) -> tuple[str, str]:
+    """Why a record of a type this Baulk does not know is not shown, and the schema it waits for."""
+    newest = max((v.schema_version for v in versions), default=SCHEMA_VERSION)
+    who = _who(conn, versions[0].device) if versions else "a device"
+    if newest > SCHEMA_VERSION:
+        return (f"record type {record!r} (sent by {who}, written in schema {newest}) is unknown to this Baulk "
+                f"(schema {SCHEMA_VERSION}): update Baulk here", wait_schema(newest))
+    return (f"record type {record!r} sent by {who} is not a Baulk record type: its versions say schema {newest}, "
+            f"which this Baulk reads, and that schema has no such record. Its versions are kept but never shown; "
+            f"ask whoever uses {who} which program wrote them.", wait_schema(SCHEMA_VERSION + 1))
+
+
+def _bad_value(conn: Connection, record: str, rid: uuid.UUID, bad: "_BadValue", state: VersionSet) -> tuple[str, str]:
+    """Why a record with a value this Baulk cannot take is not shown: a newer Baulk's shape (wait for an
+    update), or a value that is simply invalid (say which field, who sent it and the fix; wait for a new value)."""
+    from ..validation import field_problem
+
+    current = leaves(state.field_versions((record, rid, bad.field)))
+    sent = current[0] if current else None
+    problem = field_problem(REGISTRY[record].model, bad.field, bad.exc)
+    if sent is not None and sent.schema_version > SCHEMA_VERSION:
+        return (f"a value this Baulk cannot read (schema {sent.schema_version}, this Baulk reads {SCHEMA_VERSION}): "
+                f"update Baulk here; {bad.field}: {problem.message}", wait_schema(sent.schema_version))
+    who = _who(conn, sent.device) if sent is not None else "a device"
+    return (f"{record} {rid} is not shown: {bad.field} sent by {who} is invalid: {problem.message}. It is kept here "
+            f"until a valid value arrives. Fix: {problem.fix}, on {who}, and sync again.", WAIT_EDIT)
+
+
+def _write_rows(conn: Connection, table: sa.Table,
+                rows: list[dict[str, Any]]) -> tuple[list[uuid.UUID], dict[uuid.UUID, tuple[str, str]]]:
+    """Insert the new rows and update the existing ones; returns (written ids, {refused id: (reason, wait)})."""
     existing: set[uuid.UUID] = set()
     for chunk in _chunks([r["id"] for r in rows]):
         existing.update(conn.execute(sa.select(table.c.id).where(table.c.id.in_(chunk))).scalars())
@@ -343,7 +466,7 @@ def _write_rows(conn: Connection, table: sa.Table, rows: list[dict[str, Any]]) -
     except sa.exc.IntegrityError:
         pass  # find which rows: one at a time
     ok: list[uuid.UUID] = []
-    failed: dict[uuid.UUID, str] = {}
+    failed: dict[uuid.UUID, tuple[str, str]] = {}
     for r in rows:
         try:
             with conn.begin_nested():
@@ -353,8 +476,31 @@ def _write_rows(conn: Connection, table: sa.Table, rows: list[dict[str, Any]]) -
                     conn.execute(table.insert().values(r))
             ok.append(r["id"])
         except sa.exc.IntegrityError as exc:
-            failed[r["id"]] = str(exc.orig).splitlines()[0][:300]
+            failed[r["id"]] = _refused_row(conn, table, r, str(exc.orig).splitlines()[0][:300])
     return ok, failed
+
+
+def _refused_row(conn: Connection, table: sa.Table, row: dict[str, Any], error: str) -> tuple[str, str]:
+    """Why the database refused this row, and what it waits for: a parent row not here yet, or the row holding
+    the unique value it clashes with (either, once written or changed, lets it be tried again)."""
+    for col in table.columns:
+        value = row.get(col.name)
+        for fk in col.foreign_keys if value is not None else ():
+            parent = fk.column.table
+            if conn.execute(sa.select(fk.column).where(fk.column == value).limit(1)).first() is None:
+                return (f"waiting for {parent.name} {value} (its {col.name}), which has not arrived here yet",
+                        wait_row(parent.name, value))
+    for unique in (c for c in table.constraints if isinstance(c, sa.UniqueConstraint)):
+        cols = list(unique.columns)
+        if any(row.get(c.name) is None for c in cols):
+            continue
+        other = conn.execute(sa.select(table.c.id).where(table.c.id != row["id"], *[c == row[c.name] for c in cols])
+                             .limit(1)).scalar()
+        if other is not None:
+            said = ", ".join(f"{c.name} {row[c.name]!r}" for c in cols)
+            return (f"{said} is already used by {table.name} {other} here; the two must be told apart (change one of "
+                    "them) before this one can be shown", wait_row(table.name, other))
+    return f"refused by the database: {error}", WAIT_EDIT
 
 
 def _by_keys(rows: list[dict[str, Any]]) -> list[list[dict[str, Any]]]:
@@ -424,16 +570,22 @@ def _number_clashes(conn: Connection, pairs: set[tuple[uuid.UUID, int]]) -> int:
 
 
 def retry_pending(conn: Connection) -> dict[str, int]:
-    """Try the pending rows again (their missing parent may have arrived)."""
-    keys = [(r.record, r.record_id) for r in conn.execute(sa.select(pending_row))]
+    """Try again the pending rows whose wait is over without anything arriving: those waiting for a Baulk that
+    reads their schema (this one, after an update) and those an older Baulk kept without saying what they wait
+    for (once: the retry records their wait). Rows waiting for a parent, a clashing row or a new value of their
+    own are retried by ``materialize`` when that arrives, never here, so a sync's cost does not grow with them."""
+    due = [wait_schema(n) for n in range(1, SCHEMA_VERSION + 1)]
+    q = sa.select(pending_row.c.record, pending_row.c.record_id).where(
+        sa.or_(pending_row.c.waits_for.is_(None), pending_row.c.waits_for.in_(due)))
+    keys = [(r.record, r.record_id) for r in conn.execute(q)]
     return materialize(conn, keys) if keys else {"written": 0, "pending": 0}
 
 
-def _pending(conn: Connection, record: str, rid: uuid.UUID, reason: str) -> None:
+def _pending(conn: Connection, record: str, rid: uuid.UUID, reason: str, waits_for: str) -> None:
     done = conn.execute(pending_row.update().where(pending_row.c.record == record, pending_row.c.record_id == rid)
-                        .values(reason=reason))
+                        .values(reason=reason, waits_for=waits_for))
     if done.rowcount == 0:
-        conn.execute(pending_row.insert().values(record=record, record_id=rid, reason=reason))
+        conn.execute(pending_row.insert().values(record=record, record_id=rid, reason=reason, waits_for=waits_for))
 
 
 def assign_log_positions(conn: Connection) -> int:

@@ -43,6 +43,11 @@ pending_row = sa.Table(
     sa.Column("record", sa.String(40), primary_key=True),
     sa.Column("record_id", sa.Uuid(), primary_key=True),
     sa.Column("reason", sa.String(), nullable=False),
+    sa.Column("waits_for", sa.String(120), nullable=True,
+              comment="what must happen first: '<record>:<id>' a missing parent row, 'table:<record>' a change to "
+                      "that table (a clash), 'schema:<n>' a Baulk that reads schema n, 'edit' a new value of this "
+                      "record; NULL: written by an older Baulk, retried once"),
+    sa.Index(None, "waits_for"),
     comment="Records whose versions are kept but whose visible row cannot be written yet (a missing parent, a clash)",
 )
 

@@ -11,16 +11,17 @@ from __future__ import annotations
 import json
 import re
 import uuid
-from typing import Any
+from typing import Any, Iterable
 
 from typing import Annotated
 
 from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict, Field
 
+from ..errors import VersionIdMismatch
 from .clock import Stamp
 
 __all__ = ["LOCAL_ONLY", "MANAGER_FIELDS", "MANAGER_OWNED", "SERVER_OWNED", "SET_FIELDS", "Version", "batch_hash",
-           "needs_manager", "version_id"]
+           "check_version_ids", "misnamed", "needs_manager", "version_id"]
 
 # Fields that merge as add/remove sets rather than one value (record name -> field names).
 SET_FIELDS: dict[str, frozenset[str]] = {"find": frozenset({"photo_hashes"})}
@@ -79,6 +80,30 @@ def batch_hash(versions: "list[Version]") -> str:
 
 def version_id(device: uuid.UUID, seq: int) -> str:
     return f"{device}:{seq}"
+
+
+def misnamed(versions: "Iterable[Version]") -> "Version | None":
+    """The first version whose id is not ``<its device>:<its sequence>`` (``version_id``), or None.
+
+    A version's id is its identity on every replica: one whose id named another device's sequence (or another
+    sequence of its own device) would make the real version of that id a duplicate, skipped and lost for good.
+    """
+    for v in versions:
+        if v.id != version_id(v.device, v.seq):
+            return v
+    return None
+
+
+def check_version_ids(versions: "Iterable[Version]", *, where: str, fix: str) -> None:
+    """Refuse the whole lot (``VersionIdMismatch``) if any version's id is not its device and sequence.
+
+    ``where`` names what carried them (``batch 3 of TAB-1``), ``fix`` says what to do, as a sentence."""
+    bad = misnamed(versions)
+    if bad is not None:
+        raise VersionIdMismatch(
+            f"{where} holds a version of {bad.record}.{bad.field} of {bad.record} {bad.record_id} named "
+            f"{bad.id!r}, but a version's id must be its device and sequence, {version_id(bad.device, bad.seq)!r}; "
+            f"nothing of it was applied. {fix}")
 
 
 def _integral(value: Any) -> Any:

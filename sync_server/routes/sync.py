@@ -13,7 +13,7 @@ from schema.sync import Version
 from schema.sync.versions import Whole
 
 from ..auth import require
-from ..sync import MAX_BATCH, MAX_PAGE, apply_push, list_conflicts, pull_page, resolve_conflict
+from ..sync import MAX_BATCH, MAX_PAGE, apply_push, list_conflicts, list_pending, pull_page, resolve_conflict
 
 router = APIRouter(prefix="/v1", tags=["sync"])
 
@@ -47,7 +47,8 @@ class PushAck(BaseModel):
     duplicates: int = Field(description="versions the server held already")
     ignored: int = Field(description="versions of server-owned records (devices, number blocks), never taken from a device")
     refused: list[Refused] = Field(
-        default=[], description="versions of set-up records or fields only a manager device or the server may write")
+        default=[], description="versions of set-up records or fields only a manager device or the server may "
+                                "write, and find numbers past 2^53 - 1")
     rows_written: int
     pending_rows: int
     conflicts_open: int
@@ -95,6 +96,8 @@ class Resolution(BaseModel):
     record_id: uuid.UUID
     field: str = Field(max_length=60, examples=["unit_id"])
     value: Any
+    confirm_far: bool = Field(default=False, description="a new find number more than 10 blocks above the highest "
+                                                         "issued is meant (otherwise it is refused, 409)")
 
 
 def _push_schema() -> dict[str, Any]:
@@ -142,5 +145,31 @@ def conflicts(request: Request, _device: Manager) -> ConflictsPublic:
 @router.post("/conflicts/resolve")
 def resolve(request: Request, body: Resolution, _device: Manager) -> dict[str, Any]:
     """Resolve a conflict with a value: a new version whose parents are all the competing ones."""
-    return resolve_conflict(request.app.state.store, record=body.record, record_id=body.record_id,
-                            field=body.field, value=body.value)
+    from schema.errors import NumberTooFar
+
+    try:
+        return resolve_conflict(request.app.state.store, record=body.record, record_id=body.record_id,
+                                field=body.field, value=body.value, confirm_far=body.confirm_far)
+    except NumberTooFar as exc:
+        raise exc.confirm_with('"confirm_far": true in the request') from None
+
+
+class PendingPublic(BaseModel):
+    record: str
+    record_id: str
+    reason: str = Field(description="a sentence: what is wrong or missing, who sent it, and the fix")
+    waits_for: str | None = Field(description="'<record>:<id>' a missing parent or the row it clashes with, "
+                                              "'schema:<n>' a Baulk that reads schema n, 'edit' a new value of it")
+
+
+class PendingList(BaseModel):
+    data: list[PendingPublic]
+    count: int = Field(description="every pending row held (data shows at most `limit` of them)")
+
+
+@router.get("/pending", response_model=PendingList)
+def pending(request: Request, _device: Manager,
+            limit: Annotated[int, Query(ge=1, le=MAX_PAGE)] = 500) -> dict[str, Any]:
+    """Records held but not shown yet, each with its reason (an invalid value, who sent it and the fix) and what
+    it waits for."""
+    return list_pending(request.app.state.store, limit=limit)

@@ -27,7 +27,7 @@ from fastapi.templating import Jinja2Templates
 
 from schema.records import Device, Find, Trench, Unit
 from schema.records.safety import KIND_LABELS
-from schema.errors import BaulkError
+from schema.errors import BaulkError, NumberTooFar
 from schema.tables import metadata
 
 from ..safety import KINDS, safety_log, safety_summary
@@ -197,7 +197,11 @@ async def resolve(request: Request) -> Response:
         value = typed  # typed text that is not JSON is taken as text
     try:
         done = resolve_conflict(request.app.state.store, record=form.get("record", ""),
-                                record_id=uuid.UUID(form.get("record_id", "")), field=form.get("field", ""), value=value)
+                                record_id=uuid.UUID(form.get("record_id", "")), field=form.get("field", ""), value=value,
+                                confirm_far=form.get("confirm_far") == "yes")
+    except NumberTooFar as exc:
+        far = exc.confirm_with('tick "the new number is meant to be far above the issued blocks" and settle again')
+        return RedirectResponse(f"/camp/conflicts?message={_q(f'not settled: {far}')}", status_code=303)
     except (BaulkError, ValueError) as exc:
         return RedirectResponse(f"/camp/conflicts?message={_q(f'not settled: {exc}')}", status_code=303)
     note = "settled" if not done.get("still_open") else "a new version was written, but a conflict remains"
@@ -207,7 +211,7 @@ async def resolve(request: Request) -> Response:
 def _q(text: str) -> str:
     from urllib.parse import quote
 
-    return quote(text[:300])
+    return quote(text[:600])
 
 
 # -- checks ---------------------------------------------------------------------------------------------------

@@ -122,8 +122,28 @@ def test_inspect_reports_without_changing(tablet: TabletStore, demo_site: DemoSi
 def test_inspect_refuses_a_file_that_is_not_a_store(tmp_path) -> None:  # type: ignore[no-untyped-def]
     junk = tmp_path / "junk.sqlite"
     junk.write_bytes(b"this is not a database" * 100)
-    with pytest.raises(StoreError, match="is not a readable tablet file"):
+    with pytest.raises(StoreError) as exc:
         inspect_file(junk)
+    assert str(exc.value) == (f"{junk} is not a tablet file (it is not a SQLite database); check the path and give "
+                              "the tablet's own .sqlite file")
+
+
+def test_opening_another_programs_database_adds_nothing_to_it(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """A SQLite file of another program (or a camp server store) is refused before the tablet's tables are made in
+    it; an empty file is a new tablet file."""
+    other = tmp_path / "birds.sqlite"
+    with sqlite3.connect(other) as conn:
+        conn.execute("CREATE TABLE sighting (species TEXT)")
+    conn.close()
+    before = other.read_bytes()
+    with pytest.raises(StoreError) as exc:
+        TabletStore.open(other)
+    assert str(exc.value) == (f"{other} is not a tablet file (it is a SQLite database without Baulk's tablet "
+                              "tables); check the path and give the tablet's own .sqlite file")
+    assert other.read_bytes() == before and sorted(p.name for p in tmp_path.iterdir()) == ["birds.sqlite"]
+    (tmp_path / "new.sqlite").touch()
+    with TabletStore.open(tmp_path / "new.sqlite") as store:
+        assert store.integrity_check() == "ok"
 
 
 def test_the_log_is_copied_back_when_the_app_is_idle(tablet, demo_site) -> None:  # type: ignore[no-untyped-def]

@@ -189,11 +189,11 @@ def test_a_number_used_twice_reaches_the_server_as_a_conflict_and_is_renumbered(
     listed = http.get("/v1/conflicts", headers={"Authorization": f"Bearer {manager_token}"}).json()
     assert {c["kind"] for c in listed["data"]} == {"duplicate_number"}
     r = http.post("/v1/conflicts/resolve", headers={"Authorization": f"Bearer {manager_token}"},
-                  json={"record": "find", "record_id": str(b.id), "field": "number", "value": 9001})
+                  json={"record": "find", "record_id": str(b.id), "field": "number", "value": 4001})
     assert r.status_code == 200 and r.json()["still_open"] is None, r.text
     assert list_conflicts(server) == []
     c2.sync()
-    assert t2.get(Find, b.id).number == 9001 and t2.get(Find, a.id).number == 1
+    assert t2.get(Find, b.id).number == 4001 and t2.get(Find, a.id).number == 1
 
 
 def test_a_void_against_an_unseen_edit_is_a_conflict_and_a_restore_travels(camp) -> None:  # type: ignore[no-untyped-def]
