@@ -31,15 +31,22 @@ def _versions(demo: Any, n: int, device: uuid.UUID, *, first_number: int = 1) ->
     return out
 
 
-def _setup(size: int, work: Path) -> dict[str, Any]:
+def _template(work: Path, *, block: int) -> tuple[Path, Any, Any, str]:
+    """A server store file with the demo site set up and TAB-1 enrolled with one block of ``block`` numbers:
+    (path, demo site, device, token)."""
     template = work / "template.sqlite"
     demo = build_site()
     with ServerStore.open(f"sqlite:///{template}") as server:
         with server.atomic():
             for r in demo.setup_records():
                 server.add(r)
-        device, _token = server.add_device(label="TAB-1", role="recorder")
-        server.issue_number_block(device_id=device.id, size=10**6)
+        device, token = server.add_device(label="TAB-1", role="recorder")
+        server.issue_number_block(device_id=device.id, size=block)
+    return template, demo, device, token
+
+
+def _setup(size: int, work: Path) -> dict[str, Any]:
+    template, demo, device, _token = _template(work, block=10**6)
     versions = _versions(demo, size, device.id)
     rows = [{**v.model_dump(mode="json"), "record_id": v.record_id, "device": v.device, "parents": list(v.parents),
              "batch": 1, "log_seq": None} for v in versions]
@@ -287,14 +294,7 @@ def _setup_import(size: int, work: Path) -> dict[str, Any]:
 
     from schema.sync.bundle import write_bundle
 
-    template = work / "template.sqlite"
-    demo = build_site()
-    with ServerStore.open(f"sqlite:///{template}") as server:
-        with server.atomic():
-            for r in demo.setup_records():
-                server.add(r)
-        device, token = server.add_device(label="TAB-1", role="recorder")
-        server.issue_number_block(device_id=device.id, size=10**7)
+    template, demo, device, token = _template(work, block=10**7)
     versions = _versions(demo, size, device.id)
     batches = [(n, versions[i:i + 500]) for n, i in enumerate(range(0, len(versions), 500), start=1)]
     bundle = work / "day.baulkbundle"

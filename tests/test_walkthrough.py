@@ -17,34 +17,30 @@ from pathlib import Path
 import httpx
 import pytest
 
-SETUP = """\
-control_points_csv = "control.csv"
+README = Path(__file__).resolve().parents[1] / "README.md"
 
-[site]
-code = "MHW"
-name = "Marl Hollow"
-crs_epsg = 32737
-timezone = "Africa/Nairobi"
-country_code = "KE"
-z_tolerance_m = 0.05
-shoring_check_depth_m = 1.2
-number_block_size = 200
 
-[season]
-label = "2027"
-starts_on = 2027-06-14
+def _readme_section() -> str:
+    text = README.read_text()
+    return text[text.index("## Your own site"):text.index("## What works today")]
 
-[[trench]]
-code = "A"
-outline = [[502, 1004], [506, 1004], [506, 1008], [502, 1008]]
-"""
 
-CONTROL = """\
-code,e,n,z,crs_e,crs_n
-MH1,500.000,1000.000,50.000,171179.932,9871258.390
-MH2,530.000,1002.000,49.800,171209.769,9871262.008
-MH3,512.000,1030.000,50.400,171190.288,9871288.984
-"""
+def _block(lang: str) -> str:
+    """The first fenced block of ``lang`` in README's "Your own site": the test uses the files README shows."""
+    section = _readme_section()
+    start = section.index(f"```{lang}\n") + len(lang) + 4
+    return section[start:section.index("```", start)]
+
+
+SETUP = _block("toml")
+CONTROL = _block("csv")
+
+
+def _in_readme(*args: str) -> None:
+    """Each command the test runs is written in README's walkthrough as a reader would type it."""
+    shown = " ".join(f'"{a}"' if " " in a else a for a in args)
+    assert f"baulk {shown}" in _readme_section(), f"README's 'Your own site' does not show: baulk {shown}"
+
 
 DATES = """\
 unit,method,age_ka,sigma_ka,lab_code
@@ -58,7 +54,9 @@ def _free_port() -> int:
         return int(s.getsockname()[1])
 
 
-def _baulk(*args: str, env: dict[str, str], cwd: Path, ok: tuple[int, ...] = (0,)) -> str:
+def _baulk(*args: str, env: dict[str, str], cwd: Path, ok: tuple[int, ...] = (0,), shown: bool = True) -> str:
+    if shown:
+        _in_readme(*args)
     r = subprocess.run([sys.executable, "-m", "sync_server.cli", *args], env=env, cwd=cwd, capture_output=True,
                        text=True, timeout=300)
     assert r.returncode in ok, f"baulk {' '.join(args)} exited {r.returncode}:\n{r.stdout}\n{r.stderr}"
@@ -80,13 +78,14 @@ def test_your_own_site_from_set_up_file_to_per_horizon_tables(camp) -> None:  # 
     # 1. baulk site init: checked whole, then written; the grid fitted from the three control points
     out = _baulk("site", "init", "site.toml", env=env, cwd=tmp)
     assert out.startswith("site MHW (Marl Hollow) set up in sqlite:///")
-    assert "season 2027, 3 control points, trenches A" in out
+    assert "season 2027, 4 control points, trenches A, B" in out
     assert "site grid: rotation 3.1" in out
     again = subprocess.run([sys.executable, "-m", "sync_server.cli", "site", "init", "site.toml"], env=env, cwd=tmp,
                            capture_output=True, text=True)
     assert again.returncode == 1 and "this store already holds site MHW (Marl Hollow)" in again.stderr
-    show = _baulk("site", "show", "--json", env=env, cwd=tmp)
+    show = _baulk("site", "show", "--json", env=env, cwd=tmp, shown=False)
     assert json.loads(show)["site"]["number_block_size"] == 200
+    assert "export BAULK_SERVER_DATABASE_URL=sqlite:///" in _readme_section()  # how README names the store once
 
     # 2. baulk serve, on loopback
     port = _free_port()
@@ -115,8 +114,9 @@ def _walk(tmp: Path, env: dict[str, str], url: str) -> None:
     from mobile.store import TabletStore
 
     # 3. enrol a tablet: the code from baulk device add --json, typed on the tablet's Camp screen
+    _in_readme("device", "add", "--role", "recorder", "--label", "TAB-1")
     added = json.loads(_baulk("device", "add", "--role", "recorder", "--label", "TAB-1", "--json", "--server", url,
-                              env=env, cwd=tmp))
+                              env=env, cwd=tmp, shown=False))
     assert added["device"]["label"] == "TAB-1" and added["enrol_line"].startswith("baulk-enrol:")
     tablet = TabletStore.open(tmp / "TAB-1.sqlite")
     link = CampLink(tablet)
