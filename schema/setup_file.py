@@ -40,7 +40,6 @@ only when present, as DESIGN.md section 4.3 asks of every PROJ use.
 
 from __future__ import annotations
 
-import datetime as dt
 import difflib
 import math
 import re
@@ -470,14 +469,3 @@ def _centre(trenches: list[Trench], control: list[ControlPoint]) -> tuple[float,
         return None
     return (sum(p[0] for p in pts) / len(pts), sum(p[1] for p in pts) / len(pts))
 
-
-def season_dates(starts_on: str | dt.date, ends_on: str | dt.date | None) -> tuple[dt.date, dt.date | None]:
-    """Dates typed on the command line (YYYY-MM-DD)."""
-    def one(v: str | dt.date) -> dt.date:
-        if isinstance(v, dt.date):
-            return v
-        try:
-            return dt.date.fromisoformat(v)
-        except ValueError:
-            raise InputFileInvalid(f"date {v!r} is not YYYY-MM-DD; write it as e.g. 2027-06-14") from None
-    return one(starts_on), (one(ends_on) if ends_on is not None else None)

@@ -127,3 +127,24 @@ def safety_day(server: Any, demo: DemoSite, http: Any, tmp: Any) -> Any:
     c1.sync()
     return bone
 
+
+# Debian's Chromium, started the way this machine's closed network needs (no background connections)
+CHROMIUM_FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
+                  "--disable-component-update", "--disable-sync"]
+
+
+def chromium_or_skip() -> tuple[str, Any]:
+    """(Chromium's path, playwright.sync_api) for a browser test module, or a module-level skip naming the fix
+    (under CI a skipped ``browser`` test is a failure: tests/conftest.py)."""
+    import os
+    import shutil
+    from pathlib import Path
+
+    import pytest
+
+    path = os.environ.get("BAULK_CHROMIUM", "/usr/bin/chromium")
+    if not shutil.which(path) and not Path(path).exists():
+        pytest.skip(f"no Chromium at {path}: install Debian's chromium package (.ci/run does)", allow_module_level=True)
+    api = pytest.importorskip("playwright.sync_api", reason="Playwright drives the browser (in the test extra)")
+    return path, api
+

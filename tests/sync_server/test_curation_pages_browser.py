@@ -5,18 +5,14 @@ Screenshots are kept in the test's folder."""
 
 from __future__ import annotations
 
-import os
-import shutil
 from pathlib import Path
 
 import pytest
 
-CHROMIUM = os.environ.get("BAULK_CHROMIUM", "/usr/bin/chromium")
-pytestmark = pytest.mark.browser
+from tests.helpers import CHROMIUM_FLAGS, chromium_or_skip  # noqa: E402
 
-if not shutil.which(CHROMIUM) and not Path(CHROMIUM).exists():
-    pytest.skip(f"no Chromium at {CHROMIUM}: install Debian's chromium package (.ci/run does)", allow_module_level=True)
-playwright_api = pytest.importorskip("playwright.sync_api", reason="Playwright drives the browser (in the test extra)")
+pytestmark = pytest.mark.browser
+CHROMIUM, playwright_api = chromium_or_skip()
 
 from schema.demo_site import fit_demo_grid  # noqa: E402
 from schema.records import AgeDetermination, Find, Unit  # noqa: E402
@@ -25,8 +21,7 @@ from sync_server.curation import list_horizons  # noqa: E402
 from sync_server.loopback import serve_in_thread  # noqa: E402
 from tests.helpers import find_data, seeded_server  # noqa: E402
 
-FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
-         "--disable-component-update", "--disable-sync"]
+FLAGS = CHROMIUM_FLAGS
 WIDTHS = {"phone": (390, 844), "laptop": (1366, 768)}
 
 

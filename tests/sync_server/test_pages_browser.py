@@ -6,20 +6,16 @@ from __future__ import annotations
 
 import datetime as dt
 import io
-import os
-import shutil
 import zipfile
 from pathlib import Path
 
 import httpx
 import pytest
 
-CHROMIUM = os.environ.get("BAULK_CHROMIUM", "/usr/bin/chromium")
-pytestmark = pytest.mark.browser
+from tests.helpers import CHROMIUM_FLAGS, chromium_or_skip  # noqa: E402
 
-if not shutil.which(CHROMIUM) and not Path(CHROMIUM).exists():
-    pytest.skip(f"no Chromium at {CHROMIUM}: install Debian's chromium package (.ci/run does)", allow_module_level=True)
-playwright_api = pytest.importorskip("playwright.sync_api", reason="Playwright drives the browser (in the test extra)")
+pytestmark = pytest.mark.browser
+CHROMIUM, playwright_api = chromium_or_skip()
 
 from mobile.sync import SyncClient  # noqa: E402
 from schema.records import Find, SafetyCheck  # noqa: E402
@@ -28,8 +24,7 @@ from sync_server.loopback import serve_in_thread  # noqa: E402
 from sync_server.sync import list_conflicts  # noqa: E402
 from tests.helpers import enrolled_tablet, find_data, seeded_server, unit_conflict  # noqa: E402
 
-FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
-         "--disable-component-update", "--disable-sync"]
+FLAGS = CHROMIUM_FLAGS
 
 
 def test_a_manager_works_through_the_evening_in_a_browser(tmp_path: Path) -> None:
