@@ -1,32 +1,133 @@
-"""Exporting a bundle on the tablet: every batch the server has not acknowledged, in one sealed file."""
+"""Bundles on the tablet, both ways over a USB stick.
+
+- ``export_bundle``: every batch the server has not acknowledged, in one sealed file, with the camp change-log
+  position this tablet has pulled up to (the camp server writes the tablet's return bundle from there).
+- ``read_return_bundle``: a return bundle the camp server wrote for this tablet (``baulk bundle for-tablet``),
+  checked whole, then applied exactly as pull pages (``mobile.sync.apply_page``) in one transaction, once: a
+  bundle read again, or one whose changes arrived by a sync meanwhile, changes nothing. The batches it says
+  the camp holds are marked acknowledged, so the next bundle leaves them out.
+"""
 
 from __future__ import annotations
 
+import datetime as dt
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from schema.errors import StoreError
+import sqlalchemy as sa
+
+from schema.errors import BundleLeavesGap, StoreError
 from schema.records import Device
 from schema.sync.bundle import write_bundle
+from schema.sync.replica import state_get
+from schema.sync.return_bundle import RETURN_SUFFIX, open_return_bundle, safe_label
+from schema.sync.tables import open_conflict
 
 from . import outbox
 from .store import TabletStore
+from .sync import apply_page, cursor_of, pending_count
 
-__all__ = ["export_bundle"]
+__all__ = ["ReturnRead", "export_bundle", "find_return_bundle", "read_return_bundle"]
+
+
+def _enrolled(store: TabletStore) -> tuple[Any, str, str]:
+    device_id, token = store.device_id(), store.token()
+    if device_id is None or token is None:
+        raise StoreError("this tablet is not enrolled (no device or token); enrol it with the camp server first")
+    return device_id, token, store.get(Device, device_id).label
 
 
 def export_bundle(store: TabletStore, out: Path, *, batch_size: int = 500) -> dict[str, Any]:
     """Write the unacknowledged batches to ``out`` (a folder gets a dated file name); returns the manifest."""
-    device_id, token = store.device_id(), store.token()
-    if device_id is None or token is None:
-        raise StoreError("this tablet is not enrolled (no device or token); enrol it with the camp server first")
+    device_id, token, label = _enrolled(store)
     outbox.cut_batches(store, size=batch_size)
     batches = [(n, outbox.batch_versions(store, n)) for n in outbox.unacked_batches(store)]
-    label = store.get(Device, device_id).label
+    with store.read() as conn:
+        cursor = cursor_of(conn)
     out = Path(out)
     if out.is_dir():
-        import datetime as dt
-
         out = out / f"{label}-{dt.datetime.now(dt.timezone.utc):%Y%m%dT%H%M%SZ}.baulkbundle"
-    manifest = write_bundle(out, device=device_id, label=label, token=token, batches=batches)
+    manifest = write_bundle(out, device=device_id, label=label, token=token, batches=batches, cursor=cursor)
     return {"path": str(out), **manifest}
+
+
+@dataclass(frozen=True)
+class ReturnRead:
+    """What reading a return bundle did, and ``sentence()`` to say it in plain words."""
+
+    path: Path
+    changes: int  # versions the bundle carries
+    applied: int  # of them, new on this tablet
+    reached: int  # the camp change-log position this tablet now holds everything up to
+    already: bool  # read before (or its changes came by a sync): nothing changed
+    new_blocks: list[tuple[int, int]] = field(default_factory=list)
+    conflicts_settled: int = 0
+    confirmed: int = 0  # this tablet's own changes the camp confirmed it holds
+    numbers_left: int = 0
+
+    def sentence(self) -> str:
+        if self.already:
+            return (f"{self.path.name} was read before: this tablet already holds every change in it (camp changes "
+                    f"up to {self.reached}), so nothing changed.")
+        held = self.changes - self.applied
+        text = (f"Read {self.path.name}: {self.applied} new change{'' if self.applied == 1 else 's'} on this tablet"
+                + (f" ({self.changes} in the bundle; {held} were here already)." if held else "."))
+        if self.new_blocks:
+            spans = ", ".join(f"{a}-{b}" for a, b in self.new_blocks)
+            text += f" New find numbers: {spans}."
+        if self.conflicts_settled:
+            text += f" {self.conflicts_settled} conflict{'' if self.conflicts_settled == 1 else 's'} settled at camp."
+        if self.confirmed:
+            text += f" The camp confirmed {self.confirmed} change{'' if self.confirmed == 1 else 's'} this tablet sent."
+        return text + f" Find numbers left: {self.numbers_left}."
+
+
+def find_return_bundle(folder: Path, label: str) -> Path:
+    """The newest return bundle for ``label`` in ``folder`` (by the time in its name)."""
+    mine = sorted(folder.glob(f"{safe_label(label)}-from-camp-*{RETURN_SUFFIX}"))
+    if mine:
+        return mine[-1]
+    others = sorted(p.name for p in folder.glob(f"*{RETURN_SUFFIX}"))
+    more = ", ..." if len(others) > 3 else ""
+    held = f" (it holds {', '.join(others[:3])}{more}, for other tablets)" if others else ""
+    raise StoreError(f"the folder {folder} holds no return bundle for {label}{held}; ask the data manager to write "
+                     f"one with baulk bundle for-tablet {label} --out <the stick>, or choose the bundle file itself")
+
+
+def read_return_bundle(store: TabletStore, path: Path) -> ReturnRead:
+    """Check the return bundle at ``path`` (a file, or a folder holding this tablet's newest) whole, then apply
+    its pages as pull pages in one transaction; a bundle that fails any check changes nothing."""
+    device_id, token, label = _enrolled(store)
+    path = Path(path)
+    if path.is_dir():
+        path = find_return_bundle(path, label)
+    with open_return_bundle(path, device=device_id, token=token, label=label) as bundle:
+        with store.read() as conn:
+            cursor = cursor_of(conn)
+        if bundle.next <= cursor and bundle.acked <= outbox.acked(store):
+            return ReturnRead(path, bundle.versions, 0, cursor, already=True, numbers_left=store.numbers_left())
+        if bundle.after > cursor:
+            raise BundleLeavesGap(
+                f"{path.name} starts after camp change {bundle.after}, but this tablet holds the camp's changes "
+                f"only up to {cursor} (an older return bundle was not read, or this tablet file was restored from a "
+                "copy); nothing was read. Read the older return bundle first, or write a bundle on this tablet (it "
+                "tells the camp where this tablet stands), have it imported, and ask for a new return bundle for "
+                f"{label}")
+        blocks, unsent = {(b.first, b.last) for b in store.number_blocks()}, pending_count(store)
+        with store.atomic() as conn:
+            open_before = _open_conflicts(conn)
+            applied = 0
+            for _after, page_next, versions in bundle.pages():
+                applied += len(apply_page(conn, versions, page_next))
+            outbox.mark_acked(store, min(bundle.acked, int(state_get(conn, "last_batch", "0") or 0)))
+            settled = max(0, open_before - _open_conflicts(conn))
+            reached = cursor_of(conn)
+    new_blocks = sorted({(b.first, b.last) for b in store.number_blocks()} - blocks)
+    return ReturnRead(path, bundle.versions, applied, reached, already=False, new_blocks=new_blocks,
+                      conflicts_settled=settled, confirmed=unsent - pending_count(store),
+                      numbers_left=store.numbers_left())
+
+
+def _open_conflicts(conn: sa.Connection) -> int:
+    return int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one())

@@ -43,6 +43,10 @@ _IN_BLOCK = sa.select(_BLOCKS.c.id).where(_BLOCKS.c.device_id == sa.bindparam("m
 _FINDS = metadata.tables["find"]
 _TAKEN = sa.select(_FINDS.c.id).where(_FINDS.c.site_id == sa.bindparam("site"), _FINDS.c.number == sa.bindparam("n"),
                                       _FINDS.c.id != sa.bindparam("me")).limit(1)
+# the highest number of this device's own finds inside one of its blocks (the device_id/number index)
+_USED_IN = sa.select(sa.func.max(_FINDS.c.number)).where(
+    _FINDS.c.device_id == sa.bindparam("me"), _FINDS.c.number >= sa.bindparam("first"),
+    _FINDS.c.number <= sa.bindparam("last"))
 
 
 class TabletStore(RecordStore):
@@ -154,18 +158,27 @@ class TabletStore(RecordStore):
         return self.list(NumberBlock, device_id=me, order_by="first")
 
     def next_find_number(self) -> int:
-        """The next unused number from this device's blocks."""
+        """The next number of this device's blocks after the highest it used inside them. A number of its own
+        finds outside its blocks (a camp renumbering, an edit an older Baulk let through) uses none of them."""
         me = self.device_id()
         blocks = self.number_blocks()
         with self.read() as conn:
-            t = metadata.tables["find"]
-            used = conn.execute(sa.select(sa.func.max(t.c.number)).where(t.c.device_id == me)).scalar() or 0
+            used = max((conn.execute(_USED_IN, {"me": me, "first": b.first, "last": b.last}).scalar() or 0
+                        for b in blocks), default=0)
         for b in blocks:
             if b.last > used:
                 return max(b.first, used + 1)
         raise NoNumbersLeft(
             "this tablet has used every find number it was issued; sync with the camp server to get a new block"
         )
+
+    def numbers_left(self) -> int:
+        """Find numbers this device can still give without a new block (0 when every one is used)."""
+        try:
+            nxt = self.next_find_number()
+        except NoNumbersLeft:
+            return 0
+        return sum(b.last - max(b.first, nxt) + 1 for b in self.number_blocks() if b.last >= nxt)
 
     # -- finds ---------------------------------------------------------------------------------------------
     def save_find(self, *, find: Find | dict[str, Any], sample: Sample | dict[str, Any] | None = None) -> Find:
@@ -176,14 +189,31 @@ class TabletStore(RecordStore):
             if me is not None:
                 data.setdefault("device_id", me)
             saved = check(Find, data)
-            if me is not None and saved.device_id == me and not self._in_my_blocks(conn, me, saved.number):
-                check(Find, data, context={"number_blocks": self.number_blocks()})  # raises, naming the blocks
-            self._refuse_taken_number(conn, saved)
+            self._check_number(conn, saved, data)
             details = self._sample_for(saved, sample)
             self.save_versioned(conn, saved, new=True)
             if details is not None:
                 self.save_versioned(conn, details, new=True)
         return saved
+
+    def update_find(self, *, find: Find | dict[str, Any]) -> Find:
+        """Validate and save an edited find; a changed number follows the rules of a save (``_check_number``).
+        An unchanged number is not judged again: a number the camp gave (a renumbering) stays editable."""
+        data = find.model_dump() if isinstance(find, Find) else dict(find)
+        with self.atomic() as conn:
+            saved = check(Find, data)
+            if db.get(conn, Find, saved.id).number != saved.number:
+                self._check_number(conn, saved, data)
+            self.save_versioned(conn, saved, new=False)
+        return saved
+
+    def _check_number(self, conn: Connection, find: Find, data: dict[str, Any]) -> None:
+        """The number rules of a new find and of a number edit: a find of this device takes a number from this
+        device's blocks, and no other find of the site holds it."""
+        me = self.device_id()
+        if me is not None and find.device_id == me and not self._in_my_blocks(conn, me, find.number):
+            check(Find, data, context={"number_blocks": self.number_blocks()})  # raises, naming the blocks
+        self._refuse_taken_number(conn, find)
 
     @staticmethod
     def _in_my_blocks(conn: Connection, me: uuid.UUID, number: int) -> bool:

@@ -15,6 +15,7 @@ from typing import Any, Callable
 
 import httpx
 import sqlalchemy as sa
+from sqlalchemy.engine import Connection
 
 from schema.errors import SyncError
 from schema.sync import Version, batch_hash
@@ -25,7 +26,7 @@ from schema.sync.tables import field_version
 from . import outbox
 from .store import TabletStore
 
-__all__ = ["Progress", "SyncClient", "SyncReport", "pending_count"]
+__all__ = ["Progress", "SyncClient", "SyncReport", "apply_page", "cursor_of", "pending_count"]
 
 Progress = Callable[[str, int, int], None]
 
@@ -43,6 +44,29 @@ class SyncReport:
     # versions the server would not take from this device (set-up records only a manager writes), with the
     # server's reason; acknowledged with their batch, so they are never sent again
     refused: list[dict[str, Any]] = field(default_factory=list)
+
+
+def apply_page(conn: Connection, versions: list[Version], next_cursor: int) -> list[Version]:
+    """Apply one page of the camp's change log in the caller's transaction: the versions not held yet are
+    inserted, their records' rows rebuilt, rows waiting for them retried, the clock moved past every stamp, and
+    the cursor moved to ``next_cursor`` (never back: a page read again changes nothing). Returns the versions
+    that were new here. A pull and a return bundle (``mobile.bundles``) apply their pages through it; the caller
+    checks the versions' ids first (``check_version_ids``)."""
+    ident = load_identity(conn)
+    for v in versions:
+        ident.clock.observe(v.stamp)
+    new = insert_versions(conn, versions)
+    materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
+    retry_pending(conn)
+    state_set(conn, "cursor", max(cursor_of(conn), next_cursor))
+    state_set(conn, "hlc_wall", ident.clock.last.wall_ms)
+    state_set(conn, "hlc_counter", ident.clock.last.counter)
+    return new
+
+
+def cursor_of(conn: Connection) -> int:
+    """The camp change-log position this tablet has applied everything up to (0: nothing yet)."""
+    return int(state_get(conn, "cursor", "0") or 0)
 
 
 def pending_count(store: TabletStore) -> int:
@@ -112,22 +136,14 @@ class SyncClient:
     def pull(self, report: SyncReport) -> None:
         while True:
             with self.store.read() as conn:
-                cursor = int(state_get(conn, "cursor", "0") or 0)
+                cursor = cursor_of(conn)
             page = self._call("GET", "/v1/sync/pull", params={"after": cursor, "limit": self.page_size})
             versions = [Version.model_validate(v, strict=False) for v in page["versions"]]
             check_version_ids(versions, where=f"the camp server's page of changes after {cursor}", fix=(
                 "A version is named by the device that made it, so the camp server holds a version it should have "
                 "refused; update Baulk on the camp server, then sync again."))
             with self.store.atomic() as conn:
-                ident = load_identity(conn)
-                for v in versions:
-                    ident.clock.observe(v.stamp)
-                new = insert_versions(conn, versions)
-                materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
-                retry_pending(conn)
-                state_set(conn, "cursor", page["next"])
-                state_set(conn, "hlc_wall", ident.clock.last.wall_ms)
-                state_set(conn, "hlc_counter", ident.clock.last.counter)
+                new = apply_page(conn, versions, page["next"])
             report.pulled_versions += len(versions)
             report.applied_versions += len(new)
             self.progress("pull", report.pulled_versions, report.pulled_versions + (self.page_size if page["more"] else 0))

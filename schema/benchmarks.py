@@ -122,3 +122,78 @@ benchmark(Bench(
     repeats=3,
     doc="load a site and run every rule over n finds, 500 units with surfaces, vs a plain SQL scan; goal <= 5x",
 ))
+
+
+def _setup_ages(size: int, _work: Path) -> dict[str, Any]:
+    """A site of 50 trenches x 10 stacked units (500 units, 10 horizons across the trenches, level points at the
+    corners) with 20 dated units in 10 trenches, their dates overlapping within and between neighbouring
+    horizons (the other trenches' units take their horizons' ages); ``size`` draws."""
+    import datetime as dt
+
+    from .records import AgeDetermination, Horizon, LevelPoint, Relation, Site, Trench, Unit
+    import time
+
+    from .strata.data import SiteData
+    from .strata.matrix import build_matrix
+
+    rng = np.random.default_rng(3)
+    site = Site(code="BENCH", name="Bench site", crs_epsg=32736)
+    horizons = [Horizon(site_id=site.id, code=f"H{k + 1}", label=f"horizon {k + 1}", order=k + 1) for k in range(10)]
+    trenches, units, relations, levels, ages = [], [], [], [], []
+    for t in range(50):
+        x0, y0 = (t % 10) * 10.0, (t // 10) * 10.0
+        trench = Trench(site_id=site.id, code=f"T{t}", outline=[(x0, y0), (x0 + 4, y0), (x0 + 4, y0 + 3), (x0, y0 + 3)])
+        trenches.append(trench)
+        for k in range(10):
+            unit = Unit(site_id=site.id, trench_id=trench.id, code=f"{t}-{k}", kind="deposit", horizon_id=horizons[k].id,
+                        opened_on=dt.date(2026, 7, 1), recorder="AK")
+            if k:
+                relations.append(Relation(site_id=site.id, upper_unit_id=units[-1].id, lower_unit_id=unit.id, kind="above"))
+            units.append(unit)
+            for surface, z in (("top", 100.0 - 0.2 * k), ("bottom", 100.0 - 0.2 * (k + 1))):
+                levels += [LevelPoint(unit_id=unit.id, surface=surface, e=e, n=n, z=z + rng.normal(0, 0.005))
+                           for e, n in trench.outline]
+    for i in range(20):  # trenches 0-9, two dates each (levels a and a + 5): 20 dates on 10 horizons
+        k = i // 10 * 5 + i % 5
+        ages.append(AgeDetermination(site_id=site.id, unit_id=units[10 * (i % 10) + k].id, method="argon_argon",
+                                     age_ka=float(1000 + 15 * k + rng.normal(0, 6)), sigma_ka=float(rng.uniform(3, 12)),
+                                     lab_code=f"B-{i:02d}"))
+    data = SiteData(site=site, trenches=trenches, units=units, relations=relations, horizons=horizons,
+                    level_points=levels, ages=ages)
+    from .strata.agemodel import plan_ages
+
+    t0 = time.perf_counter()
+    plan = plan_ages(data, matrix=build_matrix(units, relations))  # records -> order, dates, rules (not timed below)
+    plan_s = time.perf_counter() - t0
+    return {"plan": plan, "draws": size, "units": len(units),
+            "report": {"units": len(units), "dates": len(ages), "plan_ms": round(plan_s * 1000, 1)}}
+
+
+def _ages(state: dict[str, Any], _work: Path, i: int) -> None:
+    from .strata.agemodel import draw_ages
+
+    model = draw_ages(state["plan"], draws=state["draws"])
+    mids = [r.mid for r in model.rules.values() if r.mid is not None]
+    unit_draws = model.ages(np.vstack(mids))  # (draws, units): every unit's age in every draw
+    assert unit_draws.shape == (state["draws"], state["units"])
+    state["report"].update(order_acceptance=round(model.order_acceptance, 4),
+                           proposal_acceptance=round(model.proposal_acceptance, 4), sweeps=model.sweeps)
+
+
+def _normals_sorted(state: dict[str, Any], _work: Path, i: int) -> None:
+    rng = np.random.default_rng(i)
+    np.sort(rng.standard_normal((state["draws"], state["units"])), axis=1)
+
+
+benchmark(Bench(
+    name="ages.model",
+    baseline_name="numpy: draws x 500 normals, each draw sorted",
+    sizes=(2_000, 10_000),
+    setup=_setup_ages,
+    subject=_ages,
+    baseline=_normals_sorted,
+    repeats=3,
+    doc="age model: n draws (10k full) of 20 ordered dates carried to 500 units (the plan from the records is "
+        "made once, plan_ms), vs numpy drawing n x 500 unconstrained normals and sorting each draw; reports the "
+        "acceptance rates; goal ratio < 2",
+))

@@ -15,11 +15,16 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      |    +-- MigrationFailed   an upgrade step failed (the store is left as it was)
      |    +-- StoreMissing      no store at the path given (and none is to be created there)
      |    +-- NotABaulkStore    a file or database that holds something else than a Baulk store
+     |    +-- StoreExists       a store (or other data) where a restore or recovery must make a new one
+     |    +-- BackupError       a backup that cannot be written or verified (nothing is kept)
+     |         +-- BackupInvalid  a backup file that fails its checks on restore (hash, integrity, counts)
      +-- SyncError              a push or a bundle that cannot be applied as sent
      |    +-- BatchClash        the same (device, batch) with different content: a restored tablet
      |    +-- WrongDevice       versions that claim another device than the one authenticated
      |    |    +-- VersionIdMismatch  a version whose id is not ``<its device>:<its sequence>``
      |    +-- BundleInvalid     a bundle file that is corrupt, truncated or tampered with
+     |         +-- BundleForAnotherDevice  a return bundle written for another device
+     |         +-- BundleLeavesGap  a return bundle starting after camp changes the tablet does not hold
      +-- NumberTooFar           a find number or number floor far above the issued blocks, not confirmed
      +-- EnrolmentRefused       an enrolment code that is unknown, used already or expired
      +-- CautionUnanswered      a caution (possible human remains) that must be answered before the save
@@ -46,9 +51,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 __all__ = [
+    "BackupError",
+    "BackupInvalid",
     "BatchClash",
     "BaulkError",
+    "BundleForAnotherDevice",
     "BundleInvalid",
+    "BundleLeavesGap",
     "CautionUnanswered",
     "CurationError",
     "DuplicateRecord",
@@ -72,6 +81,7 @@ __all__ = [
     "ResectionRejected",
     "SetupNotReady",
     "StoreError",
+    "StoreExists",
     "StoreMissing",
     "StoreTooNew",
     "SurveyError",
@@ -156,6 +166,18 @@ class NotABaulkStore(StoreError):
     """The file or database given is not a Baulk store (another program's, or not a database at all)."""
 
 
+class StoreExists(StoreError):
+    """A restore or recovery writes only a new store, and the place given already holds one (or other data)."""
+
+
+class BackupError(StoreError):
+    """A backup that cannot be written or verified; nothing of it is kept."""
+
+
+class BackupInvalid(BackupError):
+    """A backup file that fails its checks (hash, integrity, row counts) on restore; nothing was restored."""
+
+
 class SurveyError(BaulkError):
     """Survey input or a survey result that cannot be used."""
 
@@ -206,6 +228,14 @@ class VersionIdMismatch(WrongDevice):
 
 class BundleInvalid(SyncError):
     """A bundle that fails its format or hash checks; nothing of it was applied."""
+
+
+class BundleForAnotherDevice(BundleInvalid):
+    """A return bundle the camp server wrote for another device; nothing of it was read."""
+
+
+class BundleLeavesGap(BundleInvalid):
+    """A return bundle that starts after camp changes this tablet does not hold; nothing of it was read."""
 
 
 class NumberTooFar(BaulkError):

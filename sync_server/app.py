@@ -5,7 +5,7 @@ here as the sync, device and export issues land. Errors are JSON ``{"code", "mes
 from __future__ import annotations
 
 import contextlib
-from typing import Any, AsyncIterator
+from typing import Any, AsyncIterator, Iterator
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
@@ -22,6 +22,7 @@ from schema.errors import (
 from .settings import ServerSettings
 from .store import ServerStore
 from .devices import EnrolRateLimit
+from .headers import SecurityHeaders
 from .limits import BodyLimit
 from .tls import cert_fingerprint
 from .validation import Revalidator
@@ -123,11 +124,7 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
         message = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
         headers = dict(getattr(exc, "headers", None) or {})
         if exc.status_code == 405:  # every method the path answers, not just those of the first route matched
-            from starlette.routing import Match
-
-            allowed = {m for r in _request.app.routes if r.matches(_request.scope)[0] != Match.NONE
-                       for m in (getattr(r, "methods", None) or ())}
-            headers["Allow"] = ", ".join(sorted(allowed))
+            headers["Allow"] = ", ".join(allowed_methods(_request.app, _request.scope))
         return JSONResponse({"code": _HTTP_CODES.get(exc.status_code, "HTTPError"), "message": message},
                             status_code=exc.status_code, headers=headers or None)
 
@@ -164,14 +161,33 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
     app.include_router(pages.router)
     app.include_router(curation_pages.router)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
+    app.add_middleware(SecurityHeaders)
     return app
+
+
+def served_routes(routes: Any) -> Iterator[Any]:
+    """Every route the app serves, routers included (FastAPI keeps an included router as one entry whose routes
+    it builds when first asked)."""
+    for route in routes:
+        if hasattr(route, "effective_candidates"):
+            yield from served_routes(route.effective_candidates())
+        else:
+            yield route
+
+
+def allowed_methods(app: FastAPI, scope: Any) -> list[str]:
+    """The methods the request's path answers (for ``Allow``); OPTIONS itself is never among them."""
+    from starlette.routing import Match
+
+    return sorted({m for r in served_routes(app.routes) if r.matches(scope)[0] != Match.NONE
+                   for m in (getattr(r, "methods", None) or ())})
 
 
 def route_keys(app: FastAPI) -> list[str]:
     """``METHOD /path`` for every route the app serves (OpenAPI and docs pages excluded)."""
     keys: list[str] = []
     skip = {app.openapi_url, app.docs_url, app.redoc_url, "/docs/oauth2-redirect"}
-    for route in app.routes:
+    for route in served_routes(app.routes):
         path: Any = getattr(route, "path", None)
         if path in skip:
             continue

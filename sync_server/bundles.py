@@ -1,20 +1,46 @@
-"""Importing a tablet's bundle on the camp server: checked whole, then applied through the same code path as
-a push, all batches in one transaction (so a failure part-way changes nothing). The batches are read from the
-file one at a time (after the check, each again), so memory does not grow with the bundle's size."""
+"""Bundles on the camp server, both ways over a USB stick.
+
+- ``import_bundle``: a tablet's bundle, checked whole, then applied through the same code path as a push, all
+  batches in one transaction (so a failure part-way changes nothing). The batches are read from the file one at a
+  time (after the check, each again), so memory does not grow with the bundle's size. The camp change-log
+  position the tablet reports it has pulled up to is kept for the device (in ``sync_state``).
+- ``write_for_tablet``: the device's return bundle: what its pull would get after that position (its number
+  blocks, a new one first when half of its newest is used, as at a push; resolutions, corrections, other
+  devices' work) and which of its batches the camp holds, sealed for that device
+  (``schema.sync.return_bundle``).
+"""
 
 from __future__ import annotations
 
+import datetime as dt
 import uuid
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
 
+import sqlalchemy as sa
+
+from schema.errors import RecordNotFound, StoreError, SyncError
 from schema.records import Device
 from schema.sync.bundle import open_bundle
+from schema.sync.replica import load_identity, state_get, state_set
+from schema.sync.return_bundle import reported_cursor, return_bundle_name, write_return_bundle
+from schema.sync.versions import Version
 
 from .store import ServerStore
-from .sync import apply_push
+from .sync import MAX_PAGE, _top_up, apply_push, pull_page
+from .tables import push_batch
 
-__all__ = ["import_bundle"]
+__all__ = ["device_cursor", "import_bundle", "write_for_tablet"]
+
+
+def _cursor_key(device_id: uuid.UUID) -> str:
+    return f"cursor:{device_id.hex}"  # 39 characters: sync_state keys hold 40
+
+
+def device_cursor(store: ServerStore, device_id: uuid.UUID) -> int:
+    """The camp change-log position the device last reported in a bundle (0 when it never sent one)."""
+    with store.read() as conn:
+        return int(state_get(conn, _cursor_key(device_id), "0") or 0)
 
 
 def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
@@ -29,11 +55,84 @@ def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
 
     acks = []
     with open_bundle(path, token_hash_of) as bundle:  # checked whole here; batches are read again one at a time
+        cursor = reported_cursor(bundle.manifest, Path(path).name)
         device = store.get(Device, bundle.device)
-        with store.atomic():
+        with store.atomic() as conn:
             for number, versions, content_hash in bundle.batches():
                 acks.append(apply_push(store, device=device, batch=number, content_hash=content_hash,
                                        versions=versions))
+            if cursor is not None:
+                state_set(conn, _cursor_key(device.id), cursor)
     fresh = [a for a in acks if not a["replayed"]]
     return {"device": device.label, "batches": len(acks), "applied": sum(a["applied"] for a in fresh),
-            "replayed": len(acks) - len(fresh), "refused": [r for a in fresh for r in a["refused"]], "acks": acks}
+            "replayed": len(acks) - len(fresh), "refused": [r for a in fresh for r in a["refused"]], "acks": acks,
+            "cursor": cursor}
+
+
+def _acked(conn: sa.Connection, device_id: uuid.UUID) -> int:
+    """The device's batches held here without a gap: every batch from 1 up to the number returned."""
+    held = 0
+    for number in conn.execute(sa.select(push_batch.c.batch).where(push_batch.c.device == device_id)
+                               .order_by(push_batch.c.batch)).scalars():
+        if number != held + 1:
+            break
+        held = number
+    return held
+
+
+def _device(store: ServerStore, label: str) -> Device:
+    found = store.list(Device, label=label)
+    if not found:
+        known = ", ".join(sorted(d.label for d in store.list(Device) if d.token_hash and d.revoked_at is None))
+        raise RecordNotFound(f"no device is labelled {label!r} (enrolled devices: {known or 'none yet'}); give the "
+                             "label baulk device list shows")
+    device = found[0]
+    if device.revoked_at is not None:
+        raise SyncError(f"device {device.label} was revoked on {device.revoked_at:%Y-%m-%d}, so no return bundle is "
+                        "written for it; enrol the tablet again as a new device")
+    if not device.token_hash:
+        raise SyncError(f"device {device.label} has not finished its enrolment (its code was never used), so there "
+                        "is no key to seal a return bundle with; enrol the tablet first")
+    return device
+
+
+def write_for_tablet(store: ServerStore, *, label: str, out: Path,
+                     now: dt.datetime | None = None) -> dict[str, Any]:
+    """Write the return bundle of the device ``label`` to ``out`` (a folder gets ``<label>-from-camp-<time>``).
+
+    First, as at a push, a recorder that has used half of its newest number block is issued a new one. Then the
+    change log after the position the device last reported is written page by page, as ``pull_page`` serves it
+    to that device, with the number of its batches held here (the tablet stops carrying them). Returns the
+    manifest with ``path``, ``issued`` (blocks issued now), ``blocks`` (all of the device's blocks) and
+    ``from_camp`` (versions the camp server made: resolutions, corrections, blocks)."""
+    device = _device(store, label)
+    out = Path(out)
+    path = out / return_bundle_name(device.label, now or dt.datetime.now(dt.timezone.utc)) if out.is_dir() else out
+    if not path.parent.is_dir():  # before a block is issued for a bundle that cannot be written
+        raise StoreError(f"the folder {path.parent} does not exist; plug the stick in and give its folder (or a "
+                         "file in it) as --out")
+    with store.atomic() as conn:
+        store._serialize(conn, "changelog")  # noqa: SLF001 - as apply_push, before a block joins the log
+        issued = _top_up(store, conn, device, now)
+        after = int(state_get(conn, _cursor_key(device.id), "0") or 0)
+        acked = _acked(conn, device.id)
+        camp = load_identity(conn).device
+    counts = {"from_camp": 0}
+
+    def pages() -> Iterator[tuple[int, int, list[Version]]]:
+        cursor = after
+        while True:
+            page = pull_page(store, after=cursor, limit=MAX_PAGE, device=device)
+            if page["versions"] or page["next"] > cursor:
+                counts["from_camp"] += sum(v.device == camp for v in page["versions"])
+                yield cursor, page["next"], page["versions"]
+            cursor = page["next"]
+            if not page["more"]:
+                return
+
+    manifest = write_return_bundle(path, device=device.id, label=device.label, token_hash=str(device.token_hash),
+                                   after=after, pages=pages(), acked=acked)
+    return {**manifest, "path": str(path), "issued": [(b.first, b.last) for b in issued],
+            "blocks": [(b.first, b.last) for b in store.blocks_for(device.id)],
+            "versions": sum(p["versions"] for p in manifest["pages"]), **counts}
+

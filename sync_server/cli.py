@@ -1,9 +1,9 @@
 """The ``baulk`` command line: a thin shell over library functions.
 
 Each command parses its options, calls one library function and prints the result; whatever goes wrong becomes
-one line (``sync_server.cli_boundary``): a ``BaulkError`` its message with the fix and exit code 1. This module
-and ``sync_server.demo`` are the only places that know both the tablet and the server packages; they import
-``mobile`` lazily inside the commands that need it.
+one line (``sync_server.cli_boundary``): a ``BaulkError`` its message with the fix and exit code 1. This module,
+``sync_server.cli_bundle`` and ``sync_server.demo`` are the only places that know both the tablet and the server
+packages; they import ``mobile`` lazily inside the commands that need it.
 """
 
 from __future__ import annotations
@@ -88,16 +88,21 @@ def tablet(store_path: Path | None, simulate: bool, instrument: str | None, rece
               help="Database URL [default: a SQLite file in the user data folder]; postgresql+psycopg://... for PostgreSQL.")
 @click.option("--tls-cert", type=click.Path(dir_okay=False, path_type=Path), default=None, help="PEM certificate for HTTPS.")
 @click.option("--tls-key", type=click.Path(dir_okay=False, path_type=Path), default=None, help="PEM private key for HTTPS.")
-def serve(host: str | None, port: int | None, database_url: str | None, tls_cert: Path | None, tls_key: Path | None) -> None:
+@click.option("--forwarded-allow-ips", default=None, metavar="IPS",
+              help="Behind a reverse proxy: its address(es), comma-separated, whose X-Forwarded-For is believed "
+                   "[default: none; every client is the address it connects from].")
+def serve(host: str | None, port: int | None, database_url: str | None, tls_cert: Path | None, tls_key: Path | None,
+          forwarded_allow_ips: str | None) -> None:
     """Start the camp server (HTTP, or HTTPS with --tls-cert and --tls-key)."""
     import uvicorn
     from pydantic import ValidationError
 
+    from .access_log import log_config
     from .app import create_app
     from .settings import ServerSettings
 
     given = {k: v for k, v in dict(host=host, port=port, database_url=database_url, tls_cert=tls_cert,
-                                   tls_key=tls_key).items() if v is not None}
+                                   tls_key=tls_key, forwarded_allow_ips=forwarded_allow_ips).items() if v is not None}
     try:
         settings = ServerSettings(**given)
     except ValidationError as exc:
@@ -107,10 +112,15 @@ def serve(host: str | None, port: int | None, database_url: str | None, tls_cert
     click.echo(f"database: {_redact(settings.database_url)}")
     click.echo("Tablets on the camp Wi-Fi reach it at this machine's address; stop it with Ctrl+C.")
     click.echo("Enrol a tablet: baulk device add --role recorder --label TAB-1 (prints a one-time code and a QR code)")
+    proxies = (settings.forwarded_allow_ips or "").strip()
+    if proxies:
+        click.echo(f"believing X-Forwarded-For from {proxies} only")
     uvicorn.run(
         create_app(settings), host=settings.host, port=settings.port, log_level="info",
         ssl_certfile=str(settings.tls_cert) if settings.tls_cert else None,
         ssl_keyfile=str(settings.tls_key) if settings.tls_key else None,
+        log_config=log_config(),  # the access log's query strings without tokens
+        proxy_headers=bool(proxies), forwarded_allow_ips=proxies or None,  # trust no proxy unless named
     )
 
 
@@ -239,44 +249,6 @@ def safety_cmd(trench: str | None, kind: str | None, days: int | None, csv_path:
         click.echo(safety_line(row))
     click.echo(f"{len(rows)} safety check{'' if len(rows) == 1 else 's'}" + (f"; written to {csv_path}" if csv_path else ""),
                err=True)
-
-
-@cli.group()
-def bundle() -> None:
-    """Carry a tablet's unsent work to the camp server on a USB stick when there is no Wi-Fi."""
-
-
-@bundle.command("export")
-@click.option("--store", "store_path", type=click.Path(exists=True, dir_okay=False, path_type=Path), required=True,
-              help="The tablet's SQLite file.")
-@click.option("--out", type=click.Path(path_type=Path), required=True,
-              help="Bundle file to write, or a folder to write a dated one into.")
-def bundle_export(store_path: Path, out: Path) -> None:
-    """Write every batch the server has not acknowledged into one sealed bundle file."""
-    from mobile.bundles import export_bundle
-    from mobile.store import TabletStore, check_tablet_file
-
-    check_tablet_file(store_path)
-    with TabletStore.open(store_path) as tablet:
-        m = export_bundle(tablet, out)
-    total = sum(b["versions"] for b in m["batches"])
-    click.echo(f"wrote {m['path']}: {len(m['batches'])} batches, {total} versions from {m['device_label']}")
-
-
-@bundle.command("import")
-@click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
-@_db_option
-def bundle_import(file: Path, database_url: str | None) -> None:
-    """Check a bundle whole, then apply it exactly like a push (a bad bundle changes nothing)."""
-    from .bundles import import_bundle
-
-    with _server_store(database_url) as store:
-        r = import_bundle(store, file)
-    click.echo(f"imported {file.name} from {r['device']}: {r['batches']} batches, {r['applied']} new versions"
-               + (f", {r['replayed']} already applied" if r["replayed"] else "")
-               + (f"; {len(r['refused'])} refused:" if r["refused"] else ""))
-    for refused in r["refused"]:
-        click.echo(f"  refused {refused['version']}: {refused['reason']}")
 
 
 @cli.command("export")
@@ -454,13 +426,19 @@ def _register_groups() -> None:
     from .cli_site import season_close, season_open, site
     from .cli_survey import survey
     from .cli_curation import correct, date, horizon
+    from .cli_bundle import bundle
 
     cli.add_command(survey)
+    cli.add_command(bundle)
     for group in (horizon, date, correct):
         cli.add_command(group)
     cli.add_command(site)
+    from .cli_ages import ages
+    cli.add_command(ages)  # baulk ages: sync_server/cli_ages.py
     season.add_command(season_open)
     season.add_command(season_close)
+    from .cli_backup import register as register_backup
+    register_backup(cli)  # baulk backup, restore, recover
 
 
 def _load_benchmarks() -> None:

@@ -11,6 +11,7 @@ This is the one module besides the CLI that drives both the tablet code and the 
 from __future__ import annotations
 
 import collections
+import csv
 import datetime as dt
 import json
 import time
@@ -239,8 +240,10 @@ def _analyst_files(server: ServerStore, report: Any, out: Path, progress: Progre
     write_brackets(report, server.site_data(), checks)
     progress("analyst: export to export/ (per-horizon tables, GeoPackage, Darwin Core, data package)")
     m = run_export(server, out / "export")
+    with (out / "export" / "ages_by_horizon.csv").open(newline="") as fh:  # the age model's horizon ages
+        ages = {r["horizon"]: r for r in csv.DictReader(fh)}
     return {"checks": sorted(p.name for p in checks.iterdir()), "export": sorted(p.name for p in (out / "export").iterdir()),
-            "export_counts": m["counts"]}
+            "export_counts": m["counts"], "horizon_ages": ages}
 
 
 def _reading(station: Any, e: float, n: float, z: float, th: float, at: dt.datetime, rng: Any) -> Reading:
@@ -498,6 +501,11 @@ def _write_summary(out: Path, s: dict[str, Any]) -> None:
         for label, t in s["tablets"].items())]
     lines += ["", "Age brackets by superposition from the dated tuff and clays (ka, two-sigma): " + "; ".join(
         f"{code} {_span(b)}" for code, b in s.get("age_brackets", {}).items())]
+    ka = lambda v: f"{float(v):.1f}" if v else "?"  # noqa: E731
+    lines += ["", "Horizon ages from the order-constrained age model (ka, median and 95 % interval; "
+              "export/ages_by_horizon.csv): " + "; ".join(f"{k} {ka(a['median_ka'])} ({ka(a['lo95_ka'])} to "
+                                                          f"{ka(a['hi95_ka'])})"
+                                                          for k, a in s.get("files", {}).get("horizon_ages", {}).items())]
     lines += ["", "Finds (not voided) per horizon: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_horizon"].items())]
     lines += ["", "Finds per unit: " + ", ".join(f"{k} {v}" for k, v in s["finds"]["by_unit"].items())]
     sf = s["safety"]

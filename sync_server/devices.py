@@ -26,6 +26,7 @@ import sqlalchemy as sa
 
 from schema.errors import EnrolmentRefused, RecordNotFound
 from schema.records import Device, DevicePublic
+from schema.records.device import check_label
 
 from .store import ServerStore, hash_token
 from .tables import enrolment_code
@@ -49,7 +50,9 @@ def _hash_code(code: str) -> str:
 
 def make_code(store: ServerStore, *, label: str, role: str, by: str = "console",
               now: dt.datetime | None = None, ttl: dt.timedelta = CODE_TTL) -> tuple[Device, str, dt.datetime]:
-    """Register a device (no token yet) and make its one-time code; returns (device, code, expires_at)."""
+    """Register a device (no token yet) and make its one-time code; returns (device, code, expires_at). A label
+    that is not readable text is refused (``check_label``: ``RecordInvalid``)."""
+    check_label(label)
     now = now or dt.datetime.now(dt.timezone.utc)
     raw = "".join(secrets.choice(_ALPHABET) for _ in range(12))
     code = f"{raw[:4]}-{raw[4:8]}-{raw[8:]}"

@@ -30,12 +30,14 @@ from pathlib import Path
 from typing import Any, Callable
 
 from schema import __version__
-from schema.analysis import Selection, Volume, count_rows, select_finds, unit_volumes
+from schema.analysis import Excluded, Selection, Volume, count_rows, select_finds, unit_volumes
 from schema.dwc import DWC_TERMS
 from schema.errors import RecordNotFound
 from schema.records import Find, Horizon, LevelPoint, Season, Site, Spit, Trench, Unit
 from schema.strata.validate import validate
+from schema.withholding import Withheld, withheld
 
+from .export_ages import AGE_RESOURCES
 from .export_sql import tally_in_db
 from .store import ServerStore
 
@@ -99,6 +101,7 @@ RESOURCES["counts_by_unit"] = ("Finds per unit x category x material x recovery"
     [{"fields": ["unit"], "reference": {"resource": "volumes", "fields": ["unit"]}}])
 RESOURCES["dwc_occurrence"] = ("Darwin Core occurrences of the fossil finds (coordinates WGS 84)",
                                [(t, ty, d, c) for t, ty, d, c in DWC_TERMS], ["occurrenceID"], [])
+RESOURCES.update(AGE_RESOURCES)  # ages_by_horizon, ages_by_unit, ages_by_find, ranges: sync_server/export_ages.py
 
 
 def _cell(v: Any) -> str:
@@ -123,9 +126,9 @@ def _write_csv(path: Path, name: str, rows: list[dict[str, Any]]) -> int:
     return len(rows)
 
 
-def _datapackage(site: Site) -> dict[str, Any]:
+def _datapackage(site: Site, described: dict[str, Any] | None = None) -> dict[str, Any]:
     resources = []
-    for name, (title, fields, pk, fks) in RESOURCES.items():
+    for name, (title, fields, pk, fks) in (described or RESOURCES).items():
         schema: dict[str, Any] = {"fields": [{"name": f, "type": t, "description": d, **({"constraints": c} if c else {})}
                                              for f, t, d, c in fields], "missingValues": [""]}
         if pk:
@@ -178,7 +181,7 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
                                  f"known: {', '.join(s.label for s in store.list(Season, site_id=site.id))}")
     season_ids = {s.id for s in chosen}
     finds = [f for f in store.list(Find, site_id=site.id) if f.season_id in season_ids]
-    sel = select_finds(finds, report.issues, strict=strict)
+    sel = _withheld(select_finds(finds, report.issues, strict=strict), withheld("export", finds))
     units, horizons = data.units, store.list(Horizon, site_id=site.id)
     unit_ids = {u.id for u in units}
     spits = [s for s in store.list(Spit) if s.unit_id in unit_ids]
@@ -191,6 +194,11 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
 
     rows["dwc_occurrence"] = _write_csv(tmp / "dwc_occurrence.csv", "dwc_occurrence",
                                         export_geo.dwc_rows(site, grid, data.trenches, units, horizons, sel))
+    say("modelling the ages of the horizons and the ranges of the finds")
+    from .export_ages import compute_ages, draw_age_pictures, write_age_files
+
+    ages = compute_ages(data, sel.included, matrix=report.matrix)
+    rows.update(write_age_files(ages, tmp))
     (tmp / "datapackage.json").write_text(json.dumps(_datapackage(site), indent=2))
     layers = export_geo.write_geopackage(tmp / "finds.gpkg", site, grid, data.trenches, sel.included, levels)
     say("drawing the Harris matrix and the trench plans and sections")
@@ -199,6 +207,7 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
     problems = {uuid.UUID(i.record_id) for i in report.issues if i.record == "unit" and i.record_id}
     pictures = draw_matrix(report.matrix, horizons, problems, tmp)
     pictures += draw_trench_plots(data.trenches, units, horizons, sel.included, tmp)
+    pictures += draw_age_pictures(ages, data, tmp)
     manifest = {
         "software": f"baulk {__version__}", "site": site.code, "seasons": sorted(s.label for s in chosen),
         "strict": strict, "created": dt.datetime.now(dt.timezone.utc).isoformat(),
@@ -236,11 +245,10 @@ def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], tre
 
     say(f"writing {len(sel.included)} finds and {len(sel.excluded)} left out")
     found = []
-    for f in sel.included:
-        hidden = f.human_remains
+    for f in sel.included:  # possible human remains come blanked (_withheld): no position in any file
         found.append({**f.model_dump(), **where(f), "spit": spit_number.get(f.spit_id) if f.spit_id else None,
-                      "e": None if hidden else f.e, "n": None if hidden else f.n, "z": None if hidden else f.z,
-                      "location_withheld": hidden, "id": str(f.id), "issues": " ".join(sel.issue_codes.get(f.id, []))})
+                      "location_withheld": f.human_remains, "id": str(f.id),
+                      "issues": " ".join(sel.issue_codes.get(f.id, []))})
     rows = {"finds": _write_csv(tmp / "finds.csv", "finds", found)}
     rows["excluded"] = _write_csv(tmp / "excluded.csv", "excluded", [
         {"id": str(x.find.id), "number": x.find.number, **where(x.find), "code": x.code, "message": x.message}
@@ -261,6 +269,17 @@ def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], tre
         rows[name] = _write_csv(tmp / f"{name}.csv", name, [
             r.as_dict(names) for r in count_rows(tallies, units, horizons, vols, by_unit=by_unit)])
     return rows
+
+
+def _withheld(sel: Selection, hidden: Withheld) -> Selection:
+    """The selection as every exported file shows it: finds flagged as possible human remains without their
+    position, and the checks that quote it without their numbers (``schema.withholding``)."""
+    def check(x: Excluded) -> Excluded:
+        row = hidden.issue({"code": x.code, "record": "find", "record_id": x.find.id, "label": f"find {x.find.number}",
+                            "message": x.message})
+        return Excluded(hidden.blanked(x.find), x.code, row["message"])
+
+    return Selection([hidden.blanked(f) for f in sel.included], [check(x) for x in sel.excluded], sel.issue_codes)
 
 
 def export_zip(store: ServerStore, work: Path, *, seasons: list[str] | None = None, strict: bool = False) -> Path:

@@ -31,6 +31,13 @@ class ServerSettings(BaseSettings):
     tls_key: Path | None = Field(default=None, description="PEM private key file for HTTPS")
     max_body_bytes: int = Field(default=16 * 1024 * 1024, ge=1024, description="largest request body accepted")
     enrol_attempts_per_minute: int = Field(default=10, ge=1, description="enrolment attempts allowed per address")
+    forwarded_allow_ips: str | None = Field(
+        default=None, max_length=1000,
+        description="addresses of the reverse proxies whose X-Forwarded-For / X-Forwarded-Proto are believed "
+                    "(comma-separated, as uvicorn's forwarded_allow_ips); none by default: the client address is "
+                    "the connection's")
+    backup_warn_hours: float = Field(default=24, gt=0, description="the Today page warns when the last backup is "
+                                     "older than this many hours (or when there is none)")
 
     @model_validator(mode="after")
     def _tls_pair(self) -> "ServerSettings":

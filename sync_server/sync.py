@@ -77,8 +77,9 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
         taken = [v for v in versions if v.record not in SERVER_OWNED]  # server-owned: never taken from tablets
         refused: list[tuple[Version, str]] = []
         accepted: list[Version] = []
+        far = _FarNumbers(store, conn)
         for v in taken:
-            why = _refusal(v, device)
+            why = _refusal(v, device) or far.refusal(v, device)
             if why is None:
                 accepted.append(v)
             else:
@@ -113,6 +114,37 @@ def _refusal(version: Version, device: Device) -> str | None:
 
 def _past_bound(value: Any) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and value > MAX_JSON_INT
+
+
+def _whole(value: Any) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool)
+
+
+class _FarNumbers:
+    """Find numbers far above every number issued or used here (``store.far_number``): taken from no device, or
+    every block issued after one would start above it (and one at 2^53 - 1 would leave no number to issue).
+    Tablets number finds from their own blocks, so only a damaged or hostile device sends one; a data manager
+    who means a far number sets it at camp, confirmed (``resolve_conflict``'s ``confirm_far``)."""
+
+    def __init__(self, store: ServerStore, conn: sa.Connection) -> None:
+        self.store, self.conn = store, conn
+        self._limit: int | None = None
+
+    def refusal(self, version: Version, device: Device) -> str | None:
+        from .store import FAR_BLOCKS, far_number, number_floor
+
+        if (version.record, version.field) != ("find", "number") or not _whole(version.value):
+            return None
+        if self._limit is None:
+            self.block_size = self.store.block_size()
+            self._limit = number_floor(self.conn) + FAR_BLOCKS * self.block_size
+        if version.value <= self._limit:
+            return None
+        highest = far_number(self.conn, version.value, block_size=self.block_size)
+        return (f"{device.label} sent find number {version.value} for find {version.record_id}, more than "
+                f"{FAR_BLOCKS} blocks of {self.block_size} numbers above {highest}, so this value was not applied "
+                "(every block issued after it would start above it); give the find a number from the tablet's own "
+                "number block and sync again.")
 
 
 def number_refusal(version: Version, device: Device) -> str:
@@ -155,7 +187,10 @@ def _top_up(store: ServerStore, conn: sa.Connection, device: Device, now: dt.dat
 
 def pull_page(store: ServerStore, *, after: int, limit: int = 500, device: Device | None = None) -> dict[str, Any]:
     """Versions after the cursor, in change-log order, with the next cursor. Number blocks travel only to
-    the device they were issued to."""
+    the device they were issued to; what places possible human remains travels only to the roles that see it
+    (``schema.withholding``; the cursor still moves past what was left out)."""
+    from .withholding import withheld_for
+
     limit = max(1, min(limit, MAX_PAGE))
     blocks = metadata.tables["number_block"]
     with store.read() as conn:
@@ -163,9 +198,11 @@ def pull_page(store: ServerStore, *, after: int, limit: int = 500, device: Devic
                             .order_by(field_version.c.log_seq).limit(limit + 1)).all()
         mine = set(conn.execute(sa.select(blocks.c.id).where(blocks.c.device_id == (device.id if device else None)))
                    .scalars())
+        hidden = withheld_for(conn, device.role if device else "") if rows else None
     more = len(rows) > limit
     last = rows[min(len(rows), limit) - 1].log_seq if rows else after
-    rows = [r for r in rows[:limit] if r.record != "number_block" or r.record_id in mine]
+    rows = [r for r in rows[:limit] if (r.record != "number_block" or r.record_id in mine)
+            and not (hidden and hidden.field(r.record, r.record_id, r.field))]
     versions = [row_to_version(r) for r in rows]
     return {"versions": versions, "next": last, "more": more,
             "server_time_ms": _now_ms()}

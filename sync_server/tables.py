@@ -8,7 +8,7 @@ import sqlalchemy as sa
 from schema.sync.tables import sync_metadata
 from schema.tables import UTCDateTime, build_metadata
 
-__all__ = ["enrolment_code", "push_batch", "server_metadata", "validation_issue"]
+__all__ = ["backup_log", "enrolment_code", "push_batch", "server_metadata", "validation_issue"]
 
 server_metadata = build_metadata()
 for _t in sync_metadata.tables.values():
@@ -62,4 +62,18 @@ enrolment_code = sa.Table(
     sa.Column("used_at", UTCDateTime(), nullable=True),
     sa.Column("created_by", sa.String(), nullable=False, comment="who made it: a manager device's label, or 'console'"),
     comment="One-time enrolment codes for new devices",
+)
+
+# Every backup ``baulk backup`` wrote of this store and verified; the Today page shows the newest and warns when it
+# is old (``sync_server.backup``). Kept in the store rather than read from a folder: the server learns of a backup
+# wherever it went (a USB stick taken away, another disk) with nothing more to configure.
+backup_log = sa.Table(
+    "backup_log", server_metadata,
+    sa.Column("id", sa.Uuid(), primary_key=True),
+    sa.Column("made_at", UTCDateTime(), nullable=False, comment="the moment of the snapshot the backup holds (UTC)"),
+    sa.Column("path", sa.String(), nullable=False, comment="the backup file as written (absolute path)"),
+    sa.Column("bytes", sa.BigInteger(), nullable=False),
+    sa.Column("sha256", sa.String(64), nullable=False, comment="SHA-256 of the backup file"),
+    sa.Index(None, "made_at"),
+    comment="Verified backups of this store",
 )

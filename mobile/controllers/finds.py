@@ -17,7 +17,6 @@ from schema.forms import FormField, coerce, find_form, typed_values
 from schema.records import ControlPoint, Find, SafetyCheck, Sample, Spit, Unit
 from schema.strata import Issue
 from schema.tables import metadata
-from schema.validation import check
 
 from ..cautions import Caution, human_remains_caution, shoring_caution, shoring_due
 from ..checks import check_find
@@ -224,7 +223,7 @@ class FindController:
             if unit is None:
                 raise RecordNotFound(f"no unit {code!r} in this find's trench; choose one from the list")
             typed["unit_id"] = unit.id
-        find = self.store.put(check(Find, {**current.model_dump(), **typed}))
+        find = self.store.update_find(find={**current.model_dump(), **typed})  # a new number: the rules of a save
         return Saved(find, self._check(find))
 
     def void(self, find_id: uuid.UUID, reason: str) -> Find:

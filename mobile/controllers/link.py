@@ -1,6 +1,7 @@
 """The camp link: enrol the tablet (a typed code or the scanned line), see what waits to be sent, sync with
-progress, and write a bundle to a folder (a USB stick) when there is no Wi-Fi. Errors come back as plain words
-with what to do; the last sync and the last error are kept in the tablet file."""
+progress, and with no Wi-Fi write a bundle to a folder (a USB stick) and read the return bundle the camp wrote
+for this tablet. Errors come back as plain words with what to do; the last sync, the last bundle read and the
+last error are kept in the tablet file."""
 
 from __future__ import annotations
 
@@ -14,7 +15,7 @@ import httpx
 from schema.errors import BaulkError, EnrolmentRefused, StoreError
 from schema.records import Device
 
-from ..bundles import export_bundle
+from ..bundles import ReturnRead, export_bundle, read_return_bundle
 from ..enrol import enrol, parse_enrol_line, pinned_context
 from ..store import TabletStore
 from ..sync import Progress, SyncClient, SyncReport, pending_count
@@ -39,6 +40,7 @@ class LinkStatus:
     numbers_left: int
     last_sync: str | None
     last_error: str | None
+    last_bundle: str | None = None
 
     def lines(self) -> list[str]:
         if not self.enrolled:
@@ -47,6 +49,7 @@ class LinkStatus:
                 f"Waiting to be sent: {self.pending_versions} changes",
                 f"Find numbers left: {self.numbers_left}",
                 f"Last sync: {self.last_sync or 'never'}",
+                *([f"Last bundle from camp: {self.last_bundle}"] if self.last_bundle else []),
                 *([f"Last problem: {self.last_error}"] if self.last_error else [])]
 
 
@@ -80,7 +83,9 @@ class CampLink:
         return LinkStatus(enrolled=device is not None and token is not None,
                           device=self._label(device), server=self.store.setting("link.server"),
                           pending_versions=pending, numbers_left=self.numbers_left(),
-                          last_sync=self.store.setting("link.last_sync"), last_error=self.store.setting("link.last_error"))
+                          last_sync=self.store.setting("link.last_sync"),
+                          last_error=self.store.setting("link.last_error"),
+                          last_bundle=self.store.setting("link.last_bundle"))
 
     def _label(self, device: Any) -> str | None:
         if device is None:
@@ -89,11 +94,7 @@ class CampLink:
         return found[0].label if found else str(device)[:8]
 
     def numbers_left(self) -> int:
-        try:
-            nxt = self.store.next_find_number()
-        except BaulkError:
-            return 0
-        return sum(b.last - max(b.first, nxt) + 1 for b in self.store.number_blocks() if b.last >= nxt)
+        return self.store.numbers_left()
 
     def sync(self, progress: Progress | None = None) -> SyncReport:
         """Push, then pull; the outcome (or the plain-words error) is kept for the status."""
@@ -118,3 +119,18 @@ class CampLink:
         if not folder.is_dir():
             raise StoreError(f"the folder {folder} does not exist; plug the stick in and choose its folder")
         return export_bundle(self.store, folder)
+
+    def read_bundle(self, folder_or_file: Path | str) -> ReturnRead:
+        """Read the return bundle the camp wrote for this tablet (a file, or the stick's folder: the newest for
+        this tablet there): checked whole, then applied as a sync's pull would, once. ``sentence()`` of the answer
+        says what came in; a bundle that fails a check changes nothing and the error says why."""
+        if not str(folder_or_file).strip():
+            raise StoreError("no folder was given; plug the stick in and type its folder (or the bundle file)")
+        path = Path(folder_or_file)
+        if not path.exists():
+            raise StoreError(f"there is no folder or file {path}; plug the stick in and choose its folder")
+        read = read_return_bundle(self.store, path)
+        if not read.already:
+            now = dt.datetime.now().astimezone()
+            self.store.set_setting("link.last_bundle", f"{now:%d %b %H:%M}, received {read.applied}")
+        return read

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import uuid
 from typing import Annotated
 
@@ -12,7 +13,45 @@ from ..fields import Id, Ref, Sha256Hex, Timestamp, new_id
 from ..validation import FieldError
 from ._base import STRICT, Record, spec
 
-__all__ = ["Device", "DeviceBase", "DevicePublic", "NumberBlock", "NumberBlockBase", "SPECS"]
+__all__ = ["Device", "DeviceBase", "DevicePublic", "LABEL_PATTERN", "NumberBlock", "NumberBlockBase", "SPECS",
+           "check_label"]
+
+LABEL_MAX = 60
+# What a label may not hold: control characters (C0, DEL, C1), invisible characters and direction overrides
+# (zero-width spaces and joiners, bidirectional marks and isolates, word joiners, the byte order mark,
+# interlinear annotation marks), line and paragraph separators; nor may it be only spaces. The same rule is the
+# pattern in the JSON Schema of ``POST /v1/devices`` (so API clients and fuzzers know it; written with explicit
+# ranges, which every regex engine reads alike). Unpaired surrogates are refused too (no engine's pattern can
+# name them; they cannot be stored as text).
+_HIDDEN = r"\u0000-\u001f\u007f-\u009f\u200b-\u200f\u2028-\u202e\u2060-\u206f\ufeff\ufff9-\ufffb"
+_SPACES = r" \u00a0\u1680\u2000-\u200a\u202f\u205f\u3000"
+LABEL_PATTERN = f"^[^{_HIDDEN}]*[^{_HIDDEN}{_SPACES}][^{_HIDDEN}]*$"
+_HIDDEN_CHAR = re.compile(f"[{_HIDDEN}\\ud800-\\udfff]")
+_ONLY_SPACES = re.compile(f"[{_SPACES}]*")
+
+
+def check_label(label: str) -> str:
+    """A new device's label as given, or ``RecordInvalid`` naming it: a label is shown on every camp page and in
+    the audit trail, so it must be readable text (not empty, not only spaces, no control or invisible
+    characters: ``LABEL_PATTERN``) of at most 60 characters."""
+    from ..errors import FieldProblem, RecordInvalid
+
+    example = "e.g. TAB-4 or Finds lab laptop"
+    problem = None
+    bad = _HIDDEN_CHAR.search(label)
+    if bad is not None:
+        problem = FieldProblem("label", f"the label {label!r} holds U+{ord(bad.group()):04X}, a control or invisible "
+                                        "character", f"type the label again with letters, digits, spaces and "
+                                                     f"punctuation only, {example}")
+    elif _ONLY_SPACES.fullmatch(label):
+        problem = FieldProblem("label", f"the label {label!r} is {'only spaces' if label else 'empty'}",
+                               f"give the device a label people can read, {example}")
+    elif len(label) > LABEL_MAX:
+        problem = FieldProblem("label", f"the label {label[:20]!r}... is {len(label)} characters long",
+                               f"shorten it to at most {LABEL_MAX} characters, {example}")
+    if problem is not None:
+        raise RecordInvalid("device", [problem])
+    return label
 
 
 class DeviceBase(Record):

@@ -1,9 +1,10 @@
 """Bundles: a tablet's unacknowledged batches in one file, carried by USB when there is no Wi-Fi.
 
 A bundle is a zip holding ``manifest.json`` and one ``batches/NNNNNN.json`` per batch. The manifest names the
-format and its version, the device, and each batch's number, version count and content hash (the same hash a
-push carries); it is sealed with an HMAC-SHA256 keyed by the SHA-256 of the device's token, which the server
-keeps, so only the enrolled device can make a bundle the server accepts. ``open_bundle`` checks everything
+format and its version, the device, the camp change-log position the tablet has pulled up to (``cursor``), and
+each batch's number, version count and content hash (the same hash a push carries); it is sealed with an
+HMAC-SHA256 keyed by the SHA-256 of the device's token, which the server keeps, so only the enrolled device can
+make a bundle the server accepts. ``open_bundle`` checks everything
 (entry sizes against their caps, zip CRCs, format, seal, every batch's hash, device and version ids) before
 returning anything, then hands the batches over one at a time; an invalid bundle raises ``BundleInvalid`` with
 the reason (``VersionIdMismatch`` for a version named as another's).
@@ -41,12 +42,15 @@ def _seal(manifest: dict[str, Any], token_hash: str) -> str:
 
 
 def write_bundle(path: Path, *, device: uuid.UUID, label: str, token: str,
-                 batches: list[tuple[int, list[Version]]]) -> dict[str, Any]:
-    """Write the bundle atomically (a temporary file renamed into place); returns its manifest."""
+                 batches: list[tuple[int, list[Version]]], cursor: int | None = None) -> dict[str, Any]:
+    """Write the bundle atomically (a temporary file renamed into place); returns its manifest. ``cursor`` is
+    the camp change-log position the tablet has pulled up to: the camp server keeps it for the device and writes
+    the device's return bundle from there (``schema.sync.return_bundle``)."""
     path = Path(path)
     manifest: dict[str, Any] = {
         "format": BUNDLE_FORMAT, "format_version": BUNDLE_VERSION, "device": str(device), "device_label": label,
         "created_at": dt.datetime.now(dt.timezone.utc).isoformat(),
+        **({} if cursor is None else {"cursor": cursor}),
         "batches": [{"batch": n, "versions": len(vs), "hash": batch_hash(vs), "file": f"batches/{n:06d}.json"}
                     for n, vs in batches],
     }

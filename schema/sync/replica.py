@@ -224,11 +224,12 @@ def _adapter(record: str, fname: str) -> TypeAdapter[Any] | None:
 
 
 class _BadValue(Exception):
-    """A field value that does not validate as its field (``exc``: the validation error)."""
+    """A field value that does not validate as its field (``exc``: the validation error); ``whole``: the values
+    are each valid but break a rule across fields (a voided find that says not why)."""
 
-    def __init__(self, field: str, exc: Exception):
+    def __init__(self, field: str, exc: Exception, *, whole: bool = False):
         super().__init__(field)
-        self.field, self.exc = field, exc
+        self.field, self.exc, self.whole = field, exc, whole
 
 
 def _row(record: str, values: dict[str, Any], rid: uuid.UUID) -> dict[str, Any]:
@@ -249,6 +250,21 @@ def _row(record: str, values: dict[str, Any], rid: uuid.UUID) -> dict[str, Any]:
         except ValueError as exc:
             raise _BadValue(col.name, exc) from None
     return row
+
+
+def _check_whole(record: str, row: dict[str, Any]) -> None:
+    """The record's rules across fields (``model_validator``s: e, n and z together, a void with its reason, a
+    material of the category...), on a row whose fields are each valid: a row breaking one is not written (every
+    reader of the table would fail on it) but waits as a pending row, like a bad value."""
+    from pydantic import ValidationError
+
+    from ..validation import problems
+
+    model = REGISTRY[record].model
+    try:
+        model.model_validate(row, strict=False)
+    except ValidationError as exc:
+        raise _BadValue(problems(model, exc)[0].field, exc, whole=True) from None
 
 
 @functools.lru_cache(maxsize=1)
@@ -363,7 +379,9 @@ def _materialize_once(conn: Connection, keys: Iterable[tuple[str, uuid.UUID]],
             pending[(record, rid)] = (f"waiting for fields: {', '.join(missing)}", WAIT_EDIT)
             continue
         try:
-            ready.setdefault(record, []).append(_row(record, _with_defaults(record, values), rid))
+            row = _row(record, _with_defaults(record, values), rid)
+            _check_whole(record, row)
+            ready.setdefault(record, []).append(row)
         except _BadValue as bad:  # a newer tablet's shape, or a value no Baulk accepts
             pending[(record, rid)] = _bad_value(conn, record, rid, bad, by_record)
     written: list[tuple[str, uuid.UUID]] = []
@@ -437,12 +455,18 @@ def _bad_value(conn: Connection, record: str, rid: uuid.UUID, bad: "_BadValue", 
     from ..validation import field_problem
 
     current = leaves(state.field_versions((record, rid, bad.field)))
+    if bad.whole:  # the newest edit of the record broke a rule across its fields
+        current = sorted(state.versions_of(record, rid), key=lambda v: v.order_key, reverse=True)
     sent = current[0] if current else None
     problem = field_problem(REGISTRY[record].model, bad.field, bad.exc)
     if sent is not None and sent.schema_version > SCHEMA_VERSION:
         return (f"a value this Baulk cannot read (schema {sent.schema_version}, this Baulk reads {SCHEMA_VERSION}): "
                 f"update Baulk here; {bad.field}: {problem.message}", wait_schema(sent.schema_version))
     who = _who(conn, sent.device) if sent is not None else "a device"
+    if bad.whole:
+        return (f"{record} {rid} is not shown: {problem.message} (its values are each valid but not together; the "
+                f"latest edit came from {who}). It is kept here until a valid value arrives. Fix: {problem.fix}, "
+                "and sync again.", WAIT_EDIT)
     return (f"{record} {rid} is not shown: {bad.field} sent by {who} is invalid: {problem.message}. It is kept here "
             f"until a valid value arrives. Fix: {problem.fix}, on {who}, and sync again.", WAIT_EDIT)
 

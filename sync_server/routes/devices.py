@@ -12,6 +12,7 @@ from fastapi import APIRouter, Depends, HTTPException, Query, Request
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 
 from schema.records import Device, DevicePublic
+from schema.records.device import LABEL_PATTERN
 
 from ..auth import require
 from ..devices import enrol_line, exchange_code, list_devices, make_code, public, revoke_device
@@ -54,7 +55,9 @@ class Enrolled(BaseModel):
 
 class NewDevice(BaseModel):
     model_config = ConfigDict(strict=True, extra="forbid")
-    label: str = Field(min_length=1, max_length=60, examples=["TAB-4"])
+    label: str = Field(min_length=1, max_length=60, examples=["TAB-4"], json_schema_extra={"pattern": LABEL_PATTERN},
+                       description="readable text: no control or invisible characters, not only spaces "
+                                   "(refused otherwise by make_code, 422 RecordInvalid)")
     role: Literal["recorder", "manager", "analyst"]
 
 

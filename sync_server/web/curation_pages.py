@@ -128,11 +128,14 @@ def _horizons_page(request: Request, session: Session, *, status: int = 200, mes
         horizons = curation.list_horizons(store)
         loose = curation.units_without_horizon(store)
         history = curation.assignment_history(store, limit=200)
+        from ..export_ages import page_ages
+
+        ages = page_ages(store.site_data())  # the horizons' modelled ages (the Ages section)
     except RecordNotFound as exc:
-        horizons, loose, history = [], [], []
+        horizons, loose, history, ages = [], [], [], None
         message, error = message or str(exc), True
     return _page(request, "horizons.html", session, "Horizons", status=status, page="horizons", horizons=horizons,
-                 loose=loose, history=[{**h, "at": _stamp(h["at"])} for h in history],
+                 loose=loose, history=[{**h, "at": _stamp(h["at"])} for h in history], ages=ages,
                  can_write=session.device.role == "manager", message=message, error=error, form=form or {},
                  which=which)
 

@@ -29,11 +29,13 @@ from schema.records import Device, Find, Trench, Unit
 from schema.records.safety import KIND_LABELS
 from schema.errors import BaulkError, NumberTooFar
 from schema.tables import metadata
+from schema.withholding import NOTE, withheld
 
 from ..safety import KINDS, safety_log, safety_summary
 from ..sync import list_conflicts, resolve_conflict
 from ..tables import push_batch
-from .session import COOKIE, LIFETIME_S, PAGE_ROLES, Session, check_csrf, current, make_cookie
+from ..withholding import withheld_for
+from .session import COOKIE, LIFETIME_S, PAGE_ROLES, Session, check_csrf, current, end_sessions, make_cookie
 
 router = APIRouter(prefix="/camp", include_in_schema=False)
 templates = Jinja2Templates(directory=str(Path(__file__).parent / "templates"))
@@ -115,6 +117,7 @@ def _enrol_browser(request: Request, text: str) -> Response:
 async def sign_out(request: Request) -> Response:
     session = _signed_in(request)
     check_csrf(session, (await _form(request)).get("csrf"))
+    end_sessions(request, session.device)  # the cookie is worthless from now on, even where a copy is kept
     response = RedirectResponse("/camp/sign-in", status_code=303)
     response.delete_cookie(COOKIE, path="/camp")
     return response
@@ -142,10 +145,12 @@ def today(request: Request) -> Response:
     devices = [{"label": d.label, "role": d.role, "revoked": d.revoked_at is not None, "enrolled": d.token_hash is not None,
                 "last_push": _when(pushes.get(d.id))} for d in store.list(Device, order_by="label")]
     safety = safety_summary(store, since=since)
+    from ..backup import backup_status
+
     return _page(request, "today.html", session, "Today", page="today", devices=devices, conflicts=conflicts,
                  errors=errors, new_finds=[{"trench": a, "unit": b, "finds": n} for a, b, n in new],
                  safety={**safety, "human_remains": [_shown(c) for c in safety["human_remains"]]},
-                 kind_labels=KIND_LABELS)
+                 kind_labels=KIND_LABELS, backup=backup_status(store))
 
 
 def _when(t: dt.datetime | None) -> str | None:
@@ -167,12 +172,16 @@ def conflicts(request: Request, message: str | None = None) -> Response:
     store = request.app.state.store
     units = {str(u.id): u.code for u in store.list(Unit)}
     trenches = {str(t.id): t.code for t in store.list(Trench)}
+    with store.read() as conn:  # an analyst: no competing positions of possible human remains
+        hidden = withheld_for(conn, session.device.role)
     rows = []
     for c in list_conflicts(store):
+        values = [{**v, "value": NOTE} if hidden.field(c["record"], uuid.UUID(v["record_id"]), v["field"]) else v
+                  for v in c["values"]]
         rows.append({**c, "what": _what(store, c), "explain": _EXPLAIN.get(c["kind"], ""),
                      "values": [{**v, "json": json.dumps(v["value"]), "at": _when(dt.datetime.fromisoformat(v["at"])),
                                  "shown": units.get(str(v["value"]), trenches.get(str(v["value"]), v["value"]))}
-                                for v in c["values"]]})
+                                for v in values]})
     return _page(request, "conflicts.html", session, "Conflicts", page="conflicts", conflicts=rows,
                  can_resolve=session.device.role == "manager", message=message)
 
@@ -223,7 +232,10 @@ def checks(request: Request, code: str | None = None, severity: str | None = Non
     session = _signed_in(request)
     filters = {"code": code or None, "severity": severity if severity in ("error", "warning", "info") else None,
                "trench": trench or None, "unit": unit or None}
-    issues = list_issues(request.app.state.store, **filters)
+    store = request.app.state.store
+    with store.read() as conn:  # an analyst sees a position check on possible human remains without its numbers
+        hidden = withheld_for(conn, session.device.role)
+    issues = [hidden.issue(i) for i in list_issues(store, **filters)]
     return _page(request, "checks.html", session, "Checks", page="checks", issues=issues,
                  filters={**filters, "any": any(filters.values())}, can_accept=session.device.role == "manager",
                  message=message)
@@ -274,8 +286,11 @@ def find(request: Request, find_id: uuid.UUID) -> Response:
     if not found:
         raise HTTPException(404, detail="no find has this id here (it may not have synced yet)")
     f = found[0]
-    fields = [(k, v) for k, v in f.model_dump(mode="json").items() if v not in (None, "", [])]
-    history = changes(store, record="find", record_id=find_id, limit=2000)
+    hidden = withheld(session.device.role, [f])  # an analyst: no position of possible human remains
+    fields = [(k, NOTE if hidden.field("find", f.id, k) else v) for k, v in f.model_dump(mode="json").items()
+              if v not in (None, "", [])]
+    history = [{**c, "value": NOTE} if hidden.field("find", f.id, c["field"]) else c
+               for c in changes(store, record="find", record_id=find_id, limit=2000)]
     return _page(request, "find.html", session, f"Find {f.number}", page="finds", fields=fields, history=history)
 
 

@@ -293,3 +293,63 @@ def test_find_list_pages_and_counts(field):  # type: ignore[no-untyped-def]
     assert listing.count(FindFilter()) == 7 and listing.count(FindFilter(category="fossil")) == 0
     first, second = listing.rows(limit=3), listing.rows(limit=3, offset=3)
     assert [r["number"] for r in first + second + listing.rows(limit=3, offset=6)] == [7, 6, 5, 4, 3, 2, 1]
+
+
+def _other_tablets_find(store, demo, number: int) -> Find:  # type: ignore[no-untyped-def]
+    """A find of another tablet, as a pull brings it (its device's blocks are not on this tablet)."""
+    from schema.records import Device
+    from tests.helpers import find_data
+
+    other = Device(label="TAB-2", role="recorder")
+    store.put(other)
+    return store.put(Find.model_validate(find_data(demo, number=number, device_id=other.id, recorder="JT")))
+
+
+def test_a_number_edit_follows_the_block_rule_of_a_save(field):  # type: ignore[no-untyped-def]
+    store, demo, days, sim = field
+    finds = FindController(store, days)
+    _other_tablets_find(store, demo, 1001)
+    saved = finds.record(category="artifact", values={"material": "chert"},
+                         position=Position("shot", shot_line=sim.shot_line(1001.25, 2001.5, 99.81)))
+    with pytest.raises(RecordInvalid) as refused:
+        finds.edit(saved.find.id, {"number": 1001})
+    assert str(refused.value) == (
+        "find refused, nothing was saved. number: find number 1001 is outside this device's number blocks (1-100). "
+        "Fix: take the next number from the device, or ask the data manager for a new block")
+    assert store.get(Find, saved.find.id).number == saved.find.number
+    assert finds.next_number() == saved.find.number + 1  # the refused edit took no number
+
+
+def test_a_number_edit_follows_the_duplicate_rule_of_a_save(field):  # type: ignore[no-untyped-def]
+    from schema.errors import DuplicateRecord
+
+    store, demo, days, sim = field
+    finds = FindController(store, days)
+    first, second = (finds.record(category="artifact", values={"material": "chert"},
+                                  position=Position("shot", shot_line=sim.shot_line(1001.25, 2001.5 + k, 99.81)))
+                     for k in range(2))
+    theirs = _other_tablets_find(store, demo, 7)  # in this tablet's block: a camp renumbering put it there
+    for number in (first.find.number, theirs.number):
+        with pytest.raises(DuplicateRecord) as refused:
+            finds.edit(second.find.id, {"number": number})
+        assert str(refused.value) == (f"find with number={number} already exists; choose another number or edit the "
+                                      "existing record")
+    moved = finds.edit(second.find.id, {"number": 40})  # free, inside the block: taken
+    assert moved.find.number == 40 and store.get(Find, second.find.id).number == 40
+    assert finds.next_number() == 41
+
+
+def test_the_next_number_counts_only_numbers_inside_the_tablets_blocks(field):  # type: ignore[no-untyped-def]
+    store, demo, days, sim = field
+    finds = FindController(store, days)
+    saved = finds.record(category="artifact", values={"material": "chert"},
+                         position=Position("shot", shot_line=sim.shot_line(1001.25, 2001.5, 99.81)))
+    # the camp renumbered one of this tablet's finds to 1001 (outside its block 1-100); it arrives at a pull
+    store.put(store.get(Find, saved.find.id).model_copy(update={"number": 1001}))
+    assert finds.next_number() == 1
+    again = finds.record(category="artifact", values={"material": "basalt"},
+                         position=Position("shot", shot_line=sim.shot_line(1001.25, 2002.5, 99.81)))
+    assert again.find.number == 1
+    # a find whose number the camp gave stays editable: an unchanged number is not judged again
+    edited = finds.edit(saved.find.id, {"notes": "renumbered at camp"})
+    assert (edited.find.number, edited.find.notes) == (1001, "renumbered at camp")

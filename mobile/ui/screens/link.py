@@ -1,5 +1,6 @@
 """The camp link: enrol (type the code and address, or paste the scanned line), see what waits, sync with a
-progress bar (in the background; the screen stays usable), or write a bundle to a folder for the USB stick."""
+progress bar (in the background; the screen stays usable), or with no Wi-Fi write a bundle to a folder on the USB
+stick and read the return bundle the camp wrote for this tablet."""
 
 from __future__ import annotations
 
@@ -65,3 +66,10 @@ class LinkScreen(BaulkScreen):
         manifest = self.guard(self.app.link.export_bundle, self.ids.bundle_folder.text)
         if manifest is not None:
             self.outcome = f"Bundle written: {manifest['path']}. Give the stick to the data manager."
+
+    def read_bundle(self) -> None:
+        self.outcome = ""
+        read = self.guard(self.app.link.read_bundle, self.ids.bundle_folder.text)
+        if read is not None:
+            self.outcome = read.sentence()
+            self.refresh()
