@@ -49,7 +49,10 @@ def export_bundle(store: TabletStore, out: Path, *, batch_size: int = 500) -> di
     if out.is_dir():
         out = out / f"{label}-{dt.datetime.now(dt.timezone.utc):%Y%m%dT%H%M%SZ}.baulkbundle"
     manifest = write_bundle(out, device=device_id, label=label, token=token, batches=batches, cursor=cursor)
-    return {"path": str(out), **manifest}
+    from .photos import write_photo_pack  # the photo files the camp may lack, beside it (<bundle>.photos.zip)
+
+    pack = write_photo_pack(store, out)
+    return {"path": str(out), **manifest, "photos": pack[1] if pack else 0}
 
 
 @dataclass(frozen=True)

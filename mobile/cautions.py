@@ -24,6 +24,7 @@ class Caution:
     ask: str
     depth_m: float | None = None
     stops_work: bool = False
+    affirm: tuple[str, ...] = ()  # steps the recorder ticks one by one; only the ticked ones are recorded
 
 
 def shoring_caution(depth_m: float, limit_m: float) -> Caution:
@@ -44,6 +45,7 @@ def human_remains_caution() -> Caution:
               "authorities that local law names before anything more is exposed or moved, and follow their "
               "instructions and the law of the place. The precise location is withheld from public exports."),
         ask="Who was notified, and when?",
+        affirm=("work stopped at the spot", "the spot secured"),
     )
 
 

@@ -1,17 +1,27 @@
 """Live checks on the tablet: the same rules the server runs, on what this tablet holds, right after a save.
 
 They never stop a save; the recorder sees each problem with its fix and corrects the record or confirms it
-(the confirmation reason travels to the data manager with the record's notes once sync lands).
+(the confirmation reason travels to the data manager with the record's notes once sync lands). A level or a
+relation changes what the finds of its units are checked against: ``recheck_units`` runs the checks again on
+those finds, keeps the result beside each find, and says how many changed.
 """
 
 from __future__ import annotations
 
+import uuid
+from dataclasses import dataclass, field
+from typing import Iterable
+
+import sqlalchemy as sa
+
 from schema.records import Find
 from schema.strata import Issue, validate
+from schema.tables import metadata
 
 from .store import TabletStore
+from .tables import live_check
 
-__all__ = ["check_find", "check_matrix"]
+__all__ = ["Rechecked", "check_find", "check_matrix", "keep_checks", "recheck_units"]
 
 
 def check_find(store: TabletStore, find: Find) -> list[Issue]:
@@ -27,3 +37,72 @@ def check_matrix(store: TabletStore) -> list[Issue]:
     """Matrix problems (not the informational ones) after a relation or unit is saved."""
     report = validate(store.site_data())
     return [i for i in report.matrix.issues if i.severity != "info"]
+
+
+def keep_checks(conn: sa.Connection, find_id: uuid.UUID, issues: Iterable[Issue]) -> set[str]:
+    """Replace a find's kept checks by ``issues`` (confirmations of codes that still apply are kept); returns the
+    codes now open."""
+    kept = dict(conn.execute(sa.select(live_check.c.code, live_check.c.confirmed_reason)
+                             .where(live_check.c.find_id == find_id)).all())
+    conn.execute(live_check.delete().where(live_check.c.find_id == find_id))
+    rows = {i.code: {"find_id": find_id, "code": i.code, "severity": i.severity, "message": i.message,
+                     "fix": i.fix, "confirmed_reason": kept.get(i.code)} for i in issues if i.severity != "info"}
+    if rows:
+        conn.execute(live_check.insert(), list(rows.values()))
+    return set(rows)
+
+
+@dataclass
+class Rechecked:
+    """Finds checked again after a level or relation change: how many, and whose open checks changed."""
+
+    checked: int = 0
+    now_failing: list[int] = field(default_factory=list)  # numbers of finds with a check that was not open before
+    cleared: list[int] = field(default_factory=list)  # numbers of finds that no longer fail a check they failed
+
+    def sentence(self, what: str) -> str:
+        if self.checked == 0:
+            return f"No finds of {what} to check again."
+        parts = [f"Checks run again on {self.checked} {'find' if self.checked == 1 else 'finds'} of {what}"]
+        if not self.now_failing and not self.cleared:
+            parts.append("nothing changed")
+        if self.now_failing:
+            n = len(self.now_failing)
+            parts.append(f"CHECK: {n} {'find now fails' if n == 1 else 'finds now fail'} a check "
+                         f"({_numbers(self.now_failing)}; see Finds, Open checks)")
+        if self.cleared:
+            n = len(self.cleared)
+            parts.append(f"{n} {'find passes' if n == 1 else 'finds pass'} a check it failed ({_numbers(self.cleared)})")
+        return ": ".join(parts[:1]) + ": " + "; ".join(parts[1:]) + "."
+
+
+def _numbers(numbers: list[int]) -> str:
+    shown = ", ".join(str(n) for n in sorted(numbers)[:10])
+    return shown + (f" and {len(numbers) - 10} more" if len(numbers) > 10 else "")
+
+
+def recheck_units(store: TabletStore, unit_ids: Iterable[uuid.UUID]) -> Rechecked:
+    """Run the live checks again on the finds (not voided) of these units and keep the result; one validation
+    of the site, one transaction."""
+    units = set(unit_ids)
+    t = metadata.tables["find"]
+    with store.read() as conn:
+        finds = conn.execute(sa.select(t.c.id, t.c.number, t.c.site_id)
+                             .where(t.c.unit_id.in_(units), t.c.voided.is_(False))).all()
+    out = Rechecked(checked=len(finds))
+    if not finds:
+        return out
+    report = validate(store.site_data(site_id=finds[0].site_id))
+    by_find: dict[str, list[Issue]] = {}
+    for issue in report.issues:
+        if issue.record == "find":
+            by_find.setdefault(issue.record_id, []).append(issue)
+    with store.atomic() as conn:
+        for find_id, number, _site in finds:
+            before = set(conn.execute(sa.select(live_check.c.code).where(live_check.c.find_id == find_id)).scalars())
+            after = keep_checks(conn, find_id, by_find.get(str(find_id), []))
+            if after - before:
+                out.now_failing.append(number)
+            elif before - after:
+                out.cleared.append(number)
+    return out

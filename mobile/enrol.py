@@ -21,7 +21,32 @@ from schema.records import Device
 
 from .store import TabletStore
 
-__all__ = ["enrol", "parse_enrol_line", "pinned_context"]
+__all__ = ["check_address", "check_can_enrol", "enrol", "parse_enrol_line", "pinned_context"]
+
+
+def check_address(text: str) -> str:
+    """The camp server's address as typed, checked on the tablet (nothing is sent): ``http(s)://host[:port]``."""
+    address = (text or "").strip().rstrip("/")
+    parts = urlsplit(address)
+    try:
+        port_ok = parts.port is None or 0 < parts.port < 65536
+    except ValueError:
+        port_ok = False
+    if parts.scheme not in ("http", "https") or not parts.hostname or not port_ok or parts.query or parts.fragment:
+        raise EnrolmentRefused(f"{address!r} is not a camp server address; type it as the data manager shows it, "
+                               "e.g. https://192.168.8.10:8765")
+    return address
+
+
+def check_can_enrol(store: TabletStore) -> None:
+    """Refuse, before a one-time code is spent, to enrol a tablet that already is a device (a new camp address
+    needs no new code: it is a setting)."""
+    device, token = store.device_id(), store.token()
+    if device is not None and token is not None:
+        found = store.list(Device, id=device)
+        label = found[0].label if found else "a device of this camp"
+        raise EnrolmentRefused(f"this tablet is already enrolled as {label}; the code was not used. To follow a new "
+                               "camp address, type it and tap Save address")
 
 
 def parse_enrol_line(line: str) -> dict[str, str]:
@@ -61,7 +86,9 @@ def pinned_context(server_url: str, sha256: str, *, timeout_s: float = 10.0) -> 
 
 
 def enrol(store: TabletStore, http: httpx.Client, code: str) -> Device:
-    """Exchange the code; this tablet becomes the device it names (number blocks arrive with the first sync)."""
+    """Exchange the code; this tablet becomes the device it names (number blocks arrive with the first sync).
+    A tablet that is already enrolled is refused before the code leaves it."""
+    check_can_enrol(store)
     try:
         r = http.post("/v1/enrol", json={"code": code.strip()})
     except httpx.HTTPError as exc:

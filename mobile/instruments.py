@@ -4,12 +4,17 @@ format, the GNSS receiver's status from its NMEA stream, and a simulator for the
 The total-station line ("BKS", Baulk shot, version 1) is our own plain ASCII format, so any instrument or
 logger that can print a line can feed the tablet (a small script on a data collector, or a person typing)::
 
-    BKS,1,<hz>,<zenith>,<slope distance m>,<target height m>,<prism constant mm>,<deg|gon>*<checksum>
+    BKS,1,<hz>,<zenith>,<slope distance m>,<target height m>,<prism constant mm>,<deg|gon|dms|mil>*<checksum>
 
 Fields are decimal numbers with a point; the checksum is two hex digits, the XOR of every character between
 the leading ``B`` and the ``*`` inclusive of the ``B`` (the same checksum idea NMEA 0183 uses, applied to our
 own line). Example: ``BKS,1,45.0000,90.0000,5.0000,1.500,0,deg*28``. Lines that fail are reported with the
 reason and never guessed at.
+
+BKS is one built-in instrument line template (``schema.survey.templates``); ``baulk tablet --template FILE``
+makes another the active one (``use_template``), so the tablet reads what the instrument itself sends. Lines
+typed on the tablet are always BKS lines; every other line is read through the active template. ``ShotFeed``
+keeps the last line read, raw and decoded, for the Day screen.
 """
 
 from __future__ import annotations
@@ -22,12 +27,13 @@ from typing import Iterable, Iterator, Protocol
 
 from schema.errors import InstrumentLineInvalid
 from schema.survey import gnss
+from schema.survey import templates as tpl
 
 from .recording import Reading
 
 __all__ = [
-    "FieldSimulator", "GnssMonitor", "LineReader", "ShotSimulator", "TtyPort", "format_shot_line", "parse_shot_line",
-    "shot_checksum", "stream_lines", "typed_shot_line",
+    "FieldSimulator", "GnssMonitor", "LineReader", "ShotFeed", "ShotSimulator", "TtyPort", "active_template",
+    "format_shot_line", "parse_shot_line", "record_ends", "shot_checksum", "stream_lines", "typed_shot_line", "use_template",
 ]
 
 MAX_LINE = 512  # longer runs without a line end are noise on the wire, dropped and reported
@@ -46,14 +52,17 @@ class LineReader:
 
     source: ByteSource | None = None
     dropped: list[str] = field(default_factory=list)
+    ends: bytes = b""  # other bytes that end a record (ETX, or a template's own terminator character)
     _buffer: bytearray = field(default_factory=bytearray)
 
     def feed(self, data: bytes) -> list[str]:
-        """Add bytes; return the complete lines they finish (without line ends, blank lines skipped)."""
+        """Add bytes; return the complete lines they finish (without line ends, blank lines skipped; leading
+        spaces kept, as a fixed-width line needs them)."""
         self._buffer += data
         lines = []
         while True:
-            cut = min((i for i in (self._buffer.find(b"\r"), self._buffer.find(b"\n")) if i >= 0), default=-1)
+            cuts = (self._buffer.find(bytes([b])) for b in b"\r\n" + self.ends)
+            cut = min((i for i in cuts if i >= 0), default=-1)
             if cut < 0:
                 break
             raw, self._buffer = bytes(self._buffer[:cut]), self._buffer[cut + 1:]
@@ -67,11 +76,11 @@ class LineReader:
 
     def _decode(self, raw: bytes) -> str | None:
         try:
-            text = raw.decode("ascii").strip()
+            text = raw.decode("ascii").rstrip()
         except UnicodeDecodeError:
             self.dropped.append(f"a line with non-ASCII bytes was dropped ({raw[:20]!r}...)")
             return None
-        return text or None
+        return text if text.strip() else None
 
     def poll(self, chunk: int = 256) -> list[str]:
         """Read what the source has now and return the finished lines."""
@@ -98,8 +107,11 @@ def typed_shot_line(hz: str, zenith: str, slope_distance_m: str, target_height_m
 
 
 def format_shot_line(reading: Reading, *, angle_unit: str) -> str:
-    """The BKS line for a reading (what the simulator sends and what the docs show)."""
-    body = (f"BKS,1,{reading.hz:.4f},{reading.zenith:.4f},{reading.slope_distance_m:.4f},"
+    """The BKS line for a reading (what the simulator sends and what the docs show); a reading that rounds to a
+    full turn is written 0."""
+    full = 400.0 if angle_unit == "gon" else 360.0
+    hz = float(f"{reading.hz:.4f}") % full
+    body = (f"BKS,1,{hz:.4f},{reading.zenith:.4f},{reading.slope_distance_m:.4f},"
             f"{reading.target_height_m:.3f},{reading.prism_constant_mm:g},{angle_unit}")
     return f"{body}*{shot_checksum(body)}"
 
@@ -107,39 +119,66 @@ def format_shot_line(reading: Reading, *, angle_unit: str) -> str:
 _FIELDS = ("hz", "zenith", "slope distance", "target height", "prism constant")
 
 
-def parse_shot_line(line: str, *, at: dt.datetime | None = None) -> tuple[Reading, str]:
-    """A reading and its angle unit from a BKS line; ``InstrumentLineInvalid`` names what is wrong."""
-    text = line.strip()
-    body, star, given = text.partition("*")
-    if not body.startswith("BKS,"):
-        raise InstrumentLineInvalid(f"the line {text[:40]!r} is not a shot line (it should start with 'BKS,'); "
-                                    "check the instrument's output format")
-    if not star or shot_checksum(body) != given.strip().upper():
-        raise InstrumentLineInvalid(f"the shot line {text[:40]!r} has a wrong or missing checksum "
-                                    f"(expected {shot_checksum(body)}); take the shot again")
-    parts = body.split(",")
-    if len(parts) != 8 or parts[1] != "1":
-        raise InstrumentLineInvalid(f"the shot line has {len(parts)} fields (version {parts[1] if len(parts) > 1 else '?'}); "
-                                    "Baulk reads version 1 with 8 fields")
-    values = []
-    for name, raw in zip(_FIELDS, parts[2:7]):
-        try:
-            values.append(float(raw))
-        except ValueError:
-            raise InstrumentLineInvalid(f"the {name} {raw!r} in the shot line is not a number; take the shot again") from None
-    unit = parts[7]
-    if unit not in ("deg", "gon"):
-        raise InstrumentLineInvalid(f"the angle unit {unit!r} is neither 'deg' nor 'gon'; set the instrument's unit")
-    hz, zen, sd, th, pc = values
-    full = 360.0 if unit == "deg" else 400.0
-    if not 0 <= hz < full or not 0 < zen < full:
-        raise InstrumentLineInvalid(f"angles hz {hz:g} / zenith {zen:g} are outside 0-{full:g} {unit}; re-read them")
-    if not 0 < sd < 2000:
-        raise InstrumentLineInvalid(f"slope distance {sd:g} m is not between 0 and 2000 m; take the shot again")
-    if not 0 <= th < 10:
-        raise InstrumentLineInvalid(f"target height {th:g} m is not between 0 and 10 m; check the pole height")
+_ACTIVE: list[tpl.Template] = [tpl.BKS]
+
+
+def use_template(template: tpl.Template | None) -> tpl.Template:
+    """Make ``template`` the one instrument lines are read with (None: BKS); returns it."""
+    _ACTIVE[0] = template or tpl.BKS
+    return _ACTIVE[0]
+
+
+def active_template() -> tpl.Template:
+    return _ACTIVE[0]
+
+
+def parse_shot_line(line: str, *, at: dt.datetime | None = None,
+                    template: tpl.Template | None = None) -> tuple[Reading, str]:
+    """A reading and its angle unit (deg or gon) from an instrument line: through ``template``, else a BKS line
+    (typed on the tablet) as BKS, else through the active template. ``InstrumentLineInvalid`` names the field."""
+    text = line.rstrip("\r\n")
+    if template is None:
+        template = tpl.BKS if text.lstrip().startswith("BKS,") else active_template()
+    decoded = tpl.decode(template, text)
+    o = decoded.observation
     when = at or dt.datetime.now(dt.timezone.utc)
-    return Reading(hz, zen, sd, th, when, prism_constant_mm=pc, raw_line=text), unit
+    return Reading(o.hz, o.zenith, o.slope_distance_m, o.target_height_m, when, prism_constant_mm=o.prism_constant_mm,
+                   raw_line=decoded.raw), o.angle_unit
+
+
+@dataclass
+class ShotFeed:
+    """What the instrument sent last, for the Day screen: the template in use, the last line as received and
+    what it was read as (or why it could not be read)."""
+
+    template: tpl.Template = field(default_factory=active_template)
+    last_raw: str | None = None
+    last: tpl.Decoded | None = None
+    last_error: str | None = None
+
+    def take(self, lines: Iterable[str]) -> str | None:
+        """Read the lines that came in and return the newest (None when none came). When the newest cannot be
+        read through the template, ``InstrumentLineInvalid`` says why; the screen shows it beside the raw line."""
+        newest = None
+        for line in lines:
+            newest = line
+        if newest is None:
+            return None
+        self.last_raw = newest
+        try:
+            self.last, self.last_error = tpl.decode(self.template, newest), None
+        except InstrumentLineInvalid as exc:
+            self.last, self.last_error = None, str(exc)
+            raise
+        return newest
+
+    def status(self) -> str:
+        """Three lines: the template, the last line as received, and what it was read as (or the problem)."""
+        head = f"Instrument template: {self.template.describe()}"
+        if self.last_raw is None:
+            return f"{head}\nNo line read from the instrument yet."
+        read = f"Read as: {self.last.describe()}" if self.last is not None else f"NOT READ: {self.last_error}"
+        return f"{head}\nLast line: {self.last_raw}\n{read}"
 
 
 @dataclass
@@ -186,37 +225,55 @@ class ShotSimulator:
     """Instrument lines for the demo and tests: the exact readings an instrument at ``where`` (a ``Station``, or
     a stored ``StationSetup``) would give on a target at E, N, Z, optionally with noise (``rng``)."""
 
-    def __init__(self, where: object, *, rng: object | None = None):
+    def __init__(self, where: object, *, rng: object | None = None, template: tpl.Template | None = None):
         from schema.survey.polar import Station
         from schema.survey.recompute import station_of
 
         self.station = where if isinstance(where, Station) else station_of(where)  # type: ignore[arg-type]
         self.rng = rng
+        self.template = template or tpl.BKS
 
-    def shot_line(self, e: float, n: float, z: float, *, target_height_m: float = 1.3) -> str:
+    def shot_line(self, e: float, n: float, z: float, *, target_height_m: float = 1.3, point: str | None = None) -> str:
+        """The line the instrument sends for a target on E, N, Z, written through the simulator's template (a
+        template that fixes the target height instead of sending it sets the pole to that height)."""
         from schema.survey.simulate import readings_for
 
+        t = self.template
+        if t.field("target_height") is None and t.target_height_m is not None:
+            target_height_m = t.target_height_m
         noise = {"rng": self.rng, "sigma_angle": 0.0003, "sigma_distance_m": 0.002} if self.rng is not None else {}
         hz, zen, sd = readings_for(self.station, e, n, z, target_height_m, **noise)  # type: ignore[arg-type]
-        reading = Reading(float(hz[0]), float(zen[0]), float(sd[0]), target_height_m, dt.datetime.now(dt.timezone.utc))
-        return format_shot_line(reading, angle_unit=self.station.angle_unit)
+        if t is tpl.BKS:
+            reading = Reading(float(hz[0]), float(zen[0]), float(sd[0]), target_height_m, dt.datetime.now(dt.timezone.utc))
+            return format_shot_line(reading, angle_unit=self.station.angle_unit)
+        # a prism constant the template fixes is added back on reading: send the distance without it
+        sent = float(sd[0]) - (t.prism_constant_mm / 1000 if t.field("prism_constant") is None else 0.0)
+        return tpl.encode(t, tpl.Observation(float(hz[0]), float(zen[0]), sent, target_height_m, 0.0,
+                                             self.station.angle_unit, point))
 
 
-def stream_lines(lines: Iterable[str]) -> Iterator[bytes]:
-    """Lines as a device would send them (CRLF-terminated bytes); the simulator's wire form."""
+def record_ends(template: tpl.Template) -> bytes:
+    """The bytes, besides CR and LF, that end a record of ``template`` on the wire (for ``LineReader``)."""
+    end = tpl.TERMINATORS.get(template.terminator, template.terminator)
+    return end.encode("ascii") if end not in ("\r\n", "\r", "\n") else b""
+
+
+def stream_lines(lines: Iterable[str], template: tpl.Template | None = None) -> Iterator[bytes]:
+    """Lines as a device would send them (CRLF-terminated bytes, or the template's terminator); the
+    simulator's wire form."""
     for line in lines:
-        yield (line + "\r\n").encode("ascii")
+        yield tpl.wire(template, line) if template is not None else (line + "\r\n").encode("ascii")
 
 
 class TtyPort:
     """A serial or Bluetooth (SPP) link that the system shows as a device file (``/dev/ttyUSB0``,
     ``/dev/rfcomm0``), read without blocking; set its speed beforehand (``stty -F /dev/ttyUSB0 9600``)."""
 
-    def __init__(self, path: str):
+    def __init__(self, path: str, *, ends: bytes = b""):
         import os
 
         self._fd = os.open(path, os.O_RDONLY | os.O_NONBLOCK)
-        self.reader = LineReader(self)
+        self.reader = LineReader(self, ends=ends)
 
     def read(self, n: int) -> bytes:
         import os
@@ -245,17 +302,20 @@ class FieldSimulator:
     --simulate``: backsight lines from a station whose orientation only the simulator knows, shots on random
     points inside the trench at the depth of the unit being dug, and RTK-fixed GNSS epochs."""
 
-    def __init__(self, *, seed: int = 7, orientation: float = 37.5, instrument_height_m: float = 1.552):
+    def __init__(self, *, seed: int = 7, orientation: float = 37.5, instrument_height_m: float = 1.552,
+                 template: tpl.Template | None = None):
         import random
 
         self.rng = random.Random(seed)
         self.orientation, self.instrument_height_m = orientation, instrument_height_m
+        self.template = template
 
     def backsight_line(self, station: object, target: object) -> str:
         from schema.survey.polar import Station
 
         s = Station(station.e, station.n, station.z, self.instrument_height_m, self.orientation)  # type: ignore[attr-defined]
-        return ShotSimulator(s).shot_line(target.e, target.n, target.z, target_height_m=1.5)  # type: ignore[attr-defined]
+        return ShotSimulator(s, template=self.template).shot_line(target.e, target.n, target.z,  # type: ignore[attr-defined]
+                                                                  target_height_m=1.5, point=target.code)  # type: ignore[attr-defined]
 
     def target(self, outline: list[tuple[float, float]], top_z: float, bottom_z: float) -> tuple[float, float, float]:
         """A random point well inside the trench's bounding box, between the unit's surfaces."""
@@ -266,7 +326,7 @@ class FieldSimulator:
         return round(e, 3), round(n, 3), round(z, 3)
 
     def shot_line(self, setup: object, point: tuple[float, float, float]) -> str:
-        return ShotSimulator(setup).shot_line(*point)
+        return ShotSimulator(setup, template=self.template).shot_line(*point)
 
     def gnss_lines(self, site: object, point: tuple[float, float, float]) -> list[str]:
         from schema.errors import FixNotAccepted

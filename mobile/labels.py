@@ -17,7 +17,7 @@ import uuid
 from dataclasses import dataclass
 from pathlib import Path
 
-__all__ = ["LabelData", "PREFIX", "label_payload", "parse_label_payload", "write_label_sheet"]
+__all__ = ["LabelData", "PREFIX", "fit_size", "label_payload", "parse_label_payload", "write_label_sheet"]
 
 PREFIX = "baulk-find"
 MM = 72 / 25.4  # PDF points per millimetre
@@ -69,6 +69,30 @@ def _draw_qr(canvas: object, payload: str, x: float, y: float, side: float) -> N
                             stroke=0, fill=1)
 
 
+MIN_TEXT_PT = 6.5  # smaller than this is hard to read on a bag in the field (common practice, no source)
+
+
+def _width(text: str, size: float, font: str = "Helvetica-Bold") -> float:
+    from reportlab.pdfbase.pdfmetrics import stringWidth
+
+    return float(stringWidth(text, font, size))
+
+
+def fit_size(text: str, font: str, width: float, *, largest: float) -> float:
+    """The largest type size (down to ``MIN_TEXT_PT``) at which ``text`` fits ``width`` points."""
+    size = largest
+    while size > MIN_TEXT_PT and _width(text, size, font) > width:
+        size = round(size - 0.5, 1)
+    return size
+
+
+def _cut(text: str, width: float) -> str:
+    """Text too long even at the smallest size: cut, with '...' to show it was."""
+    while text and _width(text + "...", MIN_TEXT_PT) > width:
+        text = text[:-1]
+    return text + "..."
+
+
 def _draw_label(canvas: object, label: LabelData, x: float, y: float) -> None:
     c = canvas
     pad = 3 * MM
@@ -78,13 +102,16 @@ def _draw_label(canvas: object, label: LabelData, x: float, y: float) -> None:
     c.setFillColorRGB(0, 0, 0)  # type: ignore[attr-defined]
     c.setFont("Helvetica-Bold", 20)  # type: ignore[attr-defined]
     c.drawString(tx, top - 18, f"{label.number}")  # type: ignore[attr-defined]
-    c.setFont("Helvetica-Bold", 10)  # type: ignore[attr-defined]
-    lines = [f"{label.site}  {label.trench}  unit {label.unit}", f"{label.category}: {label.material}",
+    lines = [f"{label.site}  {label.trench}  unit {label.unit}", f"{label.category}: {label.material.replace('_', ' ')}",
              f"{label.found_on.isoformat()}  {label.recorder}"]
     if label.human_remains:
         lines.append("HANDLE PER LOCAL LAW")
+    width = x + LABEL_W - pad / 2 - tx
     for i, line in enumerate(lines):
-        c.drawString(tx, top - 34 - i * 13, line[:28])  # type: ignore[attr-defined]
+        size = fit_size(line, "Helvetica-Bold", width, largest=10.0)
+        c.setFont("Helvetica-Bold", size)  # type: ignore[attr-defined]
+        c.drawString(tx, top - 34 - i * 13, line if size > MIN_TEXT_PT or _width(line, size) <= width  # type: ignore[attr-defined]
+                     else _cut(line, width))
     c.setLineWidth(0.3)  # type: ignore[attr-defined]
     c.setStrokeColorRGB(0.6, 0.6, 0.6)  # type: ignore[attr-defined]
     c.rect(x, y, LABEL_W, LABEL_H, stroke=1, fill=0)  # type: ignore[attr-defined]

@@ -19,7 +19,7 @@ from schema.survey.setup import Backsight, ControlObservation, KnownPoint, orien
 
 from .store import TabletStore
 
-__all__ = ["Reading", "record_gnss_find", "record_plotted_find", "reduce_reading", "setup_by_backsight", "setup_by_resection"]
+__all__ = ["Reading", "gnss_fields", "plotted_fields", "record_gnss_find", "record_plotted_find", "reduce_reading", "setup_by_backsight", "setup_by_resection"]
 
 
 @dataclass(frozen=True)
@@ -89,26 +89,29 @@ def reduce_reading(setup: StationSetup, reading: Reading) -> tuple[Shot, tuple[f
     return shot, (e, n, z)
 
 
+def plotted_fields(setup: StationSetup, reading: Reading) -> tuple[Shot, dict[str, Any]]:
+    """The raw shot to keep and the find fields it sets (E, N, Z from the reduction, its source and sigma)."""
+    shot, (e, n, z) = reduce_reading(setup, reading)
+    return shot, {"e": e, "n": n, "z": z, "position_source": "total_station", "shot_id": shot.id, "gnss_fix_id": None,
+                  "position_sigma_m": 0.005}
+
+
 def record_plotted_find(
     store: TabletStore, *, setup: StationSetup, reading: Reading, find: dict[str, Any],
     sample: dict[str, Any] | None = None,
 ) -> Find:
     """Save the raw shot and the find it positions (E, N, Z from the reduction) in one transaction."""
-    shot, (e, n, z) = reduce_reading(setup, reading)
+    shot, fields = plotted_fields(setup, reading)
+    if "position_sigma_m" in find:
+        fields["position_sigma_m"] = find["position_sigma_m"]
     with store.atomic():
         store.add(shot)
-        return store.save_find(
-            find={**find, "e": e, "n": n, "z": z, "position_source": "total_station", "shot_id": shot.id,
-                  "position_sigma_m": find.get("position_sigma_m", 0.005)},
-            sample=sample,
-        )
+        return store.save_find(find={**find, **fields}, sample=sample)
 
 
-def record_gnss_find(
-    store: TabletStore, *, site: Site, sentences: list[str], find: dict[str, Any],
-    override_reason: str | None = None, sample: dict[str, Any] | None = None,
-) -> Find:
-    """Save the GNSS fix (raw sentences kept) and the find it positions; only RTK fixed unless overridden."""
+def gnss_fields(*, site: Site, sentences: list[str], at: dt.datetime,
+                override_reason: str | None = None) -> tuple[GnssFix, dict[str, Any]]:
+    """The GNSS fix to keep (raw sentences) and the find fields it sets; only RTK fixed unless overridden."""
     log = gnss.parse_nmea(sentences)
     if log.rejected or len(log.fixes) != 1:
         why = "; ".join(f"line {r.line}: {r.reason}" for r in log.rejected) or f"{len(log.fixes)} fixes in the input"
@@ -131,13 +134,19 @@ def record_gnss_find(
         orthometric_height_m=fix.orthometric_height_m, geoid_separation_m=fix.geoid_separation_m,
         ellipsoidal_height_m=fix.ellipsoidal_height_m, fix_quality=fix.quality, hdop=fix.hdop,
         sigma_lat_m=fix.sigma_lat_m, sigma_lon_m=fix.sigma_lon_m, sigma_alt_m=fix.sigma_alt_m,
-        fixed_at=fix.fixed_at or find["found_at"], plot_override_reason=override_reason if decision.overridden else None,
+        fixed_at=fix.fixed_at or at, plot_override_reason=override_reason if decision.overridden else None,
     )
     sigma = max((s for s in (fix.sigma_lat_m, fix.sigma_lon_m) if s is not None), default=None)
+    return record, {"e": float(x[0]), "n": float(y[0]), "z": fix.orthometric_height_m + site.vertical_offset_m,
+                    "position_source": "gnss", "gnss_fix_id": record.id, "shot_id": None, "position_sigma_m": sigma}
+
+
+def record_gnss_find(
+    store: TabletStore, *, site: Site, sentences: list[str], find: dict[str, Any],
+    override_reason: str | None = None, sample: dict[str, Any] | None = None,
+) -> Find:
+    """Save the GNSS fix (raw sentences kept) and the find it positions; only RTK fixed unless overridden."""
+    record, fields = gnss_fields(site=site, sentences=sentences, at=find["found_at"], override_reason=override_reason)
     with store.atomic():
         store.add(record)
-        return store.save_find(
-            find={**find, "e": float(x[0]), "n": float(y[0]), "z": fix.orthometric_height_m + site.vertical_offset_m,
-                  "position_source": "gnss", "gnss_fix_id": record.id, "position_sigma_m": sigma},
-            sample=sample,
-        )
+        return store.save_find(find={**find, **fields}, sample=sample)

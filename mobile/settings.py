@@ -8,7 +8,9 @@ import platformdirs
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
-__all__ = ["TabletSettings"]
+__all__ = ["GNSS_MAX_AGE_S", "TabletSettings"]
+
+GNSS_MAX_AGE_S = 60.0  # a fix older than this needs a fresh reading or a reason (a walk to the next find; our choice)
 
 
 def _default_store() -> Path:
@@ -25,3 +27,6 @@ class TabletSettings(BaseSettings):
                              description="where bag-label sheets (PDF) are written")
     laser_class: str = Field(default="see the instrument's label", max_length=40,
                              description="the total station's laser class, shown with the instrument setup")
+    gnss_max_age_s: float = Field(default=GNSS_MAX_AGE_S, gt=0, le=3600, allow_inf_nan=False,
+                                  description="a GNSS fix older than this (seconds since the tablet received it) "
+                                              "places a find only with a fresh reading or a reason")

@@ -29,6 +29,8 @@ from .store import TabletStore
 __all__ = ["Progress", "SyncClient", "SyncReport", "apply_page", "cursor_of", "pending_count"]
 
 Progress = Callable[[str, int, int], None]
+MAX_BATCH = 5000  # the largest push batch the camp server takes (sync_server.sync.MAX_BATCH)
+MAX_PAGE = 2000  # the largest pull page it serves (sync_server.sync.MAX_PAGE)
 
 
 @dataclass

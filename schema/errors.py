@@ -9,6 +9,7 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      +-- NoNumbersLeft          the device has used every number it was issued
      +-- RecordNotFound         an id that names no stored record
      +-- InputFileInvalid       a CSV, JSON or log file given on the command line that cannot be read
+     |    +-- TemplateInvalid   an instrument line template that cannot read a shot (key named, with the fix)
      +-- DuplicateRecord        a code or number that must be unique is taken
      +-- StoreError             a store file or database that cannot be used
      |    +-- StoreTooNew       the file was written by a newer Baulk
@@ -34,6 +35,10 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
      |    +-- NothingChanged    a correction that gives a field the value it already has
      |    +-- WrongSite         a unit put in a horizon of another site
      |    +-- HorizonOrderInvalid  a new horizon order that misses, repeats or invents a code
+     +-- PhotoError             a photo file or upload that cannot be kept as it is (nothing is kept)
+     |    +-- NotAnImage        a file Pillow cannot read as an image, or one cut short
+     |    +-- ImageTooLarge     an image past the byte or pixel bound (MAX_PHOTO_BYTES, MAX_PHOTO_PIXELS)
+     |    +-- UploadMismatch    an upload whose bytes do not hash to the photo's SHA-256
      +-- SurveyError            survey input or a survey result that cannot be used
           +-- ObservationInvalid  a reading outside its range (zenith, distance, ...)
           +-- WeakGeometry        control points duplicated, coincident or on one line
@@ -44,6 +49,7 @@ The command line turns any ``BaulkError`` into that one message and a non-zero e
           +-- FixNotAccepted      a GNSS fix not good enough for a piece-plot (and no override given)
           +-- InstrumentLineInvalid  a line from an instrument that cannot be read (checksum, field, range)
           +-- SetupNotReady       a total-station shot with no instrument setup accepted today
+          +-- MoveNotConfirmed    an instrument download that would move finds further than allowed, unconfirmed
 """
 
 from __future__ import annotations
@@ -65,15 +71,19 @@ __all__ = [
     "FieldProblem",
     "FixNotAccepted",
     "HorizonOrderInvalid",
+    "ImageTooLarge",
     "InputFileInvalid",
     "InstrumentLineInvalid",
     "MigrationFailed",
+    "MoveNotConfirmed",
     "NoNumbersLeft",
     "NotABaulkStore",
+    "NotAnImage",
     "NothingChanged",
     "NumberOutsideBlock",
     "NumberTooFar",
     "ObservationInvalid",
+    "PhotoError",
     "ProjUnavailable",
     "ReasonMissing",
     "RecordInvalid",
@@ -86,9 +96,11 @@ __all__ = [
     "StoreTooNew",
     "SurveyError",
     "SyncError",
+    "TemplateInvalid",
     "UnknownCRS",
-    "UnusableCRS",
     "UnknownField",
+    "UnusableCRS",
+    "UploadMismatch",
     "VersionIdMismatch",
     "WeakGeometry",
     "WrongDevice",
@@ -140,6 +152,10 @@ class RecordNotFound(BaulkError):
 
 class InputFileInvalid(BaulkError):
     """An input file (CSV, JSON, log) that is missing, malformed or lacks a needed column."""
+
+
+class TemplateInvalid(InputFileInvalid):
+    """An instrument line template (TOML) with a missing, unknown or contradictory key."""
 
 
 class DuplicateRecord(BaulkError):
@@ -262,6 +278,10 @@ class InstrumentLineInvalid(SurveyError):
     """A line from an instrument (or typed in) that cannot be read: bad checksum, missing field, out of range."""
 
 
+class MoveNotConfirmed(SurveyError):
+    """Points of an instrument download that would move finds further than allowed; nothing was written."""
+
+
 class SetupNotReady(SurveyError):
     """A total-station shot was given but no instrument setup has been accepted today."""
 
@@ -292,3 +312,19 @@ class WrongSite(CurationError):
 
 class HorizonOrderInvalid(CurationError):
     """A new top-to-bottom horizon order that misses, repeats or invents a horizon code."""
+
+
+class PhotoError(BaulkError):
+    """A photo file or upload that cannot be kept as it is (nothing is kept)."""
+
+
+class NotAnImage(PhotoError):
+    """A file Pillow cannot read as an image, or one cut short."""
+
+
+class ImageTooLarge(PhotoError):
+    """An image past the byte or pixel bound."""
+
+
+class UploadMismatch(PhotoError):
+    """An upload whose bytes do not hash to the photo's SHA-256."""

@@ -1,5 +1,6 @@
 """Reading the small CSV and JSON files data managers hand to the command line, with errors that name the
-file, the line, the column and the fix."""
+file, the line, the column and the fix; and the columns of the record tables the analyst's export writes
+(``record_columns``, ``record_row``: derived from the record models through ``schema.tables``)."""
 
 from __future__ import annotations
 
@@ -13,7 +14,7 @@ from typing import Any
 
 from .errors import InputFileInvalid
 
-__all__ = ["json_key_lines", "read_csv", "read_json", "read_text"]
+__all__ = ["json_key_lines", "read_csv", "read_json", "read_text", "record_columns", "record_row"]
 
 # What each kind of input file is, and how to get a good one again, for a file that is not UTF-8 text.
 _NOT_TEXT = {
@@ -110,3 +111,59 @@ def json_key_lines(path: Path) -> tuple[Any, dict[str, int]]:
             if found:
                 lines[key] = text.count("\n", 0, found.start()) + 1
     return value, lines
+
+
+# --- Record tables for the analyst's export -------------------------------------------------------------------
+# Export columns are derived from the SQL tables (``schema.tables``), which derive from the record models: a field
+# added to a record reaches its export table, its data-package type, its vocabulary and its description at once.
+
+_FRICTIONLESS = {"Uuid": "string", "Enum": "string", "Boolean": "boolean", "BigInteger": "integer",
+                 "Integer": "integer", "Double": "number", "Float": "number", "String": "string",
+                 "UTCDateTime": "datetime", "DateTime": "datetime", "Date": "date", "JSON": "string"}
+
+Column = tuple[str, str, str, dict[str, Any]]  # name, Frictionless type, description, constraints
+
+
+def record_columns(record: str, *, drop: tuple[str, ...] = ("site_id",)) -> list[Column]:
+    """The export columns of one record type (``schema.records.REGISTRY`` name): every field but ``drop``, typed
+    for a Frictionless Table Schema (ids and codes as strings, vocabularies as ``enum`` constraints, JSON-valued
+    fields as JSON text), ``required`` where the record requires the field, the field's description."""
+    from .tables import metadata
+
+    out: list[Column] = []
+    for col in metadata.tables[record].columns:
+        if col.name in drop:
+            continue
+        kind = type(col.type).__name__
+        ftype = _FRICTIONLESS.get(kind, "string")
+        # an empty text reads as missing in the export (missingValues [""]): text fields are never "required"
+        must = col.primary_key or (not col.nullable and kind not in ("String", "JSON"))
+        cons: dict[str, Any] = {"required": True} if must else {}
+        if col.primary_key:
+            cons["unique"] = True
+        if kind == "Enum":
+            cons["enum"] = list(col.type.enums)  # type: ignore[attr-defined]
+        what = col.comment or col.name.replace("_", " ")
+        if kind == "JSON":
+            what += " (JSON text)"
+        if kind == "Uuid":
+            what += " (UUID)" if col.primary_key else " (UUID of the record it names)"
+        out.append((col.name, ftype, what, cons))
+    return out
+
+
+def record_row(record: Any, columns: list[Column]) -> dict[str, Any]:
+    """One record (a pydantic model) as the row of its export table: JSON-valued fields as compact JSON text,
+    ids as text."""
+    import uuid as _uuid
+
+    raw = record.model_dump()
+    row: dict[str, Any] = {}
+    for name, ftype, _what, _c in columns:
+        v = raw.get(name)
+        if isinstance(v, (list, dict, tuple)):
+            v = json.dumps(v, sort_keys=True, separators=(",", ":"), default=str)
+        elif isinstance(v, _uuid.UUID):
+            v = str(v)
+        row[name] = v
+    return row

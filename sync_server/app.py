@@ -9,7 +9,7 @@ from typing import Any, AsyncIterator, Iterator
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse
+from fastapi.responses import JSONResponse, RedirectResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
@@ -24,15 +24,18 @@ from .store import ServerStore
 from .devices import EnrolRateLimit
 from .headers import SecurityHeaders
 from .limits import BodyLimit
+from .photos import PhotoVault, default_photo_dir
 from .tls import cert_fingerprint
-from .validation import Revalidator
+from .validation import RevalidateAfterAnswer, Revalidator
 from .web.curation_pages import ROUTE_ROLES as CURATION_ROLES
+from .web.photo_pages import ROUTE_ROLES as PHOTO_PAGE_ROLES
 
 __all__ = ["ROUTE_ROLES", "create_app"]
 
 # Every route declares who may call it; a test walks the app and fails on a route missing here.
 ROUTE_ROLES: dict[str, str] = {
     "GET /v1/status": "public",
+    "GET /": "public (sends a browser on to the camp pages)",
     "GET /v1/issues": "manager, analyst",
     "POST /v1/issues/{key}/accept": "manager",
     "POST /v1/sync/push": "recorder, manager",
@@ -46,6 +49,13 @@ ROUTE_ROLES: dict[str, str] = {
     "POST /v1/devices/{device_id}/revoke": "manager",
     "GET /v1/audit": "manager",
     "GET /v1/exports/latest.zip": "manager, analyst",
+    "GET /v1/finds": "manager, analyst",  # sync_server/routes/finds.py, units.py (sync_server/reading.py)
+    "GET /v1/units": "manager, analyst",
+    # photo files (sync_server/routes/photos.py; HEAD /v1/photos/uploads/{sha256} too: recorder, manager)
+    "POST /v1/photos/missing": "recorder, manager",
+    "POST /v1/photos/uploads": "recorder, manager",
+    "PATCH /v1/photos/uploads/{sha256}": "recorder, manager",
+    "GET /v1/photos/files/{sha256}": "recorder, manager, analyst",
     # camp pages: a session cookie from signing in with a manager or analyst token (sync_server/web)
     "GET /camp/sign-in": "public (the sign-in form)",
     "POST /camp/sign-in": "public (a manager or analyst token in the form)",
@@ -63,6 +73,7 @@ ROUTE_ROLES: dict[str, str] = {
     "GET /camp/exports": "page: manager, analyst",
     "GET /camp/exports/download": "page: manager, analyst",
     **CURATION_ROLES,  # Horizons, Dates, corrections, Site: sync_server/web/curation_pages.py
+    **PHOTO_PAGE_ROLES,  # the Photos register, thumbnails and files: sync_server/web/photo_pages.py
 }
 
 _STATUS = {RecordInvalid: 422, RecordNotFound: 404, DuplicateRecord: 409, BatchClash: 409, WrongDevice: 403,
@@ -101,6 +112,7 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
     def attach(app: FastAPI, st: ServerStore) -> None:
         app.state.store = st
         app.state.revalidate = Revalidator(st)
+        app.state.photos = PhotoVault(settings.photos_dir or default_photo_dir(st.url))
 
     @contextlib.asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -114,6 +126,7 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
                 app.state.store.close()
 
     app = FastAPI(title="Baulk camp server", version=__version__, lifespan=lifespan)
+    app.state.max_body_bytes = settings.max_body_bytes
     app.state.enrol_limit = EnrolRateLimit(limit=settings.enrol_attempts_per_minute)
     app.state.cert_fingerprint = cert_fingerprint(settings.tls_cert) if settings.tls_cert else None
     if store is not None:  # a given store is ready at once (in-process clients that run no lifespan)
@@ -152,14 +165,22 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
             site_codes=sorted(s.code for s in st.list(Site)),
         )
 
-    from .routes import devices, exports, issues, sync
+    @app.get("/", include_in_schema=False)
+    def root() -> RedirectResponse:
+        """The server's bare address opens the camp pages (their sign-in page when no one is signed in)."""
+        return RedirectResponse("/camp/", status_code=303)
 
-    for module in (issues, sync, devices, exports):
+    from .routes import devices, exports, issues, photos, sync
+    from .routes import finds, units
+
+    for module in (issues, sync, devices, exports, photos, finds, units):
         app.include_router(module.router, responses=ERROR_RESPONSES)
-    from .web import curation_pages, pages
+    from .web import curation_pages, pages, photo_pages
 
     app.include_router(pages.router)
     app.include_router(curation_pages.router)
+    app.include_router(photo_pages.router)
+    app.add_middleware(RevalidateAfterAnswer)  # checks run again after any request that changed records
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(SecurityHeaders)
     return app

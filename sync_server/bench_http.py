@@ -2,9 +2,15 @@
 with a real ``baulk serve`` process.
 
 Each simulated tablet is a thread with its own HTTP client and device token: it pushes the batches a tablet
-would cut (500 versions each, the tablet's default) and after each one pulls a page after its cursor. The run
-fails on any answer other than 200, on a pull that serves a version twice, and when the server ends up with
-other than every version sent. The server runs in its own process, so its
+would cut (500 versions each, the tablet's default) and after each one pulls a page after its cursor; once every
+tablet's pushes are in (the timed part ends there), each pulls on until caught up. As a tablet does, a request
+whose connection dropped is sent again (a push again is answered from its stored acknowledgement); every retry is
+counted (``retries``). The run fails on any answer other than 200, on a tablet thread that stops, on a pull that
+serves a version twice, and when the server ends up with other than every version sent. Body bytes each way
+are counted per tablet: ``tablet_sent_mb``, ``tablet_received_mb`` (medians), and
+``tablet_received_before_mb``, what the tablet would have received had the pulls sent its own versions back
+too, as they did before issue 16 (the versions left out, ``own_left_out``, at their mean JSON size).
+The server runs in its own process, so its
 memory is its own: the report gives its resident memory when idle and its peak (``VmHWM``) during the run.
 The baseline is one SQLAlchemy Core insert of the same version rows in one transaction (no HTTP, no merge).
 Linearity: after the timed runs the same job is run with half the finds per tablet; ``growth_2x`` is the
@@ -36,6 +42,7 @@ from .store import ServerStore
 TABLETS = 20
 BATCH = 500
 PAGE = 500
+RETRIES = 5  # a request whose connection dropped is tried again this many times, as a tablet would
 
 
 def _rss_kb(pid: int) -> dict[str, int]:
@@ -78,10 +85,11 @@ def _setup(size: int, work: Path) -> dict[str, Any]:
     half = [{**t, "bodies": t["bodies"][: max(1, len(t["bodies"]) // 2)]} for t in full]
     rows = [{**json.loads(v.canonical()), "record_id": v.record_id, "device": v.device, "batch": 1, "log_seq": None}
             for t in full for v in t["versions"]]
+    version_bytes = statistics.mean(len(v.canonical()) for t in full for v in t["versions"])
     for t in full:
         del t["versions"]
     finds = TABLETS * size
-    return {"template": template, "full": full, "half": half, "rows": rows,
+    return {"template": template, "full": full, "half": half, "rows": rows, "version_bytes": version_bytes,
             "report": {"tablets": TABLETS, "finds": finds, "versions": len(rows), "runs": []}}
 
 
@@ -120,46 +128,106 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
 
         pulls: list[float] = []
 
-        def tablet(t: dict[str, Any]) -> None:
+        retries: list[str] = []
+        wire: list[dict[str, int]] = []
+
+        def call(http: Any, method: str, url: str, **kw: Any) -> Any:
+            """One request as a tablet makes it: a dropped connection is tried again (a push again is answered
+            from its stored acknowledgement), each retry counted; after RETRIES the failure stands."""
+            for attempt in range(RETRIES + 1):
+                try:
+                    return http.request(method, url, **kw)
+                except httpx.TransportError as exc:
+                    with lock:
+                        retries.append(f"{method} {url}: {type(exc).__name__}: {exc}")
+                    if attempt == RETRIES:
+                        raise
+                    time.sleep(0.2 * (attempt + 1))
+
+        def pushes(http: Any, bodies: list[bytes], pull: Any, counts: dict[str, int]) -> None:
             """Push each batch, then pull one page after this tablet's cursor, as a syncing tablet does."""
+            for body in bodies:
+                t0 = time.perf_counter()
+                r = call(http, "POST", "/v1/sync/push", content=body)
+                counts["sent"] += len(body)
+                counts["received"] += len(r.content)
+                t1 = time.perf_counter()
+                page = pull()
+                t2 = time.perf_counter()
+                with lock:
+                    latencies.append(t1 - t0)
+                    pulls.append(t2 - t1)
+                    for resp in (r, page):
+                        if resp.status_code != 200:
+                            failures.append(f"{resp.status_code}: {resp.text[:200]}")
+
+        def tablet(t: dict[str, Any]) -> None:
+            """The pushes (timed), then, once every tablet's are in, pull on until caught up (not timed). Counts
+            the body bytes each way and the caller's own versions the pulls left out."""
             cursor, seen = 0, set()
+            counts = {"sent": 0, "received": 0, "own_left_out": 0, "pulled": 0}
+
+            def pull() -> Any:
+                nonlocal cursor
+                page = call(http, "GET", "/v1/sync/pull", params={"after": cursor, "limit": PAGE})
+                counts["received"] += len(page.content)
+                if page.status_code != 200:
+                    return page
+                got = page.json()
+                ids = [v["id"] for v in got["versions"]]
+                if seen.intersection(ids) or len(set(ids)) != len(ids):
+                    with lock:
+                        failures.append("a pull served a version this tablet had already been given")
+                seen.update(ids)
+                counts["own_left_out"] += got.get("own_left_out", 0)
+                counts["pulled"] += len(ids)
+                cursor = got["next"]
+                return page
+
             with httpx.Client(base_url=base, timeout=600, headers={"Authorization": f"Bearer {t['token']}",
                                                                    "content-type": "application/json"}) as http:
-                for body in t["bodies"]:
-                    t0 = time.perf_counter()
-                    r = http.post("/v1/sync/push", content=body)
-                    t1 = time.perf_counter()
-                    page = http.get("/v1/sync/pull", params={"after": cursor, "limit": PAGE})
-                    t2 = time.perf_counter()
-                    with lock:
-                        latencies.append(t1 - t0)
-                        pulls.append(t2 - t1)
-                        for resp in (r, page):
-                            if resp.status_code != 200:
-                                failures.append(f"{resp.status_code}: {resp.text[:200]}")
-                    if page.status_code == 200:
-                        got = page.json()
-                        ids = [v["id"] for v in got["versions"]]
-                        if seen.intersection(ids) or len(set(ids)) != len(ids):
+                try:
+                    try:
+                        pushes(http, t["bodies"], pull, counts)
+                    finally:
+                        with pushing:
+                            pushing_left[0] -= 1
+                            pushing.notify_all()
+                    pushed.wait()
+                    while True:
+                        page = pull()
+                        if page.status_code != 200:
                             with lock:
-                                failures.append("a pull served a version this tablet had already been given")
-                        seen.update(ids)
-                        cursor = got["next"]
+                                failures.append(f"{page.status_code}: {page.text[:200]}")
+                            break
+                        if not page.json()["more"]:
+                            break
+                except Exception as exc:  # noqa: BLE001 - a tablet that dies fails the run, never silently
+                    with lock:
+                        failures.append(f"a tablet stopped: {type(exc).__name__}: {exc}")
+                finally:
+                    with lock:
+                        wire.append(counts)
 
+        pushed, pushing, pushing_left = threading.Event(), threading.Condition(), [len(tablets)]
         t0 = time.perf_counter()
         threads = [threading.Thread(target=tablet, args=(t,)) for t in tablets]
         for th in threads:
             th.start()
+        with pushing:
+            pushing.wait_for(lambda: pushing_left[0] == 0)
+        elapsed = time.perf_counter() - t0  # the pushes (each with its pull page); the catch-up is not timed
+        pushed.set()
         for th in threads:
             th.join()
-        elapsed = time.perf_counter() - t0
         peak = _rss_kb(proc.pid)["VmHWM"]
     finally:
         proc.terminate()
         proc.wait(timeout=60)
     if failures:
         log = (work / f"{tag}.log").read_text(errors="replace")
-        raise RuntimeError(f"{len(failures)} pushes failed, first: {failures[0]}; server log ends: {log[-3000:]}")
+        raise RuntimeError(f"{len(failures)} requests failed ({len(retries)} retries), first: {failures[0]}; "
+                           f"server log ends: {log[-3000:]}")
     import sqlalchemy as sa
 
     expected = sum(len(json.loads(b)["versions"]) for t in tablets for b in t["bodies"])
@@ -170,7 +238,7 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
     if held != expected:
         raise RuntimeError(f"the server holds {held} find versions; the tablets sent {expected}")
     return {"elapsed_s": elapsed, "idle_mb": idle / 1024, "peak_mb": peak / 1024, "latencies": latencies,
-            "pulls": pulls}
+            "pulls": pulls, "retries": retries, "wire": wire}
 
 
 def _subject(state: dict[str, Any], work: Path, i: int) -> float:
@@ -190,7 +258,20 @@ def _baseline(state: dict[str, Any], work: Path, i: int) -> None:
 def _after(state: dict[str, Any], work: Path) -> None:
     """Summarise the timed runs, then time the same job at half the data for the growth figure."""
     runs = state["report"].pop("runs")
-    halves = [run_e2e(state, work, f"half-{k}", state["half"])["elapsed_s"] for k in range(len(runs))]
+    half_runs = [run_e2e(state, work, f"half-{k}", state["half"]) for k in range(len(runs))]
+    halves = [r["elapsed_s"] for r in half_runs]
+    wire = [w for r in runs for w in r["wire"]]
+    mb = 1024 * 1024
+    own_bytes = state["version_bytes"]  # a version as JSON, on average: what each left-out one would have cost
+    state["report"].update({
+        "tablet_sent_mb": round(statistics.median(w["sent"] for w in wire) / mb, 2),
+        "tablet_received_mb": round(statistics.median(w["received"] for w in wire) / mb, 2),
+        # before issue 16 the pull sent the tablet's own versions back too (estimate: their JSON size)
+        "tablet_received_before_mb": round(statistics.median(w["received"] + w["own_left_out"] * own_bytes
+                                                             for w in wire) / mb, 2),
+        "tablet_pulled_versions": int(statistics.median(w["pulled"] for w in wire)),
+        "retries": sum(len(r["retries"]) for r in runs + half_runs),
+    })
     lat = sorted(x for r in runs for x in r["latencies"])
     pulled = sorted(x for r in runs for x in r["pulls"])
     full = statistics.median(r["elapsed_s"] for r in runs)

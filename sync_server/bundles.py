@@ -64,9 +64,12 @@ def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
             if cursor is not None:
                 state_set(conn, _cursor_key(device.id), cursor)
     fresh = [a for a in acks if not a["replayed"]]
+    from .photos import import_photo_pack, vault_for  # the photo pack beside it, after the records that name them
+
+    photos = import_photo_pack(store, vault_for(store), Path(path))
     return {"device": device.label, "batches": len(acks), "applied": sum(a["applied"] for a in fresh),
             "replayed": len(acks) - len(fresh), "refused": [r for a in fresh for r in a["refused"]], "acks": acks,
-            "cursor": cursor}
+            "cursor": cursor, "photos": photos}
 
 
 def _acked(conn: sa.Connection, device_id: uuid.UUID) -> int:

@@ -64,13 +64,22 @@ def demo(out: Path) -> None:
 @click.option("--store", "store_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="The tablet's SQLite file [default: tablet.sqlite in the user data folder].")
 @click.option("--simulate", is_flag=True, help="Stand-in total station and GNSS receiver (demo and training).")
-@click.option("--instrument", default=None, help="Device file the total station's BKS lines arrive on (e.g. /dev/rfcomm0).")
+@click.option("--instrument", default=None, help="Device file the total station's lines arrive on (e.g. /dev/rfcomm0).")
+@click.option("--template", "template_file", default=None, metavar="FILE|bks|csv",
+              help="Instrument line template (TOML) the instrument's lines are read with, or a built-in one: "
+                   "bks (Baulk's own line, the default) or csv. See README, 'Instrument line templates'.")
 @click.option("--receiver", default=None, help="Device file the GNSS receiver's NMEA sentences arrive on.")
 @click.option("--laser-class", default=None, help="The total station's laser class as marked on it (shown with the setup).")
 def tablet(store_path: Path | None, simulate: bool, instrument: str | None, receiver: str | None,
-           laser_class: str | None) -> None:
+           laser_class: str | None, template_file: str | None) -> None:
     """Open the tablet app (Kivy) on a tablet file."""
     import os
+
+    from schema.survey.templates import load_template, template_named
+
+    template = None  # the template file is checked whole before the app opens
+    if template_file is not None:
+        template = template_named(template_file) if template_file in ("bks", "csv") else load_template(template_file)
 
     os.environ.setdefault("KIVY_NO_ARGS", "1")
     from mobile.settings import TabletSettings
@@ -78,7 +87,7 @@ def tablet(store_path: Path | None, simulate: bool, instrument: str | None, rece
 
     settings = TabletSettings()
     TabletApp(store_path=store_path or settings.store_path, simulate=simulate, instrument=instrument, receiver=receiver,
-              labels_dir=settings.labels_dir, laser_class=laser_class or settings.laser_class).run()
+              labels_dir=settings.labels_dir, laser_class=laser_class or settings.laser_class, template=template).run()
 
 
 @cli.command()
@@ -206,14 +215,24 @@ def bench(names: tuple[str, ...], quick: bool, as_json: bool, list_only: bool) -
 
 
 def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
-    results = []
+    """Run and print each benchmark in turn; one that fails is printed as failed and the others still run (the
+    command then exits 1 naming the failed ones)."""
+    results, failed = [], []
     for name in names or sorted(benchkit.BENCHMARKS):
         if name not in benchkit.BENCHMARKS:
             raise KeyError(f"unknown benchmark {name}; known: {', '.join(sorted(benchkit.BENCHMARKS))}")
         click.echo(f"running {name} ...", err=True)
-        (r,) = benchkit.run([name], quick=quick)
+        try:
+            (r,) = benchkit.run([name], quick=quick)
+        except RuntimeError as exc:
+            click.echo(f"{name:<24} FAILED: {exc}")
+            failed.append(name)
+            continue
         click.echo(benchkit.format_line(r))
         results.append(r)
+    if failed:
+        raise click.ClickException(f"{len(failed)} of {len(results) + len(failed)} benchmarks failed: "
+                                   f"{', '.join(failed)} (their lines above say why)")
     return results
 
 
@@ -446,6 +465,12 @@ def _load_benchmarks() -> None:
     import mobile.benchmarks  # noqa: F401
     import schema.benchmarks  # noqa: F401
     import sync_server.bench_http  # noqa: F401
+    import sync_server.bench_photos
+    from mobile import photos, store, sync  # the tablet's side of photos.upload (this module may cross)
+    from schema import benchkit
+
+    if "photos.upload" not in benchkit.BENCHMARKS:
+        sync_server.bench_photos.register(photos=photos, store=store, sync=sync)
     import sync_server.benchmarks  # noqa: F401
 
 

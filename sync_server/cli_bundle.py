@@ -38,6 +38,8 @@ def bundle_export(store_path: Path, out: Path) -> None:
         m = export_bundle(tablet, out)
     total = sum(b["versions"] for b in m["batches"])
     click.echo(f"wrote {m['path']}: {len(m['batches'])} batches, {total} versions from {m['device_label']}")
+    if m["photos"]:
+        click.echo(f"and {m['path']}.photos.zip: {m['photos']} photos (keep it beside the bundle)")
 
 
 @bundle.command("import")
@@ -47,14 +49,23 @@ def bundle_import(file: Path, database_url: str | None) -> None:
     """Check a bundle whole, then apply it exactly like a push (a bad bundle changes nothing)."""
     from .bundles import import_bundle
     from .cli import _server_store
+    from .validation import validate_after_merge
 
     with _server_store(database_url) as store:
         r = import_bundle(store, file)
+        if r["applied"]:
+            validate_after_merge(store)  # the checks follow the new finds (a running server shows them at once)
     click.echo(f"imported {file.name} from {r['device']}: {r['batches']} batches, {r['applied']} new versions"
                + (f", {r['replayed']} already applied" if r["replayed"] else "")
                + (f"; {len(r['refused'])} refused:" if r["refused"] else ""))
     for refused in r["refused"]:
         click.echo(f"  refused {refused['version']}: {refused['reason']}")
+    photos = r["photos"]
+    if photos["kept"] or photos["held"] or photos["refused"]:
+        click.echo(f"photos: {photos['kept']} kept, {photos['held']} held already"
+                   + (f", {len(photos['refused'])} refused:" if photos["refused"] else ""))
+    for line in photos["refused"]:
+        click.echo(f"  refused photo {line}")
 
 
 def _spans(blocks: list[tuple[int, int]]) -> str:

@@ -1,17 +1,26 @@
 """``baulk export``: the analyst's files for chosen seasons, written into one folder and described by a manifest.
 
 Files (every CSV is described by ``datapackage.json``, a Frictionless Data Package):
-- ``finds.csv``: the finds counted, with trench, unit, horizon and, outside strict mode, their open issue codes;
-- ``excluded.csv``: every find left out, with the rule code and message (voided finds always; in strict mode
-  every find an error-severity check names);
+- ``finds.csv``: the finds counted, with season, trench, unit, horizon, every recorded field and, outside strict
+  mode, their open issue codes, their unit's error codes and their open conflicts;
+- ``excluded.csv``: every find left out, with the rule code, its scope and message (voided finds always; in strict
+  mode every find an error-severity check names, whose unit such a check names, or with an open conflict);
 - ``counts_by_horizon.csv`` and ``counts_by_unit.csv``: finds and items per horizon (unit) x category x
-  material x recovery, weights, excavated m3 and sieved L, densities per m3 and per 10 L;
-- ``volumes.csv``: excavated and sieved volume per unit, from its spits;
+  material x recovery, weights, excavated m3 and sieved L, densities of bags and of items per m3 and per 10 L;
+- ``volumes.csv``: excavated and sieved volume per unit, from its spits or surfaces (none for a cut), and the
+  units whose volume shares space with it;
+- every record as a table with keys that join, ``horizons.csv`` with age brackets, ``codebook.csv`` and a
+  ``README.md`` (``sync_server/export_records.py``);
 - ``dwc_occurrence.csv``: Darwin Core occurrences of the fossil finds, coordinates in WGS 84;
+- ``dwc_archive.zip``: the same occurrences as a Darwin Core Archive (meta.xml, eml.xml, occurrence core);
 - ``finds.gpkg``: GeoPackage in the site's CRS: finds (points with Z), trenches (polygons), level points;
 - ``harris_matrix.svg`` / ``.png`` (reduced, layered, coloured by horizon, problem units outlined) and, per
   trench, ``plan_<trench>.png`` and ``section_<trench>.png`` of the plotted finds coloured by horizon;
 - ``manifest.json``: counts, validation state, software version and the SHA-256 of every file.
+
+The same store gives the same bytes: rows are sorted, ``datapackage.json``'s ``created`` is the newest exported
+find's time, pictures and the GeoPackage are written with a fixed date; only the manifest's ``created`` is the
+time of the export.
 
 Finds flagged as possible human remains never carry a precise location in any file (``location_withheld``).
 Files are written into a temporary folder and moved into place at the end, so a failed export leaves no half
@@ -20,24 +29,38 @@ set. The counting itself is ``schema.analysis``; this module reads the store and
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import datetime as dt
 import hashlib
 import json
+import os
 import shutil
 import uuid
+from collections import Counter
 from pathlib import Path
 from typing import Any, Callable
 
 from schema import __version__
-from schema.analysis import Excluded, Selection, Volume, count_rows, select_finds, unit_volumes
+from schema.analysis import (
+    Excluded, Selection, Volume, count_rows, select_finds, unit_errors, unit_volumes, volume_overlaps,
+)
 from schema.dwc import DWC_TERMS
 from schema.errors import RecordNotFound
-from schema.records import Find, Horizon, LevelPoint, Season, Site, Spit, Trench, Unit
+from schema.records import (
+    AgeDetermination, ControlPoint, Find, GnssFix, Horizon, LevelPoint, Sample, Season, Shot, Site, Spit,
+    StationSetup, Trench, Unit,
+)
+from schema.strata.dating import bracket_units, horizon_age_brackets
+from schema.strata.graph import strongly_connected
 from schema.strata.validate import validate
+from schema.tabular import record_columns, record_row
+from schema.vocab import MATERIALS
 from schema.withholding import Withheld, withheld
 
 from .export_ages import AGE_RESOURCES
+from .export_photos import PHOTO_RESOURCES, write_photo_files
+from .export_records import RECORD_RESOURCES, codebook_rows, readme, record_tables
 from .export_sql import tally_in_db
 from .store import ServerStore
 
@@ -65,21 +88,36 @@ RESOURCES: dict[str, tuple[str, list[tuple[str, str, str, dict[str, Any]]], list
         ("found_at", "datetime", "when it was found (UTC)", _ID), ("recorder", "string", "recorder's initials", _ID),
         ("location_withheld", "boolean", "possible human remains: the position is not published", _ID),
         ("issues", "string", "open check codes, space-separated (empty in strict mode)", {}),
-    ], ["id"], []),
+        ("season", "string", "season label", _ID),
+        ("unit_errors", "string", "error-severity check codes on the find's unit (matrix cycle, fill below its cut, "
+                                  "horizon order...), space-separated (empty in strict mode)", {}),
+        ("conflicts", "string", "open conflicts on the find (find.<field>) or its unit (unit.<field>), "
+                                "space-separated (empty in strict mode)", {}),
+    ], ["id"], [{"fields": ["season"], "reference": {"resource": "seasons", "fields": ["label"]}},
+                {"fields": ["trench"], "reference": {"resource": "trenches", "fields": ["code"]}},
+                {"fields": ["unit"], "reference": {"resource": "units", "fields": ["code"]}},
+                {"fields": ["horizon"], "reference": {"resource": "horizons", "fields": ["code"]}}]),
     "excluded": ("Finds left out of the tables, each with the rule that left it out", [
         ("id", "string", "find id (UUID)", _ID), ("number", "integer", "site find number", _ID),
         ("trench", "string", "trench code", _ID), ("unit", "string", "unit code", _ID),
         ("code", "string", "rule code (VOIDED, or a check code from the validation catalogue)", _ID),
         ("message", "string", "why, in words", _ID),
+        ("applies_to", "string", "what the reason is about: void, find (a check on the find), unit (a check on its "
+                                 "unit) or conflict (an open conflict on the find or its unit)",
+         {"enum": ["void", "find", "unit", "conflict"]}),
     ], ["id"], []),
-    "volumes": ("Excavated and sieved volume per unit, from its spits", [
+    "volumes": ("Excavated and sieved volume per unit, from its spits or its surfaces; a cut has none of its own", [
         ("unit", "string", "unit code", _ID), ("horizon", "string", "horizon code", {}),
         ("spits", "integer", "spits recorded", {"required": True, "minimum": 0}),
-        ("volume_from", "string", "spits, or surfaces (top and bottom level points over the trench outline)",
-         {"enum": ["spits", "surfaces"]}),
+        ("volume_from", "string", "spits, surfaces (top and bottom level points over the trench outline), or cut "
+                                  "(a cut has no volume of its own: its fill carries it)",
+         {"enum": ["spits", "surfaces", "cut"]}),
         ("excavated_m3", "number", "excavated volume, m3 (area x thickness summed over spits)", {"minimum": 0}),
         ("sieved_l", "number", "sieved volume, litres", {"minimum": 0}),
-    ], ["unit"], []),
+        ("kind", "string", "unit kind", {"enum": ["deposit", "fill", "cut", "structure"]}),
+        ("overlaps", "string", "units of the same trench whose volume shares space with this one: code:m3, "
+                               "space-separated (their volumes count that earth twice until corrected)", {}),
+    ], ["unit"], [{"fields": ["unit"], "reference": {"resource": "units", "fields": ["code"]}}]),
 }
 _COUNT_FIELDS = [
     ("category", "string", "artifact, fossil or sample", _ID), ("material", "string", "material", _ID),
@@ -89,8 +127,12 @@ _COUNT_FIELDS = [
     ("weight_g", "number", "sum of recorded weights, g; empty when none was weighed", {"minimum": 0}),
     ("excavated_m3", "number", "excavated volume of the horizon (unit), m3", {"minimum": 0}),
     ("sieved_l", "number", "sieved volume of the horizon (unit), L", {"minimum": 0}),
-    ("per_m3", "number", "finds per m3 excavated", {"minimum": 0}),
-    ("per_10l", "number", "finds per 10 L sieved (sieved finds only)", {"minimum": 0}),
+    ("per_m3", "number", "finds (bags) per m3 excavated: the same as bags_per_m3", {"minimum": 0}),
+    ("per_10l", "number", "finds (bags) per 10 L sieved (sieved finds only): the same as bags_per_10l", {"minimum": 0}),
+    ("bags_per_m3", "number", "finds (bags) per m3 excavated", {"minimum": 0}),
+    ("items_per_m3", "number", "items (pieces in the bags) per m3 excavated", {"minimum": 0}),
+    ("bags_per_10l", "number", "finds (bags) per 10 L sieved (sieved finds only)", {"minimum": 0}),
+    ("items_per_10l", "number", "items (pieces in the bags) per 10 L sieved (sieved finds only)", {"minimum": 0}),
 ]
 RESOURCES["counts_by_horizon"] = ("Finds per horizon x category x material x recovery", [
     ("horizon", "string", "horizon code; empty for units with no horizon", {}), *_COUNT_FIELDS,
@@ -99,9 +141,17 @@ RESOURCES["counts_by_unit"] = ("Finds per unit x category x material x recovery"
     ("horizon", "string", "horizon code of the unit", {}), ("unit", "string", "unit code", _ID), *_COUNT_FIELDS,
 ], ["unit", "category", "material", "recovery"],
     [{"fields": ["unit"], "reference": {"resource": "volumes", "fields": ["unit"]}}])
+RESOURCES["counts_by_horizon"][3].append({"fields": ["horizon"], "reference": {"resource": "horizons", "fields": ["code"]}})
+_SHOWN = {f[0] for f in RESOURCES["finds"][1]}
+RESOURCES["finds"][1].extend(  # every other recorded field of a find, typed from the model
+    c for c in record_columns("find", drop=("site_id", "human_remains", "voided", "void_reason")) if c[0] not in _SHOWN)
+RESOURCES["finds"][3].extend([{"fields": [k], "reference": {"resource": r, "fields": ["id"]}}
+                              for k, r in (("spit_id", "spits"), ("shot_id", "shots"), ("gnss_fix_id", "gnss_fixes"))])
+RESOURCES.update(RECORD_RESOURCES)  # seasons ... horizons, codebook: sync_server/export_records.py
 RESOURCES["dwc_occurrence"] = ("Darwin Core occurrences of the fossil finds (coordinates WGS 84)",
                                [(t, ty, d, c) for t, ty, d, c in DWC_TERMS], ["occurrenceID"], [])
 RESOURCES.update(AGE_RESOURCES)  # ages_by_horizon, ages_by_unit, ages_by_find, ranges: sync_server/export_ages.py
+RESOURCES.update(PHOTO_RESOURCES)  # photo_register (and the photos/ folder): sync_server/export_photos.py
 
 
 def _cell(v: Any) -> str:
@@ -126,7 +176,7 @@ def _write_csv(path: Path, name: str, rows: list[dict[str, Any]]) -> int:
     return len(rows)
 
 
-def _datapackage(site: Site, described: dict[str, Any] | None = None) -> dict[str, Any]:
+def _datapackage(site: Site, described: dict[str, Any] | None = None, *, created: str | None = None) -> dict[str, Any]:
     resources = []
     for name, (title, fields, pk, fks) in (described or RESOURCES).items():
         schema: dict[str, Any] = {"fields": [{"name": f, "type": t, "description": d, **({"constraints": c} if c else {})}
@@ -138,7 +188,8 @@ def _datapackage(site: Site, described: dict[str, Any] | None = None) -> dict[st
         resources.append({"name": name, "path": f"{name}.csv", "title": title, "profile": "tabular-data-resource",
                           "format": "csv", "mediatype": "text/csv", "encoding": "utf-8", "schema": schema})
     return {"name": f"baulk-{site.code.lower()}", "title": f"{site.name}: finds, counts and volumes",
-            "profile": "tabular-data-package", "created": dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+            "profile": "tabular-data-package",
+            "created": created or dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
             "resources": resources}
 
 
@@ -180,34 +231,73 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
             raise RecordNotFound(f"no season is labelled {', '.join(sorted(missing))}; "
                                  f"known: {', '.join(s.label for s in store.list(Season, site_id=site.id))}")
     season_ids = {s.id for s in chosen}
-    finds = [f for f in store.list(Find, site_id=site.id) if f.season_id in season_ids]
-    sel = _withheld(select_finds(finds, report.issues, strict=strict), withheld("export", finds))
+    finds = sorted((f for f in store.list(Find, site_id=site.id) if f.season_id in season_ids),
+                   key=lambda f: (f.number, str(f.id)))
     units, horizons = data.units, store.list(Horizon, site_id=site.id)
+    cycles = [[u for g in comp for u in report.matrix.members[g]]
+              for comp in strongly_connected(report.matrix.members, report.matrix.edges) if len(comp) > 1]
+    doubted = unit_errors(report.issues, cyclic_units=cycles, relations=data.relations)
+    conflicts = _open_conflicts(store)
+    samples = store.list(Sample)
+    hidden = withheld("export", finds, samples)
+    sel = _withheld(select_finds(finds, report.issues, strict=strict, units=doubted, conflicts=conflicts,
+                                 unit_codes={u.id: u.code for u in units}), hidden)
     unit_ids = {u.id for u in units}
     spits = [s for s in store.list(Spit) if s.unit_id in unit_ids]
     levels = [lp for lp in store.list(LevelPoint) if lp.unit_id in unit_ids]
-    volumes = unit_volumes(spits, units=units, levels=levels, outlines={t.id: list(t.outline) for t in data.trenches})
-    rows = _tables(store, tmp, site, season_ids, data.trenches, units, horizons, spits, volumes, sel, say)
+    outlines = {t.id: list(t.outline) for t in data.trenches}
+    volumes = unit_volumes(spits, units=units, levels=levels, outlines=outlines)
+    overlaps = volume_overlaps(spits, units=units, levels=levels, outlines=outlines)
+    rows = _tables(store, tmp, site, season_ids, data.trenches, units, horizons, spits, volumes, sel, say,
+                   seasons=chosen, overlaps=overlaps)
+    say("writing every record as a table, the horizons with their age brackets, the codebook")
+    brackets = bracket_units(report.matrix, data.ages, horizons)
+    record_rows = record_tables(
+        seasons=store.list(Season, site_id=site.id), trenches=data.trenches,
+        control_points=store.list(ControlPoint, site_id=site.id), units=units, relations=data.relations,
+        matrix=report.matrix, spits=spits, samples=samples, finds=sel.included,
+        ages=store.list(AgeDetermination, site_id=site.id), levels=levels,
+        setups=store.list(StationSetup, site_id=site.id),
+        shots=_site_shots(store, {s.id for s in store.list(StationSetup, site_id=site.id)}),
+        fixes=store.list(GnssFix, site_id=site.id), horizons=horizons, brackets=brackets,
+        horizon_brackets=horizon_age_brackets(brackets, report.matrix, horizons), unit_errors=doubted, hidden=hidden)
+    recorders = {f.recorder for f in finds} | {u.recorder for u in units}
+    record_rows["codebook"] = codebook_rows(RESOURCES, recorders, MATERIALS)
+    record_rows["photo_register"] = write_photo_files(store, tmp, finds=sel.included, all_finds=finds, units=units,
+                                                      trenches=data.trenches)  # copies photos/ too
+    for name, table in record_rows.items():
+        rows[name] = _write_csv(tmp / f"{name}.csv", name, table)
     grid = site.grid  # site grid -> CRS; without it the GeoPackage stays in grid metres, with no CRS
-    say("writing Darwin Core occurrences and the GeoPackage")
-    from . import export_geo
-
-    rows["dwc_occurrence"] = _write_csv(tmp / "dwc_occurrence.csv", "dwc_occurrence",
-                                        export_geo.dwc_rows(site, grid, data.trenches, units, horizons, sel))
     say("modelling the ages of the horizons and the ranges of the finds")
     from .export_ages import compute_ages, draw_age_pictures, write_age_files
 
     ages = compute_ages(data, sel.included, matrix=report.matrix)
     rows.update(write_age_files(ages, tmp))
-    (tmp / "datapackage.json").write_text(json.dumps(_datapackage(site), indent=2))
-    layers = export_geo.write_geopackage(tmp / "finds.gpkg", site, grid, data.trenches, sel.included, levels)
+    say("writing Darwin Core occurrences (table and archive) and the GeoPackage")
+    from . import export_geo  # the Darwin Core rows, archive and GeoPackage: export_geo.py, export_dwca.py
+    from .export_dwca import write_archive
+
+    occurrences = export_geo.dwc_rows(site, grid, data.trenches, units, horizons, sel, spits=spits,
+                                      horizon_ages=export_geo.age_brackets(ages))
+    rows["dwc_occurrence"] = _write_csv(tmp / "dwc_occurrence.csv", "dwc_occurrence", occurrences)
+    write_archive(tmp / "dwc_archive.zip", site, occurrences, seasons=sorted(s.label for s in chosen))
+    newest = max((f.found_at for f in finds), default=None)
+    (tmp / "datapackage.json").write_text(json.dumps(_datapackage(site, created=_cell(newest) if newest else
+                                                                  "1970-01-01T00:00:00Z"), indent=2))
+    with _fixed_dates():  # the same store, the same bytes (GDAL and matplotlib write no clock time)
+        layers = export_geo.write_geopackage(tmp / "finds.gpkg", site, grid, data.trenches, sel.included, levels,
+                                             units=units, horizons=horizons, seasons=chosen)
     say("drawing the Harris matrix and the trench plans and sections")
     from .export_pictures import draw_matrix, draw_trench_plots
 
     problems = {uuid.UUID(i.record_id) for i in report.issues if i.record == "unit" and i.record_id}
-    pictures = draw_matrix(report.matrix, horizons, problems, tmp)
-    pictures += draw_trench_plots(data.trenches, units, horizons, sel.included, tmp)
-    pictures += draw_age_pictures(ages, data, tmp)
+    with _fixed_dates():
+        pictures = draw_matrix(report.matrix, horizons, problems, tmp)
+        pictures += draw_trench_plots(data.trenches, units, horizons, sel.included, tmp, levels=levels)
+        pictures += draw_age_pictures(ages, data, tmp)
+    names = sorted([p.name for p in tmp.iterdir()] + ["README.md", "manifest.json"])
+    (tmp / "README.md").write_text(readme(site.name, RESOURCES, record_rows["codebook"], names), encoding="utf-8")
+    live = [f for f in finds if not f.voided]
     manifest = {
         "software": f"baulk {__version__}", "site": site.code, "seasons": sorted(s.label for s in chosen),
         "strict": strict, "created": dt.datetime.now(dt.timezone.utc).isoformat(),
@@ -216,12 +306,18 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
                                       "GeoPackage is in site grid metres and Darwin Core rows carry no coordinates",
         "counts": {"finds_total": len(finds), "finds_included": len(sel.included), "finds_excluded": len(sel.excluded),
                    "locations_withheld": sum(1 for f in sel.included if f.human_remains),
+                   "finds_with_open_conflicts": sum(1 for f in live if ("find", str(f.id)) in conflicts
+                                                    or ("unit", str(f.unit_id)) in conflicts),
+                   "finds_with_unit_errors": sum(1 for f in live if f.unit_id in doubted),
+                   "finds_in_matrix_cycles": sum(1 for f in live if f.unit_id in brackets.cyclic),
+                   "excluded_by_reason": dict(sorted(Counter(x.applies_to for x in sel.excluded).items())),
+                   "excluded_by_code": dict(sorted(Counter(x.code for x in sel.excluded).items())),
                    "rows": rows, "geopackage_layers": layers, "pictures": [p.name for p in pictures]},
         "validation": {**report.counts(), "checked_finds": report.finds_checked},
         "files": {},
     }
-    for p in sorted(tmp.iterdir()):
-        manifest["files"][p.name] = {"sha256": _sha256(p), "bytes": p.stat().st_size}
+    for p in sorted(q for q in tmp.rglob("*") if q.is_file()):  # photos/ included
+        manifest["files"][p.relative_to(tmp).as_posix()] = {"sha256": _sha256(p), "bytes": p.stat().st_size}
     (tmp / "manifest.json").write_text(json.dumps(manifest, indent=2))
     if out.exists():
         shutil.rmtree(out)
@@ -232,11 +328,12 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
 
 def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], trenches: list[Trench], units: list[Unit],
             horizons: list[Horizon], spits: list[Spit], vols: dict[Any, Volume], sel: Selection,
-            say: Progress) -> dict[str, int]:
+            say: Progress, *, seasons: list[Season], overlaps: dict[Any, dict[Any, float]]) -> dict[str, int]:
     unit_by_id = {u.id: u for u in units}
     trench_code = {t.id: t.code for t in trenches}
     horizon_code = {h.id: h.code for h in horizons}
     spit_number = {s.id: s.number for s in spits}
+    season_label = {s.id: s.label for s in seasons}
 
     def where(f: Find) -> dict[str, Any]:
         u = unit_by_id.get(f.unit_id)
@@ -246,19 +343,27 @@ def _tables(store: ServerStore, tmp: Path, site: Site, season_ids: set[Any], tre
     say(f"writing {len(sel.included)} finds and {len(sel.excluded)} left out")
     found = []
     for f in sel.included:  # possible human remains come blanked (_withheld): no position in any file
-        found.append({**f.model_dump(), **where(f), "spit": spit_number.get(f.spit_id) if f.spit_id else None,
-                      "location_withheld": f.human_remains, "id": str(f.id),
-                      "issues": " ".join(sel.issue_codes.get(f.id, []))})
+        found.append({**record_row(f, RESOURCES["finds"][1]), **where(f),
+                      "spit": spit_number.get(f.spit_id) if f.spit_id else None, "found_at": f.found_at,
+                      "location_withheld": f.human_remains, "id": str(f.id), "season": season_label.get(f.season_id),
+                      "issues": " ".join(sel.issue_codes.get(f.id, [])),
+                      "unit_errors": " ".join(sel.unit_errors.get(f.id, [])),
+                      "conflicts": " ".join(sel.conflicts.get(f.id, []))})
     rows = {"finds": _write_csv(tmp / "finds.csv", "finds", found)}
     rows["excluded"] = _write_csv(tmp / "excluded.csv", "excluded", [
-        {"id": str(x.find.id), "number": x.find.number, **where(x.find), "code": x.code, "message": x.message}
-        for x in sel.excluded])
+        {"id": str(x.find.id), "number": x.find.number, **where(x.find), "code": x.code, "message": x.message,
+         "applies_to": x.applies_to} for x in sel.excluded])
+    code = {u.id: u.code for u in units}
     rows["volumes"] = _write_csv(tmp / "volumes.csv", "volumes", [
         {"unit": u.code, "horizon": horizon_code.get(u.horizon_id) if u.horizon_id else None,
          "spits": vols[u.id].spits if u.id in vols else 0,
-         "volume_from": ("spits" if vols[u.id].spits else "surfaces") if u.id in vols else None,
+         "volume_from": ("spits" if vols[u.id].spits else "surfaces") if u.id in vols else
+                        ("cut" if u.kind == "cut" else None),
          "excavated_m3": round(vols[u.id].excavated_m3, 6) if u.id in vols else None,
-         "sieved_l": round(vols[u.id].sieved_l, 3) if u.id in vols and vols[u.id].spits else None} for u in units])
+         "sieved_l": round(vols[u.id].sieved_l, 3) if u.id in vols and vols[u.id].spits else None, "kind": u.kind,
+         "overlaps": " ".join(f"{code[o]}:{m3:.3f}" for o, m3 in sorted(overlaps.get(u.id, {}).items(),
+                                                                          key=lambda kv: code[kv[0]]))}
+        for u in units])
     say("counting per horizon and per unit (in the database)")
     for name, by_unit, names in (("counts_by_horizon", False, ("horizon", "category", "material", "recovery")),
                                  ("counts_by_unit", True, ("horizon", "unit", "category", "material", "recovery"))):
@@ -277,9 +382,53 @@ def _withheld(sel: Selection, hidden: Withheld) -> Selection:
     def check(x: Excluded) -> Excluded:
         row = hidden.issue({"code": x.code, "record": "find", "record_id": x.find.id, "label": f"find {x.find.number}",
                             "message": x.message})
-        return Excluded(hidden.blanked(x.find), x.code, row["message"])
+        return Excluded(hidden.blanked(x.find), x.code, row["message"], x.applies_to)
 
-    return Selection([hidden.blanked(f) for f in sel.included], [check(x) for x in sel.excluded], sel.issue_codes)
+    return Selection([hidden.blanked(f) for f in sel.included], [check(x) for x in sel.excluded], sel.issue_codes,
+                     sel.unit_errors, sel.conflicts)
+
+
+def _open_conflicts(store: ServerStore) -> dict[tuple[str, str], list[str]]:
+    """Open conflicts on finds and units: (record, record id) -> field names (with the kind when not a plain
+    concurrent edit)."""
+    import sqlalchemy as sa
+
+    from schema.sync.tables import open_conflict
+
+    out: dict[tuple[str, str], list[str]] = {}
+    with store.read() as conn:
+        for r in conn.execute(sa.select(open_conflict.c.record, open_conflict.c.record_id, open_conflict.c.field,
+                                        open_conflict.c.kind).where(open_conflict.c.record.in_(("find", "unit")))):
+            name = r.field if r.kind == "concurrent" else f"{r.field}({r.kind})"
+            out.setdefault((r.record, str(r.record_id)), []).append(name)
+    return {k: sorted(v) for k, v in out.items()}
+
+
+def _site_shots(store: ServerStore, setup_ids: set[Any]) -> list[Shot]:
+    return [s for s in store.list(Shot) if s.setup_id in setup_ids]
+
+
+@contextlib.contextmanager
+def _fixed_dates() -> Any:
+    """While pictures and the GeoPackage are written: matplotlib's SVG date from ``SOURCE_DATE_EPOCH`` and a
+    fixed SVG id salt, GDAL's GeoPackage timestamps from ``OGR_CURRENT_DATE`` (both documented by their
+    projects for reproducible output), so the same store gives the same bytes. Restored afterwards."""
+    import matplotlib
+
+    saved = {k: os.environ.get(k) for k in ("SOURCE_DATE_EPOCH", "OGR_CURRENT_DATE")}
+    os.environ["SOURCE_DATE_EPOCH"] = "0"
+    os.environ["OGR_CURRENT_DATE"] = "2000-01-01T00:00:00.000Z"
+    salt = matplotlib.rcParams["svg.hashsalt"]
+    matplotlib.rcParams["svg.hashsalt"] = "baulk"
+    try:
+        yield
+    finally:
+        matplotlib.rcParams["svg.hashsalt"] = salt
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
 
 
 def export_zip(store: ServerStore, work: Path, *, seasons: list[str] | None = None, strict: bool = False) -> Path:
@@ -290,6 +439,8 @@ def export_zip(store: ServerStore, work: Path, *, seasons: list[str] | None = No
     run_export(store, out, seasons=seasons, strict=strict)
     archive = work / "baulk-export.zip"
     with zipfile.ZipFile(archive, "w", compression=zipfile.ZIP_DEFLATED) as z:
-        for p in sorted(out.iterdir()):
-            z.write(p, arcname=f"baulk-export/{p.name}")
+        for p in sorted(q for q in out.rglob("*") if q.is_file()):  # a fixed entry time: the same export, the same zip
+            info = zipfile.ZipInfo(f"baulk-export/{p.relative_to(out).as_posix()}", date_time=(1980, 1, 1, 0, 0, 0))
+            info.compress_type, info.external_attr = zipfile.ZIP_DEFLATED, 0o644 << 16
+            z.writestr(info, p.read_bytes())
     return archive

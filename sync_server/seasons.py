@@ -35,9 +35,10 @@ from schema.fields import MAX_JSON_INT
 from schema.sync import SERVER_OWNED, Version
 from schema.sync.bundle import ARCHIVE_LOG_CAP, MANIFEST_CAP, open_checked_zip
 from schema.sync.replica import insert_versions, load_identity, materialize, retry_pending, row_to_version, state_get, state_set
-from schema.sync.tables import field_version, open_conflict, pending_row
+from schema.sync.tables import field_version, pending_row
 
 from .store import ServerStore, far_number, number_floor
+from .sync import count_conflicts
 
 __all__ = ["ARCHIVE_FORMAT", "ARCHIVE_VERSION", "import_archive", "number_floor", "read_archive", "write_archive"]
 
@@ -138,6 +139,8 @@ def import_archive(store: ServerStore, path: Path, *, confirm_far: bool = False)
         new = insert_versions(conn, accepted, next_log_seq=top + 1)
         stats = materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
         retry_pending(conn)
+        if new:
+            store.mark_changed()  # the checks run again once this commits
         imported = int(manifest["number_floor"])
         block_size = store.block_size()
         highest = None if confirm_far else far_number(conn, imported, block_size=block_size)
@@ -146,7 +149,7 @@ def import_archive(store: ServerStore, path: Path, *, confirm_far: bool = False)
                                "Write the archive again from the old store if that floor is wrong")
         floor = max(number_floor(conn), imported)
         state_set(conn, "number_floor", floor)
-        conflicts = int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one())
+        conflicts = count_conflicts(conn)
         pending = int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one())
     return {"versions": len(versions), "applied": len(new), "already_held": len(accepted) - len(new),
             "rows_written": stats["written"], "pending_rows": pending, "conflicts_open": conflicts,

@@ -36,6 +36,8 @@ class ServerSettings(BaseSettings):
         description="addresses of the reverse proxies whose X-Forwarded-For / X-Forwarded-Proto are believed "
                     "(comma-separated, as uvicorn's forwarded_allow_ips); none by default: the client address is "
                     "the connection's")
+    photos_dir: Path | None = Field(default=None, description="where photo files are kept by hash; default: a "
+                                    "folder beside a SQLite store (<name>-photos), or photos/ in the user data folder")
     backup_warn_hours: float = Field(default=24, gt=0, description="the Today page warns when the last backup is "
                                      "older than this many hours (or when there is none)")
 

@@ -6,11 +6,14 @@ writes, a busy timeout). PostgreSQL runs at READ COMMITTED; uniqueness is left t
 
 from __future__ import annotations
 
+import contextlib
 import datetime as dt
 import hashlib
 import secrets
+import threading
 import uuid
 from pathlib import Path
+from typing import Iterator
 
 import sqlalchemy as sa
 from alembic import command
@@ -28,6 +31,8 @@ __all__ = ["ServerStore", "check_existing", "far_number", "hash_token", "make_en
 
 MIGRATIONS_DIR = Path(__file__).parent / "migrations"
 DEFAULT_BLOCK_SIZE = 500
+# Records no check reads: a write of only these leaves the validation issues as they were.
+UNCHECKED = frozenset({"device", "number_block"})
 
 
 def hash_token(token: str) -> str:
@@ -209,6 +214,40 @@ class ServerStore(RecordStore):
     def __init__(self, url: str, engine: sa.Engine):
         super().__init__(engine)
         self.url = url
+        self.changes = 0  # committed transactions that changed what the checks read (``mark_changed``)
+        self._count_lock = threading.Lock()
+
+    @contextlib.contextmanager
+    def atomic(self) -> Iterator[sa.Connection]:
+        """``RecordStore.atomic``; once the outermost transaction commits having called ``mark_changed``, the
+        change count (``changes``) moves on: the app re-runs the checks when a request moved it
+        (``sync_server.validation.RevalidateAfterAnswer``)."""
+        if getattr(self._local, "conn", None) is not None:
+            with super().atomic() as conn:
+                yield conn
+            return
+        self._local.changed = False
+        try:
+            with super().atomic() as conn:
+                yield conn
+        except BaseException:
+            self._local.changed = False
+            raise
+        changed, self._local.changed = self._local.changed, False
+        if changed:
+            self._count()
+
+    def mark_changed(self) -> None:
+        """Say that the transaction under way changes records the checks read (counted once it commits);
+        outside a transaction, counted at once."""
+        if getattr(self._local, "conn", None) is not None:
+            self._local.changed = True
+        else:
+            self._count()
+
+    def _count(self) -> None:
+        with self._count_lock:
+            self.changes += 1
 
     @classmethod
     def open(cls, url: str, *, upgrade: bool = True, create: bool = True) -> "ServerStore":
@@ -234,6 +273,8 @@ class ServerStore(RecordStore):
         super().save_versioned(conn, record, new=new)  # type: ignore[arg-type]
         self._serialize(conn, "changelog")
         assign_log_positions(conn)
+        if getattr(record, "record_name", None) not in UNCHECKED:
+            self.mark_changed()
 
     @property
     def backend(self) -> str:

@@ -15,7 +15,7 @@ from schema.survey import gnss, grid, polar, setup
 from schema.survey.angles import FULL_CIRCLE
 from schema.survey.crs import lonlat_to_projected
 
-__all__ = ["fit_grid_job", "nmea_job", "reduce_job", "resect_job"]
+__all__ = ["attach_job", "fit_grid_job", "nmea_job", "reduce_job", "resect_job"]
 
 SETUP_KEYS = ("e", "n", "z", "instrument_height", "orientation")
 
@@ -127,3 +127,117 @@ def nmea_job(log: Path, *, epsg: int | None = None) -> dict[str, Any]:
         "rejected": [{"line": r.line, "text": r.text, "reason": r.reason} for r in parsed.rejected],
         "ignored_sentences": parsed.ignored,
     }
+
+
+# -- the day's download (baulk survey attach) -------------------------------------------------------------------
+def attach_job(
+    store: Any, download: Path, setup_file: Path, *, by: str, columns: dict[str, str] | None = None,
+    template: Any = None, angle_unit: str | None = None, target_height_m: float | None = None, prefix: str = "",
+    max_move_m: float = 0.10, confirm_moves: bool = False, site: str | None = None, now: Any = None,
+) -> dict[str, Any]:
+    """Attach the points of an instrument download to finds by number, in one transaction of the server's own
+    device: each match becomes the find's shot (the point's line kept as its raw line) and the find's position
+    is what the setup reduces it to; a ``Correction`` keeps who and why. Moves past ``max_move_m`` are refused
+    (``MoveNotConfirmed``, nothing written) unless ``confirm_moves``."""
+    import datetime as dt
+
+    from schema import db
+    from schema.errors import MoveNotConfirmed, RecordInvalid
+    from schema.records import Correction, Find, Shot
+    from schema.survey import download as dl
+    from schema.validation import check
+
+    from .curation import _site
+
+    if not (by or "").strip():
+        raise InputFileInvalid("--by: give your initials (kept with every find the download moves)")
+    if max_move_m < 0 or not np.isfinite(max_move_m):
+        raise InputFileInvalid(f"--max-move {max_move_m}: give a distance in metres, 0 or more")
+    station = _read_station(setup_file)
+    cfg, _lines = tabular.json_key_lines(setup_file)
+    code = str(cfg.get("station") or "DL").strip()
+    text = tabular.read_text(download)
+    if template is not None:
+        points = dl.read_download_lines(text, source=str(download), template=template, setup_unit=station.angle_unit)
+    else:
+        points = dl.read_download_csv(text, source=str(download), setup_unit=station.angle_unit, columns=columns,
+                                      angle_unit=angle_unit, target_height_m=target_height_m)
+    now = now or dt.datetime.now(dt.timezone.utc)
+    with store.atomic() as conn:
+        s = _site(conn, site)
+        finds = list(db.select(conn, Find, site_id=s.id))
+        numbers = {dl.find_number(p.point, prefix) for p in points}
+        held_lines = {f.id: db.get(conn, Shot, f.shot_id).raw_line for f in finds  # only the points' finds' shots
+                      if f.number in numbers and f.shot_id is not None}
+        plan = dl.plan_attach(points, finds, station, prefix=prefix, max_move_m=max_move_m,
+                              confirm_moves=confirm_moves, held_lines=held_lines)
+        if plan.held:
+            moves = "; ".join(f"find {m.number} by {m.move_m:.3f} m (point {m.point.point}, line {m.point.line})"
+                              for m in plan.held)
+            raise MoveNotConfirmed(
+                f"{len(plan.held)} point{'s' if len(plan.held) > 1 else ''} of {download.name} would move "
+                f"{'their finds' if len(plan.held) > 1 else 'its find'} further than {max_move_m:g} m: {moves}; "
+                "nothing was written. Check those points (the right find number? the right setup?), then run again "
+                "with --confirm-moves to move them, or with a larger --max-move")
+        todo = [m for m in plan.matches if not m.same]
+        setup, setup_new = _download_setup(conn, s, station, code, by=by.strip(), at=now)
+        if todo and setup_new:
+            store.save_versioned(conn, setup, new=True)
+        find_by_id = {f.id: f for f in finds}
+        for m in todo:
+            shot = check(Shot, {"setup_id": setup.id, "hz": m.hz, "zenith": m.zenith, "slope_distance_m":
+                                m.slope_distance_m, "target_height_m": m.point.target_height_m,
+                                "prism_constant_mm": m.point.prism_constant_mm, "shot_at": now,
+                                "raw_line": m.point.raw_line[:1000]}, record=f"point {m.point.point}")
+            current = find_by_id[m.find_id]
+            changes = {"e": m.e, "n": m.n, "z": m.z, "position_source": "total_station", "shot_id": shot.id,
+                       "gnss_fix_id": None, "position_sigma_m": current.position_sigma_m or 0.005}
+            try:
+                updated = check(Find, {**current.model_dump(), **changes}, record=f"find {m.number}")
+            except RecordInvalid as exc:
+                raise RecordInvalid(f"find {m.number} (point {m.point.point}, line {m.point.line})", exc.problems) from None
+            changed = [k for k in ("e", "n", "z", "position_source", "shot_id", "gnss_fix_id")
+                       if getattr(updated, k) != getattr(current, k)]
+            note = check(Correction, {
+                "record": "find", "record_id": current.id, "fields": ",".join(changed),
+                "reason": f"point {m.point.point} of {download.name} ({m.point.kind}, setup {setup.station_code})",
+                "by": by.strip(), "at": now}, record="correction")
+            store.save_versioned(conn, shot, new=True)
+            store.save_versioned(conn, updated, new=False)
+            store.save_versioned(conn, note, new=True)
+    return {
+        "site": s.code,
+        "setup": {"station": setup.station_code, "method": setup.method, "orientation": setup.orientation,
+                  "angle_unit": setup.angle_unit, "new": bool(todo) and setup_new},
+        "attached": [_match_json(m) for m in todo],
+        "already": [_match_json(m) for m in plan.matches if m.same],
+        "unmatched": [{"point": p.point, "line": p.line, "why": why} for p, why in plan.unmatched],
+        "finds_without_point": plan.finds_without_point,
+    }
+
+
+def _match_json(m: Any) -> dict[str, Any]:
+    return {"point": m.point.point, "line": m.point.line, "kind": m.point.kind, "find": m.number,
+            "e": m.e, "n": m.n, "z": m.z, "was": list(m.was) if m.was else None, "moved_m": m.move_m}
+
+
+def _download_setup(conn: Any, site: Any, station: polar.Station, code: str, *, by: str, at: Any) -> tuple[Any, bool]:
+    """The setup the download was shot from: one already held with the same station, heights and orientation,
+    else a new one (over the control point ``station`` names, else a free station)."""
+    from schema import db
+    from schema.records import ControlPoint, StationSetup
+    from schema.validation import check
+
+    for held in db.select(conn, StationSetup, site_id=site.id, station_code=code):
+        if (held.e, held.n, held.z, held.instrument_height_m, held.orientation, held.angle_unit) == (
+                station.e, station.n, station.z, station.instrument_height, station.orientation, station.angle_unit):
+            return held, False
+    cp = next(iter(db.select(conn, ControlPoint, site_id=site.id, code=code)), None)
+    setup = check(StationSetup, {
+        "site_id": site.id, "method": "occupied" if cp else "resection", "occupied_point_id": cp.id if cp else None,
+        "station_code": code, "e": station.e, "n": station.n, "z": station.z,
+        "instrument_height_m": station.instrument_height, "angle_unit": station.angle_unit,
+        "orientation": station.orientation, "set_up_at": at, "recorder": by,
+        "residuals": [{"source": "instrument download", "note": "set up on the instrument"}],
+    }, record="setup")
+    return setup, True

@@ -28,11 +28,12 @@ from schema.tables import metadata
 from .store import ServerStore
 from .tables import push_batch
 
-__all__ = ["apply_push", "batch_hash", "list_conflicts", "list_pending", "number_refusal", "pull_page", "refusal",
-           "resolve_conflict"]
+__all__ = ["apply_push", "batch_hash", "count_conflicts", "list_conflicts", "list_pending", "number_refusal",
+           "pull_page", "refusal", "replay_answer", "resolve_conflict"]
 
 MAX_BATCH = 5000
 MAX_PAGE = 2000
+MAX_SCAN = 10 * MAX_PAGE  # change-log positions one pull page reads at most (the caller's own left out)
 
 
 def _now_ms() -> int:
@@ -71,7 +72,7 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
                     f"batch {batch} of {device.label} was already applied with different content: this tablet was "
                     "probably restored from an old copy. The data manager must re-enrol it as a new device"
                 )
-            return {"refused": [], **done.ack, "replayed": True, "server_time_ms": _now_ms()}  # older acks: none refused
+            return replay_answer(done.ack, received=len(versions))
         if batch_hash(versions) != content_hash:
             raise BatchClash(f"batch {batch} does not match its own hash; it was damaged in transfer, send it again")
         taken = [v for v in versions if v.record not in SERVER_OWNED]  # server-owned: never taken from tablets
@@ -88,6 +89,8 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
         new = insert_versions(conn, accepted, next_log_seq=top + 1, batch=batch)
         stats = materialize(conn, {(v.record, v.record_id) for v in new}, known=new)
         retry_pending(conn)
+        if new:
+            store.mark_changed()  # the checks run again once this commits (sync_server.validation)
         blocks = _top_up(store, conn, device, now)
         ack = {
             "batch": batch, "received": len(versions), "applied": len(new),
@@ -95,12 +98,23 @@ def apply_push(store: ServerStore, *, device: Device, batch: int, content_hash: 
             "refused": [{"version": v.id, "record": v.record, "field": v.field, "reason": why} for v, why in refused],
             "rows_written": stats["written"],
             "pending_rows": int(conn.execute(sa.select(sa.func.count()).select_from(pending_row)).scalar_one()),
-            "conflicts_open": int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one()),
+            "conflicts_open": count_conflicts(conn),
             "number_blocks": [{"first": b.first, "last": b.last} for b in blocks], "replayed": False,
         }
         conn.execute(push_batch.insert().values(device=device.id, batch=batch, content_hash=content_hash, ack=ack,
                                                 received_at=now or dt.datetime.now(dt.timezone.utc)))
     return {**ack, "server_time_ms": _now_ms()}
+
+
+def replay_answer(first: dict[str, Any], *, received: int) -> dict[str, Any]:
+    """The answer to a batch applied before: this request applied nothing (every version in it is held), and
+    ``original`` is the first answer. The refusals and number blocks of the first answer are given again (a
+    tablet sends a batch again when that answer never reached it)."""
+    first = {"refused": [], **first}  # older acknowledgements: none refused
+    taken = received - first.get("ignored", 0) - len(first["refused"])
+    return {**first, "received": received, "applied": 0, "duplicates": max(0, taken), "rows_written": 0,
+            "replayed": True, "original": {k: first[k] for k in ("applied", "duplicates", "ignored", "rows_written")
+                                           if k in first}, "server_time_ms": _now_ms()}
 
 
 def _refusal(version: Version, device: Device) -> str | None:
@@ -186,33 +200,76 @@ def _top_up(store: ServerStore, conn: sa.Connection, device: Device, now: dt.dat
 
 
 def pull_page(store: ServerStore, *, after: int, limit: int = 500, device: Device | None = None) -> dict[str, Any]:
-    """Versions after the cursor, in change-log order, with the next cursor. Number blocks travel only to
-    the device they were issued to; what places possible human remains travels only to the roles that see it
-    (``schema.withholding``; the cursor still moves past what was left out)."""
+    """Versions after the cursor, in change-log order, with the next cursor. The caller's own versions are left
+    out (the device holds them: it made them), number blocks travel only to the device they were issued to, and
+    what places possible human remains travels only to the roles that see it (``schema.withholding``); the cursor
+    still moves past everything left out, which ``own_left_out`` counts for the caller's own versions.
+
+    A page holds up to ``limit`` versions: when the log after the cursor starts with the caller's own (a tablet
+    pulling just after its push), the page reads on past them, up to ``MAX_SCAN`` positions, so the sync after a
+    push of thousands of finds is not thousands of empty pages."""
     from .withholding import withheld_for
 
     limit = max(1, min(limit, MAX_PAGE))
     blocks = metadata.tables["number_block"]
+    me = device.id if device else None
+    kept: list[Any] = []
+    cursor, more, scanned, own = after, False, 0, 0
     with store.read() as conn:
-        rows = conn.execute(sa.select(field_version).where(field_version.c.log_seq > after)
-                            .order_by(field_version.c.log_seq).limit(limit + 1)).all()
-        mine = set(conn.execute(sa.select(blocks.c.id).where(blocks.c.device_id == (device.id if device else None)))
-                   .scalars())
-        hidden = withheld_for(conn, device.role if device else "") if rows else None
-    more = len(rows) > limit
-    last = rows[min(len(rows), limit) - 1].log_seq if rows else after
-    rows = [r for r in rows[:limit] if (r.record != "number_block" or r.record_id in mine)
-            and not (hidden and hidden.field(r.record, r.record_id, r.field))]
-    versions = [row_to_version(r) for r in rows]
-    return {"versions": versions, "next": last, "more": more,
+        mine = set(conn.execute(sa.select(blocks.c.id).where(blocks.c.device_id == me)).scalars())
+        hidden = None
+        while not more:
+            rows = conn.execute(sa.select(field_version).where(field_version.c.log_seq > cursor)
+                                .order_by(field_version.c.log_seq).limit(limit + 1)).all()
+            if rows and hidden is None:
+                hidden = withheld_for(conn, device.role if device else "")
+            for r in rows:
+                if len(kept) == limit or scanned == MAX_SCAN:
+                    more = True  # r is left for the next page
+                    break
+                cursor, scanned = r.log_seq, scanned + 1
+                if me is not None and r.device == me:
+                    own += 1
+                elif (r.record != "number_block" or r.record_id in mine) and not (
+                        hidden and hidden.field(r.record, r.record_id, r.field)):
+                    kept.append(r)
+            else:
+                if len(rows) <= limit:
+                    break  # the log ends here
+    return {"versions": [row_to_version(r) for r in kept], "next": cursor, "more": more, "own_left_out": own,
             "server_time_ms": _now_ms()}
 
 
+def _one_per_clash(rows: list[Any]) -> list[Any]:
+    """Open-conflict rows with a number clash once: it is kept on each find sharing the number (so each shows
+    it), every row naming the same competing versions; the first row of each stands for the clash."""
+    seen: set[tuple[str, ...]] = set()
+    out = []
+    for r in rows:
+        if r.kind == "duplicate_number":
+            key = tuple(sorted(r.leaves))
+            if key in seen:
+                continue
+            seen.add(key)
+        out.append(r)
+    return out
+
+
+def count_conflicts(conn: sa.Connection) -> int:
+    """Open conflicts, a number clash counted once however many finds share the number."""
+    others = conn.execute(sa.select(sa.func.count()).select_from(open_conflict)
+                          .where(open_conflict.c.kind != "duplicate_number")).scalar_one()
+    clashes = {tuple(sorted(leaves)) for leaves in conn.execute(
+        sa.select(open_conflict.c.leaves).where(open_conflict.c.kind == "duplicate_number")).scalars()}
+    return int(others) + len(clashes)
+
+
 def list_conflicts(store: ServerStore) -> list[dict[str, Any]]:
-    """Open conflicts with every competing value, who made it and when."""
+    """Open conflicts with every competing value, who made it and when; a number clash is listed once, under
+    the first of its finds, with each find's number among its values."""
     with store.read() as conn:
-        rows = conn.execute(sa.select(open_conflict).order_by(open_conflict.c.record, open_conflict.c.record_id,
-                                                               open_conflict.c.field)).all()
+        rows = _one_per_clash(conn.execute(sa.select(open_conflict).order_by(
+            open_conflict.c.record, open_conflict.c.record_id, open_conflict.c.field)).all())
         ids = [vid for r in rows for vid in r.leaves]
         found = {r.id: r for r in conn.execute(sa.select(field_version).where(field_version.c.id.in_(ids)))} if ids else {}
         devices = {d.id: d.label for d in store.list(Device)}
@@ -262,6 +319,7 @@ def resolve_conflict(store: ServerStore, *, record: str, record_id: Any, field: 
         insert_versions(conn, [v], next_log_seq=top + 1)
         save_identity(conn, ident)
         materialize(conn, [(record, record_id)])
+        store.mark_changed()
         still = conn.execute(sa.select(open_conflict.c.kind).where(
             open_conflict.c.record == record, open_conflict.c.record_id == record_id, open_conflict.c.field == field)).scalar()
     return {"version": v.id, "value": value, "kind": listed, "still_open": still}

@@ -15,10 +15,13 @@ import sqlalchemy as sa
 from schema.errors import RecordNotFound
 from schema.strata import Report, SiteData, validate
 
+from schema.sync.replica import state_get, state_set
+from schema.sync.tables import field_version
+
 from .store import ServerStore
 from .tables import validation_issue as T
 
-__all__ = ["RunSummary", "accept_issue", "list_issues", "run_validation"]
+__all__ = ["RevalidateAfterAnswer", "Revalidator", "RunSummary", "accept_issue", "list_issues", "run_validation"]
 
 
 @dataclass(frozen=True)
@@ -46,13 +49,28 @@ def _context(data: SiteData) -> dict[str, tuple[str | None, str | None]]:
 def run_validation(store: ServerStore, *, now: dt.datetime | None = None,
                    site_id: uuid.UUID | None = None) -> tuple[Report, RunSummary]:
     """Validate the site and store the run: new issues added, still-present ones refreshed, gone ones closed."""
+    with store.read() as conn:  # read before the data: the data is at least this new
+        seen = int(conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar() or 0)
+    return store_run(store, store.site_data(site_id=site_id), read_at=seen, now=now)
+
+
+def store_run(store: ServerStore, data: SiteData, *, read_at: int,
+              now: dt.datetime | None = None) -> tuple[Report, RunSummary]:
+    """Validate ``data``, read when the change log reached ``read_at``, and store the issues, unless a run over
+    newer data is stored already (another process validating the same store: a command beside ``baulk serve``);
+    then the stored issues stay and the summary says what this run would have changed."""
     now = now or dt.datetime.now(dt.timezone.utc)
-    data = store.site_data(site_id=site_id)
+    seen = read_at
     report = validate(data)
     ctx = _context(data)
     current = {i.key: i for i in report.issues}
     with store.atomic() as conn:
         store._serialize(conn, "validation")  # noqa: SLF001 - one run at a time
+        checked = f"checked:{data.site.id.hex}"  # the change-log position the stored issues were checked at
+        if int(state_get(conn, checked, "0") or 0) > seen:
+            # another process (a command beside `baulk serve`) stored a run over newer data meanwhile: keep it
+            return report, _summary(conn, data.site.id, current)
+        state_set(conn, checked, seen)
         existing = {r.key: r for r in conn.execute(sa.select(T).where(T.c.site_id == data.site.id))}
         new = [k for k in current if k not in existing]
         unchanged: list[str] = []
@@ -81,6 +99,15 @@ def run_validation(store: ServerStore, *, now: dt.datetime | None = None,
     return report, RunSummary(len(new), len(current) - len(new), len(gone), int(accepted))
 
 
+def _summary(conn: sa.Connection, site_id: uuid.UUID, current: dict[str, Any]) -> RunSummary:
+    """What a run over ``current`` would find against the stored issues, written by nobody."""
+    existing = {r.key: r for r in conn.execute(sa.select(T).where(T.c.site_id == site_id))}
+    new = sum(1 for k in current if k not in existing)
+    gone = sum(1 for k, r in existing.items() if k not in current and r.open)
+    accepted = sum(1 for k in current if k in existing and existing[k].accepted_at is not None)
+    return RunSummary(new, len(current) - new, gone, accepted)
+
+
 def validate_after_merge(store: ServerStore) -> None:
     """Re-run validation once a merge changed something (validation never blocks the merge itself)."""
     import logging
@@ -98,7 +125,8 @@ class Revalidator:
     it, never a queue of them (a run reads the whole site; twenty tablets syncing at once must not start twenty).
 
     Call it after every merge that changed something (from a background task); it returns at once when a run is
-    already going, and that run goes round again to pick the new data up.
+    already going, and that run goes round again to pick the new data up. ``if_changed`` runs only when the store
+    counted a change (``ServerStore.changes``) after the latest run started.
     """
 
     def __init__(self, store: ServerStore) -> None:
@@ -108,6 +136,7 @@ class Revalidator:
         self._running = threading.Lock()
         self._flag = threading.Lock()
         self._dirty = False
+        self._covered = -1  # the store's change count when the latest run started
         self.runs = 0
 
     def __call__(self) -> None:
@@ -126,10 +155,42 @@ class Revalidator:
                 if not self._dirty:
                     return
 
+    def if_changed(self) -> None:
+        """Run (coalesced, as a call) unless every change the store counted came before the latest run began."""
+        changes = getattr(self.store, "changes", None)
+        if changes is not None and changes <= self._covered:
+            return
+        self()
+
     def _take(self) -> bool:
         with self._flag:
             dirty, self._dirty = self._dirty, False
+            if dirty:  # a change counted before this point is committed, so this run reads it
+                self._covered = getattr(self.store, "changes", -1)
             return dirty
+
+
+class RevalidateAfterAnswer:
+    """ASGI middleware: when a request changed what the checks read (a push, a resolution, a camp edit: anything
+    that called ``ServerStore.mark_changed``), validation runs again once its answer is sent, coalesced through
+    the app's ``Revalidator`` (``app.state.revalidate``). So the issue list follows every change made through the
+    server without each route asking for it."""
+
+    def __init__(self, app: Any) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Any, receive: Any, send: Any) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        state = scope["app"].state
+        store = getattr(state, "store", None)
+        before = getattr(store, "changes", 0)
+        await self.app(scope, receive, send)
+        if getattr(store, "changes", 0) != before:
+            from starlette.concurrency import run_in_threadpool
+
+            await run_in_threadpool(state.revalidate.if_changed)
 
 
 def _row(r: Any) -> dict[str, Any]:

@@ -12,18 +12,22 @@ import uuid
 import zoneinfo
 from dataclasses import dataclass, field
 
+import sqlalchemy as sa
 from pydantic import TypeAdapter, ValidationError
 
 from schema.errors import FieldProblem, RecordInvalid, RecordNotFound, SetupNotReady
 from schema.records import ControlPoint, SafetyCheck, Season, Site, StationSetup, Trench, Unit
 from schema.fields import Initials
+from schema.tables import metadata
 
 from ..cautions import Caution, heat_caution, laser_caution
 from ..instruments import GnssMonitor, parse_shot_line
 from ..recording import setup_by_backsight, setup_by_resection
+from ..settings import GNSS_MAX_AGE_S
 from ..store import TabletStore
 
-__all__ = ["Day", "DayController", "SetupReview"]
+__all__ = ["Day", "DayController", "GNSS_MAX_AGE_S", "SetupReview", "record_acknowledgement"]
+
 
 
 @dataclass
@@ -57,10 +61,13 @@ class SetupReview:
 class DayController:
     """Day start and the instruments; the other controllers read ``day``."""
 
-    def __init__(self, store: TabletStore, *, laser_class: str = "see the instrument's label"):
+    def __init__(self, store: TabletStore, *, laser_class: str = "see the instrument's label",
+                 gnss_max_age_s: float = GNSS_MAX_AGE_S):
         self.store = store
         self.laser_class = laser_class
         self.gnss = GnssMonitor()
+        self.gnss_max_age_s = gnss_max_age_s
+        self.gnss_read_at: dt.datetime | None = None  # when this tablet received the latest fix
         self.day: Day | None = None
         self.review: SetupReview | None = None
 
@@ -94,7 +101,8 @@ class DayController:
         try:
             TypeAdapter(Initials).validate_python(recorder)
         except ValidationError:
-            problems.append(FieldProblem("recorder", f"{recorder!r} is not a recorder's initials", "type 2-4 capital letters, e.g. AK"))
+            problems.append(FieldProblem("recorder", f"{recorder!r} is not a recorder's initials" if recorder.strip()
+                                         else "no initials were typed", "type 2-4 capital letters, e.g. AK"))
         if problems:
             raise RecordInvalid("day start", problems)
         assert season is not None and trench is not None
@@ -188,12 +196,26 @@ class DayController:
             raise RecordInvalid("setup", [FieldProblem("laser", "the laser caution was not acknowledged",
                                                        "type who set the instrument up")])
         with self.store.atomic() as conn:
-            self.store.add(SafetyCheck(site_id=day.site.id, trench_id=day.trench.id, kind="laser",
-                                       answer=f"laser class {self.laser_class}; acknowledged by {laser_acknowledged_by.strip()}",
-                                       recorder=day.recorder, checked_at=day.now()))
+            record_acknowledgement(self.store, kind="laser", site_id=day.site.id, trench_id=day.trench.id,
+                                   recorder=day.recorder, by=laser_acknowledged_by, at=day.now(),
+                                   laser_class=self.laser_class)
             self.store.set_setting("day.setup_id", str(self.review.setup.id), conn=conn)
         day.setup, self.review = self.review.setup, None
         return day.setup
+
+    def acknowledge_heat(self, *, by: str) -> SafetyCheck:
+        """Record that the heat caution shown at day start was read (who acknowledged it), like the laser's."""
+        day = self.require_day()
+        return record_acknowledgement(self.store, kind="heat", site_id=day.site.id, trench_id=day.trench.id,
+                                      recorder=day.recorder, by=by, at=day.now())
+
+    def heat_acknowledged(self) -> SafetyCheck | None:
+        """Today's heat acknowledgement for the day's trench, if there is one."""
+        day = self.require_day()
+        today = day.now().date()
+        done = [c for c in self.store.list(SafetyCheck, trench_id=day.trench.id, kind="heat")
+                if c.checked_at.astimezone(day.tz).date() == today]
+        return max(done, key=lambda c: c.checked_at) if done else None
 
     def require_setup(self) -> StationSetup:
         setup = self.require_day().setup
@@ -213,8 +235,75 @@ class DayController:
             checked_at=day.now()))
 
     # -- GNSS -----------------------------------------------------------------------------------------------
-    def feed_gnss(self, lines: list[str]) -> str:
-        """Lines from the receiver; returns the status line to show."""
+    def feed_gnss(self, lines: list[str], *, now: dt.datetime | None = None) -> str:
+        """Lines from the receiver; returns the status line to show. A new fix starts its age at ``now``."""
+        before = self.gnss.latest
         self.gnss.feed(lines)
         self.gnss.flush()
+        if self.gnss.latest is not None and self.gnss.latest is not before:
+            self.gnss_read_at = now or dt.datetime.now(dt.timezone.utc)
         return self.gnss.status()
+
+    def gnss_age_s(self, now: dt.datetime | None = None) -> float | None:
+        """Seconds since this tablet received the latest fix (None before any)."""
+        if self.gnss_read_at is None or self.gnss.latest is None:
+            return None
+        return max(0.0, ((now or dt.datetime.now(dt.timezone.utc)) - self.gnss_read_at).total_seconds())
+
+    def gnss_used_by(self) -> int | None:
+        """The number of a find already placed by the latest fix (the same raw sentences), if any."""
+        if self.gnss.latest is None:
+            return None
+        fix_t, find_t = metadata.tables["gnss_fix"], metadata.tables["find"]
+        raw = list(self.gnss.latest.sentences)
+        with self.store.read() as conn:
+            rows = conn.execute(sa.select(fix_t.c.id, fix_t.c.raw_sentences, find_t.c.number)
+                                .join(find_t, find_t.c.gnss_fix_id == fix_t.c.id)
+                                .where(fix_t.c.lat == self.gnss.latest.lat, fix_t.c.lon == self.gnss.latest.lon)).all()
+        return next((r.number for r in rows if list(r.raw_sentences) == raw), None)
+
+    def gnss_problems(self, now: dt.datetime | None = None) -> list[str]:
+        """Why the latest fix should not place a new find without a reason: too old, or already used."""
+        age, used = self.gnss_age_s(now), self.gnss_used_by()
+        out = []
+        if age is not None and age > self.gnss_max_age_s:
+            out.append(f"the fix is {_age_words(age)} old (the limit is {self.gnss_max_age_s:.0f} s)")
+        if used is not None:
+            out.append(f"the fix already placed find {used}")
+        return out
+
+    def gnss_line(self, now: dt.datetime | None = None) -> str:
+        """The receiver's status with the fix's age and, when it is stale or used, what to do."""
+        age = self.gnss_age_s(now)
+        if age is None:
+            return self.gnss.status() + "; tap Read receiver"
+        line = f"{self.gnss.status()}; read {_age_words(age)} ago"
+        problems = self.gnss_problems(now)
+        if problems:
+            line += ". OLD FIX: " + "; ".join(problems) + ". Read the receiver again, or give a reason"
+        return line
+
+
+def record_acknowledgement(store: TabletStore, *, kind: str, site_id: uuid.UUID, trench_id: uuid.UUID, recorder: str,
+                           by: str, at: dt.datetime, laser_class: str | None = None) -> SafetyCheck:
+    """Keep a day-start caution's acknowledgement (``heat``, or ``laser`` with the instrument's class) as a
+    safety check; the answer says what was read and who acknowledged it, nothing more. The app and the demo
+    both write them through here."""
+    if not by.strip():
+        field = "laser" if kind == "laser" else kind
+        raise RecordInvalid("acknowledgement", [FieldProblem(field, f"the {kind} caution was not acknowledged",
+                                                             "type who read it (initials)")])
+    if kind == "laser":
+        answer = f"laser class {laser_class}; acknowledged by {by.strip()}"
+    elif kind == "heat":
+        answer = f"heat caution read at day start; acknowledged by {by.strip()}"
+    else:
+        raise ValueError(f"{kind!r} is not a day-start caution (heat or laser)")
+    return store.add(SafetyCheck(site_id=site_id, trench_id=trench_id, kind=kind, answer=answer[:500],  # type: ignore[arg-type]
+                                 recorder=recorder, checked_at=at))
+
+
+def _age_words(seconds: float) -> str:
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    return f"{seconds / 60:.1f} min"

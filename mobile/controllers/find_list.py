@@ -75,7 +75,8 @@ class FindListController:
                    .where(live_check.c.find_id == find.c.id, live_check.c.confirmed_reason.is_(None)).scalar_subquery())
         offset_min = int((self.tz.utcoffset(dt.datetime.now()) or dt.timedelta(0)).total_seconds() // 60)
         when = sa.func.strftime("%d/%m %H:%M", sa.type_coerce(find.c.found_at, sa.String), f"{offset_min:+d} minutes")
-        text = (sa.cast(find.c.number, sa.String) + "  " + unit.c.code + "  " + find.c.category + " " + find.c.material
+        material = sa.func.replace(find.c.material, "_", " ")  # words on screen, never a vocabulary's key
+        text = (sa.cast(find.c.number, sa.String) + "  " + unit.c.code + "  " + find.c.category + " " + material
                 + "  " + find.c.recovery + "  " + sa.func.coalesce(when, ""))
         return (sa.select(sa.type_coerce(find.c.id, sa.String).label("id"), find.c.number, unit.c.code.label("unit"),
                           find.c.category, find.c.voided, waiting.label("open_checks"), text.label("text"))
@@ -88,7 +89,7 @@ class FindListController:
         with self.store.read() as conn:
             result = conn.execute(self.query(f, limit=limit, offset=offset)).all()
         return [{"id": r[0], "number": r[1], "unit": r[2], "category": r[3], "voided": bool(r[4]), "open_checks": r[5],
-                 "text": r[6] + ("  VOID" if r[4] else "") + (f"  {r[5]} check(s) open" if r[5] else "")}
+                 "text": r[6] + ("  VOID" if r[4] else "") + (f"  {r[5]} {'check' if r[5] == 1 else 'checks'} open" if r[5] else "")}
                 for r in result]
 
     def count(self, f: FindFilter = FindFilter()) -> int:

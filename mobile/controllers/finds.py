@@ -12,16 +12,16 @@ from typing import Any, Literal
 
 import sqlalchemy as sa
 
-from schema.errors import CautionUnanswered, FieldProblem, RecordInvalid, RecordNotFound
+from schema.errors import CautionUnanswered, FieldProblem, FixNotAccepted, RecordInvalid, RecordNotFound
 from schema.forms import FormField, coerce, find_form, typed_values
 from schema.records import ControlPoint, Find, SafetyCheck, Sample, Spit, Unit
 from schema.strata import Issue
 from schema.tables import metadata
 
 from ..cautions import Caution, human_remains_caution, shoring_caution, shoring_due
-from ..checks import check_find
+from ..checks import check_find, keep_checks
 from ..instruments import parse_shot_line
-from ..recording import record_gnss_find, record_plotted_find
+from ..recording import gnss_fields, plotted_fields
 from ..store import TabletStore
 from ..tables import live_check
 from .day import Day, DayController
@@ -50,6 +50,17 @@ class Position:
     tape_depth_m: float | None = None
     spit: int | None = None
     bucket: str | None = None
+    old_fix_reason: str | None = None  # why a GNSS fix that is old or already used places this find anyway
+
+    def given(self) -> bool:
+        """True when a correction carries a new position (a shot line, taped offsets, a spit)."""
+        if self.source == "shot":
+            return bool((self.shot_line or "").strip())
+        if self.source == "tape":
+            return any(v is not None for v in (self.tape_east_m, self.tape_north_m, self.tape_depth_m))
+        if self.source == "sieve":
+            return self.spit is not None
+        return True  # gnss: the receiver's latest fix, checked for age and reuse
 
 
 @dataclass
@@ -59,10 +70,32 @@ class Saved:
     find: Find
     issues: list[Issue] = field(default_factory=list)
     cautions: list[Caution] = field(default_factory=list)
+    written: list[str] = field(default_factory=list)  # a correction: each change as "field old -> new"
 
     @property
     def clean(self) -> bool:
         return not [i for i in self.issues if i.severity != "info"]
+
+
+def _shown(value: Any) -> str:
+    if value is None or value == "":
+        return "-"
+    if isinstance(value, float):
+        return f"{value:g}"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    return str(value).replace("_", " ")
+
+
+def _affirmed_answer(affirmed: tuple[str, ...] | list[str]) -> str:
+    """The steps of the human-remains caution the recorder ticked, in the caution's order; nothing else."""
+    known = human_remains_caution().affirm
+    unknown = [a for a in affirmed if a not in known]
+    if unknown:
+        raise RecordInvalid("safety check", [FieldProblem("answer", f"{unknown[0]!r} is not a step of this caution",
+                                                          "tick the steps shown in the caution")])
+    done = [a for a in known if a in affirmed]
+    return "; ".join(done) if done else "no step affirmed beyond who was notified"
 
 
 def ground_z(store: TabletStore, trench_id: uuid.UUID) -> float | None:
@@ -119,8 +152,11 @@ class FindController:
 
     # -- recording ------------------------------------------------------------------------------------------
     def record(self, *, category: str, values: dict[str, Any], position: Position,
-               human_remains_notified: str | None = None, possible_human_remains: bool = False) -> Saved:
-        """Save a new find of ``category`` in the current unit; see ``Position`` for the ways to place it."""
+               human_remains_notified: str | None = None, possible_human_remains: bool = False,
+               human_remains_affirmed: tuple[str, ...] | list[str] = ()) -> Saved:
+        """Save a new find of ``category`` in the current unit; see ``Position`` for the ways to place it. With
+        possible human remains, the safety record holds who was notified and only the steps the recorder
+        affirmed (``human_remains_affirmed``, from the caution's ``affirm`` list)."""
         day = self.days.require_day()
         if day.unit is None:
             raise RecordInvalid("find", [FieldProblem("unit", "no unit is chosen", "choose the unit being dug on Record or Units")])
@@ -138,23 +174,54 @@ class FindController:
             if possible_human_remains:
                 self.store.add(SafetyCheck(
                     site_id=day.site.id, trench_id=day.trench.id, unit_id=day.unit.id, find_id=find.id,
-                    kind="human_remains", answer="work stopped at the spot; the spot secured",
+                    kind="human_remains", answer=_affirmed_answer(human_remains_affirmed),
                     notified=(human_remains_notified or "").strip(), recorder=day.recorder, checked_at=day.now()))
         return Saved(find, self._check(find), shoring_for(self.store, day, find.z))
 
     def _place(self, day: Day, base: dict[str, Any], position: Position, sample: dict[str, Any] | None) -> Find:
+        raw, fields = self._position_fields(day, position, at=base["found_at"])
+        note = fields.pop("_note", None)
+        if note:
+            base = {**base, "notes": f"{base.get('notes') or ''}\n{note}".strip()}
+        if raw is not None:
+            self.store.add(raw)
+        return self.store.save_find(find={**base, **fields}, sample=sample)
+
+    def _position_fields(self, day: Day, position: Position, *, at: Any) -> tuple[Any, dict[str, Any]]:
+        """The raw observation to keep (a shot, a GNSS fix, or None) and the find fields a position sets."""
+        none = {"e": None, "n": None, "z": None, "shot_id": None, "gnss_fix_id": None, "spit_id": None, "bucket": None}
         if position.source == "shot":
             setup = self.days.require_setup()
-            reading, _unit = parse_shot_line(position.shot_line or "", at=base["found_at"])
-            return record_plotted_find(self.store, setup=setup, reading=reading, find=base, sample=sample)
+            if not (position.shot_line or "").strip():
+                raise RecordInvalid("find", [FieldProblem("shot", "no shot was taken for this find",
+                                                          "tap Take shot, or type the readings and tap Use")])
+            reading, _unit = parse_shot_line(position.shot_line or "", at=at)
+            shot, fields = plotted_fields(setup, reading)
+            return shot, {**none, **fields, "recovery": "plotted"}
         if position.source == "gnss":
-            return record_gnss_find(self.store, site=day.site, sentences=self.days.gnss.sentences, find=base,
-                                    override_reason=position.override_reason, sample=sample)
+            note = self._fresh_fix(position)
+            fix, fields = gnss_fields(site=day.site, sentences=self.days.gnss.sentences, at=at,
+                                      override_reason=position.override_reason)
+            return fix, {**none, **fields, "recovery": "plotted", **({"_note": note} if note else {})}
         if position.source == "tape":
-            return self.store.save_find(find={**base, **self._taped(day, position), "position_source": "tape",
-                                              "position_sigma_m": TAPE_SIGMA_M}, sample=sample)
+            return None, {**none, **self._taped(day, position), "position_source": "tape",
+                          "position_sigma_m": TAPE_SIGMA_M, "recovery": "plotted"}
         spit = self._spit(day, position.spit)
-        return self.store.save_find(find={**base, "spit_id": spit.id, "bucket": position.bucket}, sample=sample)
+        return None, {**none, "spit_id": spit.id, "bucket": position.bucket, "position_source": "none",
+                      "position_sigma_m": None, "recovery": "sieved"}
+
+    def _fresh_fix(self, position: Position) -> str | None:
+        """Refuses a fix that is too old or already placed a find, unless a reason is given (returned as a note)."""
+        if self.days.gnss.latest is None:
+            raise FixNotAccepted("no GNSS fix has been read; tap Read receiver")
+        problems = self.days.gnss_problems()
+        if not problems:
+            return None
+        reason = (position.old_fix_reason or "").strip()
+        if not reason:
+            raise FixNotAccepted("; ".join(problems) + ". Tap Read receiver for a fresh fix, or say why this one "
+                                 "is right for this find")
+        return f"[GNSS: {'; '.join(problems)}; used because: {reason}]"
 
     def _taped(self, day: Day, p: Position) -> dict[str, float]:
         missing = [n for n, v in (("tape_from", p.tape_from), ("tape_east_m", p.tape_east_m),
@@ -184,13 +251,7 @@ class FindController:
         apply are kept)."""
         issues = sorted(check_find(self.store, find), key=lambda i: SEVERITY_ORDER.get(i.severity, 3))
         with self.store.atomic() as conn:
-            kept = dict(conn.execute(sa.select(live_check.c.code, live_check.c.confirmed_reason)
-                                     .where(live_check.c.find_id == find.id)).all())
-            conn.execute(live_check.delete().where(live_check.c.find_id == find.id))
-            rows = {i.code: {"find_id": find.id, "code": i.code, "severity": i.severity, "message": i.message,
-                             "fix": i.fix, "confirmed_reason": kept.get(i.code)} for i in issues if i.severity != "info"}
-            if rows:
-                conn.execute(live_check.insert(), list(rows.values()))
+            keep_checks(conn, find.id, issues)
         return issues
 
     def open_checks(self, find_id: uuid.UUID) -> list[dict[str, Any]]:
@@ -202,7 +263,8 @@ class FindController:
     def confirm(self, find_id: uuid.UUID, code: str, reason: str) -> Find:
         """Keep the find as it is despite check ``code``; the reason goes into its notes (and so to the camp)."""
         if not reason.strip():
-            raise RecordInvalid("find", [FieldProblem("reason", "a confirmation needs a reason", "say why the find is right as recorded")])
+            raise RecordInvalid("confirmation", [FieldProblem("reason", "a confirmation needs a reason",
+                                                             "say why the find is right as recorded")])
         with self.store.atomic() as conn:
             hit = conn.execute(live_check.update().where(live_check.c.find_id == find_id, live_check.c.code == code)
                                .values(confirmed_reason=reason.strip()))
@@ -213,23 +275,63 @@ class FindController:
             find = self.store.put(find.model_copy(update={"notes": f"{find.notes}\n{note}".strip()}))
         return find
 
-    def edit(self, find_id: uuid.UUID, changes: dict[str, Any]) -> Saved:
-        """Correct fields of a find (strings from the form are typed by its fields); re-runs the live checks."""
+    def edit(self, find_id: uuid.UUID, changes: dict[str, Any], *, position: Position | None = None,
+             unit_code: str | None = None) -> Saved:
+        """Correct a find: fields from the form (strings typed by its fields), a new position when one was taken
+        (``Position.given``), another unit of its trench; re-runs the live checks. ``Saved.written`` names each
+        change that was written, and nothing else."""
         current = self.store.get(Find, find_id)
         typed = typed_values(self.form(current.category), changes)
-        if "unit_code" in typed:
-            code = typed.pop("unit_code")
-            unit = next((u for u in self.store.list(Unit, trench_id=current.trench_id) if u.code == code), None)
+        code = typed.pop("unit_code", None) or unit_code
+        if code:
+            units = self.store.list(Unit, trench_id=current.trench_id)
+            unit = next((u for u in units if u.code == code), None)
             if unit is None:
                 raise RecordNotFound(f"no unit {code!r} in this find's trench; choose one from the list")
             typed["unit_id"] = unit.id
-        find = self.store.update_find(find={**current.model_dump(), **typed})  # a new number: the rules of a save
-        return Saved(find, self._check(find))
+        day = self.days.require_day() if position is not None and position.given() else None
+        with self.store.atomic():
+            if day is not None:
+                assert position is not None
+                if position.source == "sieve":  # the spit belongs to the find's (new) unit
+                    day = Day(day.site, day.season, day.trench, day.recorder,
+                              unit=self.store.get(Unit, typed.get("unit_id", current.unit_id)), setup=day.setup)
+                raw, fields = self._position_fields(day, position, at=day.now())
+                note = fields.pop("_note", None)
+                if note:
+                    typed["notes"] = f"{typed.get('notes', current.notes) or ''}\n{note}".strip()
+                if raw is not None:
+                    self.store.add(raw)
+                typed.update(fields)
+            find = self.store.update_find(find={**current.model_dump(), **typed})  # a new number: the rules of a save
+        return Saved(find, self._check(find), written=self._written(current, find))
+
+    def _written(self, before: Find, after: Find) -> list[str]:
+        """Each visible change as words ("unit 102 -> 103", "Z 99.512 -> 99.430")."""
+        units = {u.id: u.code for u in self.store.list(Unit, trench_id=after.trench_id)}
+        out = []
+        for name in Find.model_fields:
+            old, new = getattr(before, name), getattr(after, name)
+            if old == new or name in ("shot_id", "gnss_fix_id", "spit_id"):
+                continue
+            if name == "unit_id":
+                out.append(f"unit {units.get(old, '?')} -> {units.get(new, '?')}")
+            elif name in ("e", "n", "z"):
+                was, now = ("-" if v is None else f"{v:.3f}" for v in (old, new))
+                if was != now:  # a change below the millimetre is not shown as one
+                    out.append(f"{name.upper()} {was} -> {now}")
+            elif name == "notes":
+                out.append("notes")
+            else:
+                out.append(f"{name.replace('_', ' ')} {_shown(old)} -> {_shown(new)}")
+        if before.spit_id != after.spit_id and after.spit_id is not None:
+            out.append(f"spit {self.store.get(Spit, after.spit_id).number}")
+        return out
 
     def void(self, find_id: uuid.UUID, reason: str) -> Find:
         """Void a find (it keeps its number; nothing is deleted); its open checks are closed."""
         if not reason.strip():
-            raise RecordInvalid("find", [FieldProblem("void_reason", "a void needs a reason", "say why the find is voided")])
+            raise RecordInvalid("void", [FieldProblem("reason", "a void needs a reason", "say why the find is voided")])
         with self.store.atomic() as conn:
             find = self.store.void_find(find_id=find_id, reason=reason.strip())
             conn.execute(live_check.delete().where(live_check.c.find_id == find_id))

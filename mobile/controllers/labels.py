@@ -3,15 +3,26 @@
 from __future__ import annotations
 
 import datetime as dt
+import math
 import zoneinfo
 from pathlib import Path
 
+from schema.errors import FieldProblem, RecordInvalid, RecordNotFound
 from schema.records import Find, Site, Trench, Unit
 
-from ..labels import LabelData, write_label_sheet
+from ..labels import COLS, ROWS, LabelData, write_label_sheet
 from ..store import TabletStore
 
-__all__ = ["LabelQueue"]
+__all__ = ["LabelQueue", "sheet_sentence"]
+
+
+def sheet_sentence(path: Path, count: int, *, again: bool = False) -> str:
+    """What the Labels screen says after a sheet is written: how many labels on how many pages, and that the
+    tablet only wrote a file."""
+    pages = math.ceil(count / (COLS * ROWS))
+    what = f"{count} {'label' if count == 1 else 'labels'} on {pages} {'page' if pages == 1 else 'pages'}"
+    return (f"Label sheet written{' again' if again else ''}: {what}, in {path}. This tablet does not print: open "
+            "the file on a computer with a printer and print it at actual size (A4, no scaling).")
 
 
 class LabelQueue:
@@ -19,8 +30,23 @@ class LabelQueue:
         self.store = store
 
     def queue(self) -> list[Find]:
-        """Finds not voided whose label has not been printed, by number."""
-        return [f for f in self.store.list(Find, label_printed_at=None, order_by="number") if not f.voided]
+        """This tablet's finds (not voided) whose label has not been printed, by number; another tablet's finds
+        that sync brought are labelled by that tablet."""
+        me = self.store.device_id()
+        return [f for f in self.store.list(Find, label_printed_at=None, order_by="number")
+                if not f.voided and (me is None or f.device_id == me)]
+
+    def in_range(self, first: int, last: int) -> list[Find]:
+        """This tablet's finds numbered ``first`` to ``last`` (printed or not): a reprint of a torn or lost label."""
+        if first > last:
+            raise RecordInvalid("labels", [FieldProblem("last", f"the range {first}-{last} runs backwards",
+                                                        "give the lower number first")])
+        me = self.store.device_id()
+        found = [f for f in self.store.list(Find, order_by="number")
+                 if first <= f.number <= last and not f.voided and (me is None or f.device_id == me)]
+        if not found:
+            raise RecordNotFound(f"this tablet holds no finds numbered {first} to {last}; check the numbers")
+        return found
 
     def _labels(self, finds: list[Find]) -> list[LabelData]:
         sites = {s.id: s for s in self.store.list(Site)}
@@ -40,6 +66,8 @@ class LabelQueue:
         """Write the queue (or ``finds``) to a dated PDF in ``folder`` and mark those finds printed, the marks in
         one transaction after the file is complete."""
         todo = self.queue() if finds is None else finds
+        if not todo:
+            raise RecordNotFound("no labels are waiting; to print one again, give its numbers under Reprint")
         now = dt.datetime.now(dt.timezone.utc)
         path = write_label_sheet(Path(folder) / f"labels-{now:%Y%m%d-%H%M%S}.pdf", self._labels(todo))
         with self.store.atomic():

@@ -6,7 +6,7 @@ last error are kept in the tablet file."""
 from __future__ import annotations
 
 import datetime as dt
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
@@ -16,9 +16,9 @@ from schema.errors import BaulkError, EnrolmentRefused, StoreError
 from schema.records import Device
 
 from ..bundles import ReturnRead, export_bundle, read_return_bundle
-from ..enrol import enrol, parse_enrol_line, pinned_context
+from ..enrol import check_address, check_can_enrol, enrol, parse_enrol_line, pinned_context
 from ..store import TabletStore
-from ..sync import Progress, SyncClient, SyncReport, pending_count
+from ..sync import MAX_BATCH, MAX_PAGE, Progress, SyncClient, SyncReport, pending_count
 
 __all__ = ["CampLink", "LinkStatus", "HTTP_TIMEOUT_S"]
 
@@ -41,6 +41,7 @@ class LinkStatus:
     last_sync: str | None
     last_error: str | None
     last_bundle: str | None = None
+    photos: list[str] = field(default_factory=list)  # the last photo upload and the free space (mobile/photos.py)
 
     def lines(self) -> list[str]:
         if not self.enrolled:
@@ -50,12 +51,21 @@ class LinkStatus:
                 f"Find numbers left: {self.numbers_left}",
                 f"Last sync: {self.last_sync or 'never'}",
                 *([f"Last bundle from camp: {self.last_bundle}"] if self.last_bundle else []),
+                *self.photos,
                 *([f"Last problem: {self.last_error}"] if self.last_error else [])]
 
 
 class CampLink:
-    def __init__(self, store: TabletStore, *, client_factory: ClientFactory = _client):
+    def __init__(self, store: TabletStore, *, client_factory: ClientFactory = _client, batch_size: int = 500,
+                 page_size: int = 500):
+        """``batch_size``: versions a push batch holds when unsent work is cut into batches (a smaller one
+        suits a weak link: each request is shorter, a cut one costs less to send again); ``page_size``:
+        versions a pull page asks for."""
+        if not 1 <= batch_size <= MAX_BATCH or not 1 <= page_size <= MAX_PAGE:
+            raise ValueError(f"batch size {batch_size} and page size {page_size} must be from 1 to {MAX_BATCH} and "
+                             f"{MAX_PAGE}: the camp server takes no bigger batch or page")
         self.store, self.client_factory = store, client_factory
+        self.batch_size, self.page_size = batch_size, page_size
 
     def _http(self) -> httpx.Client:
         server = self.store.setting("link.server")
@@ -66,15 +76,26 @@ class CampLink:
 
     def enrol(self, text: str, *, server: str | None = None) -> Device:
         """Enrol from a scanned ``baulk-enrol:`` line or a typed code (then ``server`` is needed)."""
+        check_can_enrol(self.store)  # before anything is sent: an enrolled tablet keeps its code unspent
         got = parse_enrol_line(text)
+        if not got["code"].strip():
+            raise EnrolmentRefused("no enrolment code was typed; type the code the data manager gives you, or scan it")
         address = (got.get("server") or server or "").strip().rstrip("/")
         if not address:
             raise EnrolmentRefused("the code has no server address; type the camp server's address (e.g. "
                                    "https://192.168.8.10:8765) beside the code")
+        address = check_address(address)
         self.store.set_setting("link.server", address)
         self.store.set_setting("link.sha256", got.get("sha256"))
         with self._http() as http:
             return enrol(self.store, http, got["code"])
+
+    def set_server(self, text: str) -> str:
+        """Keep the camp server's address (its own setting; Sync and bundles use it). A new address keeps the
+        tablet's enrolment and the certificate it trusts: the same camp server, reached another way."""
+        address = check_address(text)
+        self.store.set_setting("link.server", address)
+        return address
 
     def status(self) -> LinkStatus:
         device = self.store.device_id()
@@ -85,7 +106,13 @@ class CampLink:
                           pending_versions=pending, numbers_left=self.numbers_left(),
                           last_sync=self.store.setting("link.last_sync"),
                           last_error=self.store.setting("link.last_error"),
-                          last_bundle=self.store.setting("link.last_bundle"))
+                          last_bundle=self.store.setting("link.last_bundle"), photos=self._photo_lines())
+
+    def _photo_lines(self) -> list[str]:
+        from ..photos import free_space_line, photo_folder
+
+        last = self.store.setting("link.last_photos")
+        return [*([f"Last photo upload: {last}"] if last else []), free_space_line(photo_folder(self.store))]
 
     def _label(self, device: Any) -> str | None:
         if device is None:
@@ -103,7 +130,14 @@ class CampLink:
             raise EnrolmentRefused("this tablet is not enrolled; enrol it before syncing")
         try:
             with self._http() as http:
-                report = SyncClient(self.store, http, token, progress=progress).sync()
+                report = SyncClient(self.store, http, token, batch_size=self.batch_size, page_size=self.page_size,
+                                    progress=progress).sync()
+                # photo files after the versions (the camp needs their records first): mobile/photos.py
+                from ..photos import upload_photos
+
+                photos = upload_photos(self.store, http, token, progress=lambda _sha, _d, _t, done, total: (
+                    progress("photos", done, total) if progress else None))
+                self.store.set_setting("link.last_photos", photos.sentence())
         except BaulkError as exc:
             self.store.set_setting("link.last_error", str(exc))
             raise
@@ -118,7 +152,7 @@ class CampLink:
         folder = Path(folder)
         if not folder.is_dir():
             raise StoreError(f"the folder {folder} does not exist; plug the stick in and choose its folder")
-        return export_bundle(self.store, folder)
+        return export_bundle(self.store, folder, batch_size=self.batch_size)
 
     def read_bundle(self, folder_or_file: Path | str) -> ReturnRead:
         """Read the return bundle the camp wrote for this tablet (a file, or the stick's folder: the newest for

@@ -13,7 +13,7 @@ from schema.strata import Issue
 from schema.validation import check
 
 from ..cautions import Caution
-from ..checks import check_matrix
+from ..checks import Rechecked, check_matrix, recheck_units
 from ..instruments import parse_shot_line
 from ..recording import reduce_reading
 from ..store import TabletStore
@@ -29,11 +29,13 @@ class Related:
 
     relation: Relation
     issues: list[Issue] = field(default_factory=list)
+    rechecked: Rechecked = field(default_factory=Rechecked)  # the two units' finds, checked again
 
 
 class UnitsController:
     def __init__(self, store: TabletStore, day: DayController):
         self.store, self.days = store, day
+        self.last_recheck = Rechecked()
 
     @staticmethod
     def form() -> list[FormField]:
@@ -84,11 +86,12 @@ class UnitsController:
         mine = {str(relation.id), str(a.id), str(b.id)}
         issues = [i for i in check_matrix(self.store)
                   if i.record_id in mine or {a.code, b.code} & set(i.label.replace(",", " ").split())]
-        return Related(relation, issues)
+        return Related(relation, issues, recheck_units(self.store, [a.id, b.id]))
 
     def level_point(self, *, unit: str, surface: str, shot_line: str) -> tuple[LevelPoint, list[Caution]]:
         """A level on a unit's top or bottom from a shot (raw shot kept); returns the shoring caution when the
-        level is past the site's check depth and the trench has not been checked today."""
+        level is past the site's check depth and the trench has not been checked today. ``last_recheck`` says
+        what the unit's finds' checks became with the new surface."""
         day = self.days.require_day()
         target = self.unit(unit)
         setup = self.days.require_setup()
@@ -98,4 +101,5 @@ class UnitsController:
             self.store.add(shot)
             point = self.store.add(check(LevelPoint, {"unit_id": target.id, "surface": surface, "e": e, "n": n, "z": z,
                                                       "shot_id": shot.id}))
+        self.last_recheck = recheck_units(self.store, [target.id])
         return point, shoring_for(self.store, day, z)

@@ -20,7 +20,7 @@ from kivy.uix.screenmanager import ScreenManager
 from schema.records import LevelPoint
 
 from .. import controllers as c
-from ..instruments import FieldSimulator, TtyPort
+from ..instruments import FieldSimulator, ShotFeed, TtyPort, record_ends, use_template
 from ..store import TabletStore
 from . import theme
 from .widgets import load_kv
@@ -39,6 +39,20 @@ SCREENS: dict[str, tuple[str, str, str]] = {
     "labels": ("Labels", "mobile.ui.screens.labels", "LabelsScreen"),
     "link": ("Camp", "mobile.ui.screens.link", "LinkScreen"),
 }
+
+
+DESKTOP_SIZE = (1280, 800)  # a 10-inch tablet in landscape, for the desktop window
+
+
+def _tablet_sized_window() -> None:
+    """On a desktop, open at a tablet's size rather than Kivy's 800 x 600 default (a size set in Kivy's own
+    configuration, as the tests do, is left alone)."""
+    from kivy.config import Config
+    from kivy.utils import platform
+
+    if platform in ("linux", "win", "macosx") and (Config.getint("graphics", "width"),
+                                                    Config.getint("graphics", "height")) == (800, 600):
+        Window.size = DESKTOP_SIZE
 
 
 class Shell(BoxLayout):
@@ -70,23 +84,30 @@ class TabletApp(App):
     accent = ListProperty(theme.THEMES["sun"]["accent"])
     alarm = ListProperty(theme.THEMES["sun"]["alarm"])
     chosen = ListProperty(theme.THEMES["sun"]["chosen"])
+    muted = ListProperty(theme.THEMES["sun"]["muted"])
+    selected = ListProperty(theme.THEMES["sun"]["selected"])
 
     def __init__(self, *, store_path: Path, simulate: bool = False, instrument: str | None = None,
                  receiver: str | None = None, labels_dir: Path | None = None, laser_class: str = "see the instrument's label",
-                 **kw: Any):
+                 template: Any = None, **kw: Any):
         super().__init__(**kw)
         self.store_path = Path(store_path)
         self.labels_dir = Path(labels_dir) if labels_dir else self.store_path.parent / "labels"
-        self.simulator = FieldSimulator() if simulate else None
+        self.template = use_template(template)  # instrument lines are read through it (None: BKS)
+        self.shot_feed = ShotFeed(self.template)  # the last line read, raw and decoded, for the Day screen
+        self.simulator = FieldSimulator(template=self.template) if simulate else None
         self._instrument_path, self._receiver_path = instrument, receiver
         self.laser_class = laser_class
 
     # -- life cycle ---------------------------------------------------------------------------------------
     def build(self) -> Shell:
         self.store = TabletStore.open(self.store_path)
-        self.instrument = TtyPort(self._instrument_path) if self._instrument_path else None
+        self.instrument = TtyPort(self._instrument_path, ends=record_ends(self.template)) if self._instrument_path else None
         self.receiver = TtyPort(self._receiver_path) if self._receiver_path else None
-        self.days = c.DayController(self.store, laser_class=self.laser_class)
+        from ..settings import TabletSettings
+
+        self.days = c.DayController(self.store, laser_class=self.laser_class,
+                                    gnss_max_age_s=TabletSettings().gnss_max_age_s)
         self.finds = c.FindController(self.store, self.days)
         self.units = c.UnitsController(self.store, self.days)
         self.labels = c.LabelQueue(self.store)
@@ -94,6 +115,7 @@ class TabletApp(App):
         load_kv(HERE / "widgets.kv")
         load_kv(HERE / "app.kv")
         Window.clearcolor = self.bg
+        _tablet_sized_window()
         shell = Shell()
         from kivy.clock import Clock
 
@@ -131,17 +153,16 @@ class TabletApp(App):
     def read_shot_line(self) -> str | None:
         """The latest shot line from the instrument (or the simulator, aimed inside the current unit)."""
         if self.simulator is not None:
-            return self.simulator.shot_line(self.days.require_setup(), self.simulated_point())
+            return self.shot_feed.take([self.simulator.shot_line(self.days.require_setup(), self.simulated_point())])
         if self.instrument is not None:
-            lines = [ln for ln in self.instrument.lines() if ln.startswith("BKS,")]
-            return lines[-1] if lines else None
+            return self.shot_feed.take(self.instrument.lines())  # the newest line, or why it cannot be read
         return None
 
     def read_backsight_line(self, station_code: str, target_code: str) -> str | None:
         if self.simulator is None:
             return self.read_shot_line() if self.instrument is not None else None
         points = {p.code: p for p in self.days.control_points()}
-        return self.simulator.backsight_line(points[station_code], points[target_code])
+        return self.shot_feed.take([self.simulator.backsight_line(points[station_code], points[target_code])])
 
     def read_receiver(self) -> str:
         """Feed the receiver's (or the simulator's) latest sentences to the GNSS monitor; returns its status."""

@@ -16,7 +16,7 @@ from kivy.uix.togglebutton import ToggleButton
 
 from schema.forms import FormField
 
-__all__ = ["Alarm", "Big", "Caption", "Choice", "Entry", "FormGrid", "Pick", "Say", "Title", "load_kv"]
+__all__ = ["Alarm", "Big", "Caption", "Choice", "Entry", "FormGrid", "Pick", "Say", "Title", "load_kv", "shown_words"]
 
 _LOADED: set[str] = set()
 
@@ -68,12 +68,16 @@ class FormGrid(GridLayout):
     def set_fields(self, fields: list[FormField]) -> None:
         self.clear_widgets()
         self.inputs: dict[str, Any] = {}
+        self.shown: dict[str, dict[str, str]] = {}  # a choice's words on screen -> its stored value
         for f in fields:
             self.add_widget(Caption(text=f.label + (" *" if f.required else ""), size_hint_x=0.4))
             if f.kind == "choice":
-                widget: Any = Pick(text=f.choices[0] if f.required and len(f.choices) == 1 else "", values=("", *f.choices))
+                self.shown[f.name] = {shown_words(c): c for c in f.choices}
+                first = shown_words(f.choices[0]) if f.required and len(f.choices) == 1 else ""
+                widget: Any = Pick(text=first, values=("", *self.shown[f.name]))
             elif f.kind == "flag":
-                widget = Choice(text="yes / no")
+                widget = Choice(text="no")
+                widget.bind(state=lambda w, state: setattr(w, "text", "yes" if state == "down" else "no"))
             else:
                 widget = Entry(input_filter="float" if f.kind == "number" else ("int" if f.kind == "integer" else None),
                                hint_text=f.help[:40])
@@ -86,6 +90,8 @@ class FormGrid(GridLayout):
         for name, widget in getattr(self, "inputs", {}).items():
             if isinstance(widget, ToggleButton):
                 out[name] = "yes" if widget.state == "down" else ""
+            elif name in self.shown:
+                out[name] = self.shown[name].get(widget.text, widget.text)
             else:
                 out[name] = widget.text
         return {k: v for k, v in out.items() if v != ""}
@@ -95,5 +101,12 @@ class FormGrid(GridLayout):
             value = values.get(name)
             if isinstance(widget, ToggleButton):
                 widget.state = "down" if value else "normal"
+            elif name in self.shown:
+                widget.text = "" if value is None else shown_words(str(value))
             else:
                 widget.text = "" if value is None else (f"{value:g}" if isinstance(value, float) else str(value))
+
+
+def shown_words(value: str) -> str:
+    """A vocabulary's key as words on screen (``horn_core`` -> ``horn core``); the key itself is what is stored."""
+    return value.replace("_", " ")

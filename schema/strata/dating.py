@@ -5,18 +5,34 @@ superposition; common practice, no source). Each date enters as its two-sigma ra
 bracket is the widest reading of the evidence: a unit's oldest possible age is the smallest (age + 2 sigma) of
 the dated units below it, its youngest the largest (age - 2 sigma) of those above. Two dates contradict the
 matrix when the upper unit's date is older than the lower one's beyond both two-sigma ranges.
+
+Brackets are computed outside the matrix's cycles: the units of a circle of relations (MATRIX_CYCLE) get no
+bracket and their dates bound nothing, because their place is what is in doubt; every other unit keeps the
+order the rest of the matrix gives it (the circle taken as one node). The recorded horizon order tightens the
+brackets: a unit in a horizon is younger than every unit of a lower horizon and older than every unit of a
+higher one (``Horizon.order``), unless that order contradicts the matrix (HORIZON_ORDER), when the matrix alone
+is used and a note says so.
+
+A horizon's bracket (``horizon_age_brackets``) takes the horizon as one correlated layer, the meaning of a
+horizon in Baulk: its age lies in every one of its units' brackets at once (their intersection), and it names
+the dated units the limits rest on, or the reason there is none (``horizon_brackets`` gives the same as plain
+``Bracket`` values, for ``age_brackets.json`` and the demo's summary). Until issue 17 a horizon's bracket was the
+span of its units' possible ages (their union), so one undated unit with nothing dated below it left the horizon
+open-ended even when the horizon held a date of its own.
 """
 
 from __future__ import annotations
 
 import uuid
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 from ..records import AgeDetermination, Horizon
 from .issues import Issue, issue
+from .graph import reachability, strongly_connected, topological_order
 from .matrix import Matrix
 
-__all__ = ["Bracket", "age_brackets", "age_issues"]
+__all__ = ["Bracket", "Brackets", "HorizonBracket", "age_brackets", "age_issues", "bracket_units",
+           "horizon_age_brackets", "horizon_brackets"]
 
 K = 2.0  # sigmas: a two-sigma range, about 95 % for a normal error
 
@@ -28,6 +44,8 @@ class Bracket:
     youngest: float | None
     oldest: float | None
     dated: bool  # the unit carries a date of its own
+    young_from: tuple[uuid.UUID, ...] = ()  # the units whose dates set ``youngest`` (its own, or above it)
+    old_from: tuple[uuid.UUID, ...] = ()  # the units whose dates set ``oldest`` (its own, or below it)
 
     def as_dict(self) -> dict[str, float | bool | None]:
         return {"youngest_ka": self.youngest, "oldest_ka": self.oldest, "dated": self.dated}
@@ -42,44 +60,149 @@ def _own(ages: list[AgeDetermination]) -> tuple[float, float]:
     return min(a.age_ka - K * a.sigma_ka for a in ages), max(a.age_ka + K * a.sigma_ka for a in ages)
 
 
-def age_brackets(matrix: Matrix, ages: list[AgeDetermination]) -> dict[uuid.UUID, Bracket]:
-    """For every unit, the bracket implied by the dated units above and below it (empty while cyclic)."""
-    if matrix.below is None:
-        return {}
+@dataclass
+class Brackets:
+    units: dict[uuid.UUID, Bracket] = field(default_factory=dict)  # unit id -> bracket (none for cyclic units)
+    cyclic: set[uuid.UUID] = field(default_factory=set)  # units caught in a circle of relations
+    notes: list[str] = field(default_factory=list)
+
+
+def _levels(matrix: Matrix, horizons: list[Horizon], skip: set[uuid.UUID]) -> dict[uuid.UUID, int]:
+    order = {h.id: h.order for h in horizons}
+    level: dict[uuid.UUID, int] = {}
+    for g, members in matrix.members.items():
+        orders = {order[matrix.units[u].horizon_id] for u in members if matrix.units[u].horizon_id in order}
+        if g not in skip and len(orders) == 1:
+            level[g] = orders.pop()
+    return level
+
+
+def bracket_units(matrix: Matrix, ages: list[AgeDetermination], horizons: list[Horizon] | None = None) -> Brackets:
+    """Every unit's bracket outside the matrix's cycles, the horizon order (when given and consistent with the
+    matrix) tightening it; see the module's docstring."""
+    comps = strongly_connected(matrix.members, matrix.edges)
+    node: dict[uuid.UUID, object] = {}
+    cyclic_groups: set[uuid.UUID] = set()
+    for comp in comps:
+        if len(comp) > 1:
+            cyclic_groups |= set(comp)
+            rep = ("cycle", min(str(g) for g in comp))
+            for g in comp:
+                node[g] = rep
+        else:
+            node[comp[0]] = comp[0]
+    out = Brackets(cyclic={u for g in cyclic_groups for u in matrix.members[g]})
+    edges = {(node[a], node[b]) for a, b in matrix.edges if node[a] != node[b]}
+    level = _levels(matrix, horizons or [], cyclic_groups)
+    steps = sorted(set(level.values()))
+    with_order = set(edges)
+    for upper, lower in zip(steps, steps[1:]):
+        with_order |= {(g, ("boundary", upper)) for g, k in level.items() if k == upper}
+        with_order |= {(("boundary", upper), g) for g, k in level.items() if k == lower}
+        with_order.add((("boundary", upper), ("boundary", lower)))
+    nodes = [*set(node.values()), *(("boundary", k) for k in steps)]
+    try:
+        topological_order(nodes, with_order)
+        edges = with_order
+    except ValueError:
+        out.notes.append("the horizon order disagrees with the matrix (see the HORIZON_ORDER checks): the brackets "
+                         "use the matrix's order alone")
+    below = reachability(nodes, edges)
     by_group: dict[uuid.UUID, list[AgeDetermination]] = {}
     for a in ages:
-        if a.unit_id in matrix.group_of:
-            by_group.setdefault(matrix.group_of[a.unit_id], []).append(a)
+        g = matrix.group_of.get(a.unit_id)
+        if g is not None and g not in cyclic_groups:
+            by_group.setdefault(g, []).append(a)
     own = {g: _own(v) for g, v in by_group.items()}
-    above: dict[uuid.UUID, set[uuid.UUID]] = {g: set() for g in matrix.members}
-    for g, lower in matrix.below.items():
+    above: dict[object, set[object]] = {n: set() for n in nodes}
+    for n, lower in below.items():
         for b in lower:
-            above[b].add(g)
-    out: dict[uuid.UUID, Bracket] = {}
+            above.setdefault(b, set()).add(n)
     for g, members in matrix.members.items():
-        older_limits = [own[d][1] for d in matrix.below[g] if d in own]
-        younger_limits = [own[d][0] for d in above[g] if d in own]
-        young = max(younger_limits, default=None)
-        old = min(older_limits, default=None)
+        if g in cyclic_groups:
+            continue
+        older = [(own[d][1], d) for d in below.get(g, ()) if d in own]
+        younger = [(own[d][0], d) for d in above.get(g, ()) if d in own]
         if g in own:
-            young = own[g][0] if young is None else max(young, own[g][0])
-            old = own[g][1] if old is None else min(old, own[g][1])
+            older.append((own[g][1], g))
+            younger.append((own[g][0], g))
+        old = min((v for v, _ in older), default=None)
+        young = max((v for v, _ in younger), default=None)
+        old_from = tuple(sorted((u for v, d in older if v == old for u in by_unit(matrix, d, by_group)), key=str))
+        young_from = tuple(sorted((u for v, d in younger if v == young for u in by_unit(matrix, d, by_group)), key=str))
         for u in members:
-            out[u] = Bracket(young, old, g in own)
+            out.units[u] = Bracket(young, old, g in own, young_from, old_from)
+    return out
+
+
+def by_unit(matrix: Matrix, group: object, by_group: dict[uuid.UUID, list[AgeDetermination]]) -> list[uuid.UUID]:
+    """The dated units of a same-as group."""
+    return sorted({a.unit_id for a in by_group.get(group, [])}, key=str)  # type: ignore[call-overload]
+
+
+def age_brackets(matrix: Matrix, ages: list[AgeDetermination],
+                 horizons: list[Horizon] | None = None) -> dict[uuid.UUID, Bracket]:
+    """For every unit outside the matrix's cycles, the bracket implied by the dated units above and below it
+    (and, given ``horizons``, by the horizon order)."""
+    return bracket_units(matrix, ages, horizons).units
+
+
+@dataclass(frozen=True)
+class HorizonBracket:
+    """A horizon's age bracket taken as one correlated layer (ka), or the reason there is none."""
+
+    youngest: float | None
+    oldest: float | None
+    dated: bool
+    young_from: tuple[uuid.UUID, ...] = ()
+    old_from: tuple[uuid.UUID, ...] = ()
+    reason: str = ""
+
+
+def horizon_age_brackets(brackets: Brackets, matrix: Matrix, horizons: list[Horizon]) -> dict[uuid.UUID, HorizonBracket]:
+    """Each horizon's age: inside every one of its units' brackets (their intersection), with the units whose
+    dates set each limit; the reason when nothing bounds it, when its units' brackets do not meet, or when its
+    units are all caught in a cycle."""
+    code = {u: x.code for u, x in matrix.units.items()}
+    out = {}
+    for h in horizons:
+        mine = sorted((u for u, x in matrix.units.items() if x.horizon_id == h.id), key=lambda u: code[u])
+        cyc = [code[u] for u in mine if u in brackets.cyclic]
+        held = [(u, brackets.units[u]) for u in mine if u in brackets.units]
+        left = (f"; unit{'s' if len(cyc) > 1 else ''} {', '.join(cyc)} {'are' if len(cyc) > 1 else 'is'} left out "
+                "(caught in a matrix cycle)") if cyc else ""
+        if not mine:
+            out[h.id] = HorizonBracket(None, None, False, reason="no unit is assigned to this horizon")
+            continue
+        if not held:
+            out[h.id] = HorizonBracket(None, None, False, reason="every unit of this horizon is caught in a matrix "
+                                                                 "cycle (MATRIX_CYCLE): correct the relations")
+            continue
+        youngs = [(b.youngest, b.young_from) for _, b in held if b.youngest is not None]
+        olds = [(b.oldest, b.old_from) for _, b in held if b.oldest is not None]
+        young = max((v for v, _ in youngs), default=None)
+        old = min((v for v, _ in olds), default=None)
+        yf = tuple(sorted({u for v, f in youngs if v == young for u in f}, key=lambda u: code.get(u, str(u))))
+        of = tuple(sorted({u for v, f in olds if v == old for u in f}, key=lambda u: code.get(u, str(u))))
+        dated = any(b.dated for _, b in held)
+        if young is None and old is None:
+            out[h.id] = HorizonBracket(None, None, False, reason="no dated unit lies in, above or below it" + left)
+        elif young is not None and old is not None and young > old:
+            out[h.id] = HorizonBracket(None, None, dated, yf, of, reason=(
+                f"its units' brackets do not meet (younger than {young:g} ka by one, older than {old:g} ka by "
+                f"another): the horizon is not one layer in time, or a date or relation is wrong" + left))
+        else:
+            out[h.id] = HorizonBracket(young, old, dated, yf, of, reason=left.lstrip("; "))
     return out
 
 
 def horizon_brackets(brackets: dict[uuid.UUID, Bracket], matrix: Matrix,
                      horizons: list[Horizon]) -> dict[uuid.UUID, Bracket]:
-    """A horizon spans its units: from the youngest of their young limits to the oldest of their old limits."""
-    out = {}
-    for h in horizons:
-        units = [b for u, b in brackets.items() if matrix.units[u].horizon_id == h.id]
-        youngs = [b.youngest for b in units if b.youngest is not None]
-        olds = [b.oldest for b in units if b.oldest is not None]
-        out[h.id] = Bracket(min(youngs) if youngs and len(youngs) == len(units) else None,
-                            max(olds) if olds and len(olds) == len(units) else None, any(b.dated for b in units))
-    return out
+    """Each horizon's bracket from its units' brackets (``horizon_age_brackets``: the horizon taken as one layer;
+    units with no bracket are taken as caught in a cycle), as plain ``Bracket`` values."""
+    wrapped = Brackets(units=brackets, cyclic={u for u in matrix.units if u not in brackets})
+    return {h: Bracket(b.youngest, b.oldest, b.dated, b.young_from, b.old_from)
+            for h, b in horizon_age_brackets(wrapped, matrix, horizons).items()}
 
 
 def age_issues(matrix: Matrix, ages: list[AgeDetermination]) -> list[Issue]:

@@ -49,4 +49,4 @@ def validate(data: SiteData) -> Report:
     issues = [*matrix.issues, *level_issues(data), *find_issues(data, matrix), *horizon_issues(data, matrix),
               *quality_issues(data), *age_issues(matrix, data.ages)]
     issues.sort(key=lambda i: (_RANK[i.severity], i.code, i.label))
-    return Report(issues, matrix, len(data.finds), age_brackets(matrix, data.ages))
+    return Report(issues, matrix, len(data.finds), age_brackets(matrix, data.ages, data.horizons))

@@ -7,6 +7,8 @@
 - ``crs``: pyproj behind functions (absent on some tablet builds)
 - ``gnss``: NMEA 0183 GGA/RMC/GST -> fixes; the RTK-fixed rule for piece-plots
 - ``recompute``: coordinates again from kept shots after a setup is corrected
+- ``templates``: instrument line templates (delimited, fixed-width, word-indexed): decode and encode lines
+- ``download``: the instrument's own download matched to finds by number (``plan_attach``)
 """
 
 from __future__ import annotations

@@ -5,7 +5,7 @@ from __future__ import annotations
 import uuid
 from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, BackgroundTasks, Depends, Query, Request
+from fastapi import APIRouter, Depends, Query, Request
 from pydantic import BaseModel, ConfigDict, Field
 
 from schema.records import Device
@@ -53,7 +53,10 @@ class PushAck(BaseModel):
     pending_rows: int
     conflicts_open: int
     number_blocks: list[dict[str, int]]
-    replayed: bool
+    replayed: bool = Field(description="this batch was applied before: `applied` is 0 (this request changed "
+                                       "nothing) and `original` tells what the first request applied")
+    original: dict[str, int] | None = Field(default=None, description="for a replayed batch, the first answer's "
+                                            "applied, duplicates, ignored and rows_written")
     server_time_ms: int
 
 
@@ -61,6 +64,8 @@ class PullPage(BaseModel):
     versions: list[Version]
     next: int
     more: bool
+    own_left_out: int = Field(default=0, description="versions the caller made itself between the cursor and "
+                                                     "`next`, left out of the page (it holds them)")
     server_time_ms: int
 
 
@@ -108,7 +113,7 @@ def _push_schema() -> dict[str, Any]:
 
 @router.post("/sync/push", response_model=PushAck, openapi_extra={
     "requestBody": {"required": True, "content": {"application/json": {"schema": _push_schema()}}}})
-async def push(request: Request, device: Pusher, background: BackgroundTasks) -> dict[str, Any]:
+async def push(request: Request, device: Pusher) -> dict[str, Any]:
     """Apply a batch of this device's versions once; the same batch again returns its first acknowledgement."""
     from fastapi import HTTPException
     from fastapi.concurrency import run_in_threadpool
@@ -121,11 +126,9 @@ async def push(request: Request, device: Pusher, background: BackgroundTasks) ->
         first = exc.errors()[0]
         where = ".".join(str(p) for p in first["loc"])
         raise HTTPException(422, detail=f"push body refused at {where}: {first['msg']}") from None
-    ack = await run_in_threadpool(apply_push, request.app.state.store, device=device, batch=body.batch,
-                                  content_hash=body.hash, versions=body.versions)
-    if ack["applied"]:
-        background.add_task(request.app.state.revalidate)  # after the answer is sent; runs coalesced
-    return ack
+    # validation runs again after the answer when something was applied (validation.RevalidateAfterAnswer)
+    return await run_in_threadpool(apply_push, request.app.state.store, device=device, batch=body.batch,
+                                   content_hash=body.hash, versions=body.versions)
 
 
 @router.get("/sync/pull", response_model=PullPage)

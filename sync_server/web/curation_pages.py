@@ -52,8 +52,11 @@ ROUTE_ROLES: dict[str, str] = {
 }
 
 
-def _stamp(t: dt.datetime | None) -> str:
-    return t.astimezone(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC") if t else ""
+def _stamp(request: Request, t: dt.datetime | None) -> str:
+    """A time in the site's zone, to the minute (as on every camp page); the zone is read once a request."""
+    if not hasattr(request.state, "site_zone"):
+        request.state.site_zone = pages.site_zone(request.app.state.store)
+    return pages._when(t, request.state.site_zone) or ""
 
 
 async def _fields(request: Request) -> tuple[dict[str, str], dict[str, tuple[str, bytes]]]:
@@ -135,7 +138,7 @@ def _horizons_page(request: Request, session: Session, *, status: int = 200, mes
         horizons, loose, history, ages = [], [], [], None
         message, error = message or str(exc), True
     return _page(request, "horizons.html", session, "Horizons", status=status, page="horizons", horizons=horizons,
-                 loose=loose, history=[{**h, "at": _stamp(h["at"])} for h in history], ages=ages,
+                 loose=loose, history=[{**h, "at": _stamp(request, h["at"])} for h in history], ages=ages,
                  can_write=session.device.role == "manager", message=message, error=error, form=form or {},
                  which=which)
 
@@ -256,7 +259,7 @@ def _panel(request: Request, session: Session, record: str, record_id: uuid.UUID
            form: dict[str, str] | None = None, error: str | None = None) -> dict[str, Any]:
     """What the correction panel shows: the corrections made, and (for a manager) the form."""
     rows = curation.corrections(request.app.state.store, record=record, record_id=record_id)
-    return {"rows": [{**r, "at": _stamp(r["at"])} for r in rows], "fields": curation.correctable_fields(record),
+    return {"rows": [{**r, "at": _stamp(request, r["at"])} for r in rows], "fields": curation.correctable_fields(record),
             "can_correct": session.device.role == "manager", "action": action, "form": form or {}, "error": error,
             "done": request.query_params.get("corrected"), "record": record}
 
@@ -321,13 +324,14 @@ def _unit_page(request: Request, session: Session, unit_id: str, *, status: int 
     u = found[0]
     trench = {t.id: t.code for t in store.list(Trench, id=u.trench_id)}
     horizon = {h.id: h.code for h in store.list(Horizon, site_id=u.site_id)}
-    shown = {**u.model_dump(mode="json", exclude={"id", "site_id", "trench_id", "horizon_id"}),
-             "trench": trench.get(u.trench_id, "?"), "horizon": horizon.get(u.horizon_id) if u.horizon_id else None}
-    fields = [(k, v) for k, v in shown.items() if v not in (None, "")]
+    shown = {"trench": trench.get(u.trench_id, "?"), "horizon": horizon.get(u.horizon_id) if u.horizon_id else None,
+             **u.model_dump(mode="json", exclude={"id", "site_id", "trench_id", "horizon_id"})}
+    fields = [(pages.field_label(k), pages.words(v) if k in ("kind", "texture", "status") else v)
+              for k, v in shown.items() if v not in (None, "")]
     history = curation.assignment_history(store, unit=u.code, limit=None)
     panel = _panel(request, session, "unit", u.id, f"/camp/units/{u.id}/correct", form=form, error=error)
     return _page(request, "unit.html", session, f"Unit {u.code}", status=status, page="horizons", unit=u,
-                 fields=fields, history=[{**h, "at": _stamp(h["at"])} for h in history], panel=panel,
+                 fields=fields, history=[{**h, "at": _stamp(request, h["at"])} for h in history], panel=panel,
                  message=f"Unit not corrected: {error}" if error else None, error=bool(error))
 
 

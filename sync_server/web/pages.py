@@ -5,10 +5,12 @@ Pages: sign in (a device token; or, once, a manager's or analyst's one-time enro
 the last 24 hours per trench and unit, what waits); **Conflicts** (every open conflict with its competing
 values, settled by choosing or typing a value: a new version, exactly as ``POST /v1/conflicts/resolve``);
 **Checks** (validation issues filtered by
-code, severity, trench, unit; accepted with a reason); **Finds** (search; a find's fields and its history of
-versions); **Safety** (every caution the tablets asked about and the answer, by trench, kind and time; possible
-human remains first on Today); **Matrix** (the reduced Harris matrix picture); **Exports** (run one and download the zip). Pages are not part of the OpenAPI
-schema; they answer a browser, redirecting to the sign-in page when there is no valid session.
+code, severity, trench, unit; accepted with a reason); **Finds** (search, paged newest first; a find as a
+record by label and code, its history of versions below); **Safety** (every caution the tablets asked about and the answer, by trench, kind and time; possible
+human remains first on Today); **Matrix** (the reduced Harris matrix
+drawn inline as SVG text, outlined where Checks has open checks); **Exports** (run one and download the zip). Pages are not part of the OpenAPI
+schema; they answer a browser, redirecting to the sign-in page when there is no valid session. Records are
+named by their codes and times shown in the site's time zone, to the minute (``record_name``, ``_when``).
 """
 
 from __future__ import annotations
@@ -25,7 +27,7 @@ from fastapi import APIRouter, HTTPException, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
-from schema.records import Device, Find, Trench, Unit
+from schema.records import Device, Find, Season, Site, Spit, Trench, Unit
 from schema.records.safety import KIND_LABELS
 from schema.errors import BaulkError, NumberTooFar
 from schema.tables import metadata
@@ -42,8 +44,8 @@ templates = Jinja2Templates(directory=str(Path(__file__).parent / "templates"))
 
 _EXPLAIN = {
     "concurrent": "Two devices changed this field without seeing each other's change. Choose the value to keep.",
-    "void": "One device voided this find while another, not knowing, edited it. Keep the void (true) or restore "
-            "the find (false); the edit stays either way.",
+    "void": "One device voided this find while another, not knowing, edited it. Keep the void (yes) or restore "
+            "the find (no); the edit stays either way.",
     "duplicate_number": "Two finds of the site carry the same number. Give this find a new number (type it).",
 }
 
@@ -142,45 +144,118 @@ def today(request: Request) -> Response:
         conflicts = conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one()
         errors = conn.execute(sa.select(sa.func.count()).select_from(T).where(
             T.c.open, T.c.severity == "error", T.c.accepted_at.is_(None))).scalar_one()
+    zone = site_zone(store)
     devices = [{"label": d.label, "role": d.role, "revoked": d.revoked_at is not None, "enrolled": d.token_hash is not None,
-                "last_push": _when(pushes.get(d.id))} for d in store.list(Device, order_by="label")]
+                "last_push": _when(pushes.get(d.id), zone)} for d in store.list(Device, order_by="label")]
     safety = safety_summary(store, since=since)
     from ..backup import backup_status
 
     return _page(request, "today.html", session, "Today", page="today", devices=devices, conflicts=conflicts,
                  errors=errors, new_finds=[{"trench": a, "unit": b, "finds": n} for a, b, n in new],
-                 safety={**safety, "human_remains": [_shown(c) for c in safety["human_remains"]]},
+                 safety={**safety, "human_remains": [_shown(c, zone) for c in safety["human_remains"]]},
                  kind_labels=KIND_LABELS, backup=backup_status(store))
 
 
-def _when(t: dt.datetime | None) -> str | None:
-    return t.astimezone(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC") if t else None
+def site_zone(store: Any) -> dt.tzinfo:
+    """The site's time zone (its IANA name on the Site record); UTC before a site is set up."""
+    import zoneinfo
+
+    sites = store.list(Site, order_by="code")
+    try:
+        return zoneinfo.ZoneInfo(sites[0].timezone) if sites else dt.timezone.utc
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        return dt.timezone.utc
+
+
+def _when(t: dt.datetime | str | None, zone: dt.tzinfo = dt.timezone.utc) -> str | None:
+    """A time as people at the site read it: its date and minute in the site's zone, with the zone's short name
+    ("2026-07-03 09:30 EAT"); no seconds, no microseconds. A naive time is taken as UTC (how the stores keep it)."""
+    if t is None or t == "":
+        return None
+    if isinstance(t, str):
+        t = dt.datetime.fromisoformat(t)
+    local = (t if t.tzinfo else t.replace(tzinfo=dt.timezone.utc)).astimezone(zone)
+    return f"{local:%Y-%m-%d %H:%M} {local.tzname()}"
+
+
+def record_name(store: Any, record: str, record_id: str | uuid.UUID) -> str:
+    """A record as the people at the site call it: ``find 143``, ``unit 101``, ``relation 101 above 102``,
+    ``spit 2 of unit 101``; never an id. A record not synced here yet is named by its kind alone."""
+    from schema.records import REGISTRY
+
+    spec = REGISTRY.get(record)
+    kind = record.replace("_", " ")
+    try:
+        found = store.list(spec.model, id=uuid.UUID(str(record_id))) if spec else []
+    except ValueError:
+        found = []
+    if not found:
+        return f"a {kind} not synced here yet"
+    r = found[0]
+
+    def unit(uid: uuid.UUID) -> str:
+        units = store.list(Unit, id=uid)
+        return units[0].code if units else "?"
+
+    if record == "find":
+        return f"find {r.number}"
+    if record == "relation":
+        return f"relation {unit(r.upper_unit_id)} {words(r.kind)} {unit(r.lower_unit_id)}"
+    if record == "spit":
+        return f"spit {r.number} of unit {unit(r.unit_id)}"
+    if record == "level_point":
+        return f"a {r.surface} level of unit {unit(r.unit_id)}"
+    for attr in ("code", "label", "lab_code"):
+        if getattr(r, attr, None):
+            return f"{kind} {getattr(r, attr)}"
+    return f"a {kind}"
+
+
+def words(value: Any) -> str:
+    """A vocabulary value or field name in words (``other_stone`` -> ``other stone``)."""
+    return str(value).replace("_", " ")
 
 
 def _what(store: Any, c: dict[str, Any]) -> str:
-    if c["record"] == "find":
-        found = store.list(Find, id=uuid.UUID(c["record_id"]))
-        name = f"find {found[0].number}" if found else "a find not shown yet"
-    else:
-        name = f"{c['record']} {c['record_id'][:8]}"
-    return f"{name}: {c['field'].removesuffix('_id').replace('_', ' ')}"
+    name = record_name(store, c["record"], c["record_id"])
+    return f"{name}: {field_label(c['field']).lower()}"
+
+
+# how a field is named on the pages where its name alone would not say it (others: the name in words)
+_LABELS = {"e": "E (m)", "n": "N (m)", "z": "Z (m)", "weight_g": "Weight (g)", "length_mm": "Length (mm)",
+           "width_mm": "Width (mm)", "thickness_mm": "Thickness (mm)", "bearing_deg": "Bearing (grid degrees)",
+           "plunge_deg": "Plunge (degrees)", "position_sigma_m": "Position uncertainty, 1 sigma (m)",
+           "position_source": "Position from", "found_at": "Found at", "human_remains": "Possible human remains",
+           "void_reason": "Why voided", "label_printed_at": "Label printed", "photo_hashes": "Photos",
+           "unit_id": "Unit", "trench_id": "Trench", "season_id": "Season", "spit_id": "Spit", "site_id": "Site",
+           "device_id": "Numbered on", "shot_id": "Total station shot", "gnss_fix_id": "GNSS reading",
+           "bucket": "Sieve bucket", "munsell": "Munsell colour", "munsell_condition": "Munsell read",
+           "opened_on": "Opened", "closed_on": "Closed"}
+
+
+def field_label(name: str) -> str:
+    """A record field's label on the camp pages (``weight_g`` -> ``Weight (g)``)."""
+    return _LABELS.get(name) or words(name.removesuffix("_id")).capitalize()
+
+
+templates.env.globals["field_label"] = field_label
+templates.env.filters["field_label_filter"] = field_label
 
 
 @router.get("/conflicts", response_class=HTMLResponse)
 def conflicts(request: Request, message: str | None = None) -> Response:
     session = _signed_in(request)
     store = request.app.state.store
-    units = {str(u.id): u.code for u in store.list(Unit)}
-    trenches = {str(t.id): t.code for t in store.list(Trench)}
+    show = _Shown(store)
     with store.read() as conn:  # an analyst: no competing positions of possible human remains
         hidden = withheld_for(conn, session.device.role)
     rows = []
     for c in list_conflicts(store):
-        values = [{**v, "value": NOTE} if hidden.field(c["record"], uuid.UUID(v["record_id"]), v["field"]) else v
-                  for v in c["values"]]
+        values = [{**v, "value": NOTE, "withheld": True} if hidden.field(c["record"], uuid.UUID(v["record_id"]), v["field"])
+                  else v for v in c["values"]]
         rows.append({**c, "what": _what(store, c), "explain": _EXPLAIN.get(c["kind"], ""),
-                     "values": [{**v, "json": json.dumps(v["value"]), "at": _when(dt.datetime.fromisoformat(v["at"])),
-                                 "shown": units.get(str(v["value"]), trenches.get(str(v["value"]), v["value"]))}
+                     "values": [{**v, "json": json.dumps(v["value"]), "at": _when(v["at"], show.zone),
+                                 "shown": v["value"] if v.get("withheld") else show(c["field"], v["value"])}
                                 for v in values]})
     return _page(request, "conflicts.html", session, "Conflicts", page="conflicts", conflicts=rows,
                  can_resolve=session.device.role == "manager", message=message)
@@ -236,7 +311,10 @@ def checks(request: Request, code: str | None = None, severity: str | None = Non
     with store.read() as conn:  # an analyst sees a position check on possible human remains without its numbers
         hidden = withheld_for(conn, session.device.role)
     issues = [hidden.issue(i) for i in list_issues(store, **filters)]
+    issues.sort(key=lambda i: i["accepted_at"] is not None)  # what still needs a look first; accepted ones after
+    accepted = sum(1 for i in issues if i["accepted_at"] is not None)
     return _page(request, "checks.html", session, "Checks", page="checks", issues=issues,
+                 open_count=len(issues) - accepted, accepted_count=accepted,
                  filters={**filters, "any": any(filters.values())}, can_accept=session.device.role == "manager",
                  message=message)
 
@@ -255,25 +333,80 @@ async def accept(request: Request) -> Response:
 
 
 # -- finds ----------------------------------------------------------------------------------------------------
+FINDS_PER_PAGE = 50
+
+
 @router.get("/finds", response_class=HTMLResponse)
-def finds(request: Request, q: str | None = None) -> Response:
+def finds(request: Request, q: str | None = None, page: int = 1) -> Response:
+    """The finds, newest first (by when they were found, then by number), a page at a time."""
     session = _signed_in(request)
     store = request.app.state.store
     units = {u.id: u.code for u in store.list(Unit)}
     trenches = {t.id: t.code for t in store.list(Trench)}
+    zone = site_zone(store)
     f = metadata.tables["find"]
-    query = sa.select(f.c.id, f.c.number, f.c.trench_id, f.c.unit_id, f.c.category, f.c.material, f.c.voided)
+    where: list[Any] = []
     text = (q or "").strip()
     if text.isdigit():
-        query = query.where(f.c.number == int(text))
+        where.append(f.c.number == int(text))
     elif text:
         unit_ids = [i for i, code in units.items() if code == text]
-        query = query.where(sa.or_(f.c.material == text, f.c.unit_id.in_(unit_ids)))
+        where.append(sa.or_(f.c.material == text.replace(" ", "_"), f.c.unit_id.in_(unit_ids)))
     with store.read() as conn:
-        rows = conn.execute(query.order_by(f.c.number).limit(201)).all()
+        total = conn.execute(sa.select(sa.func.count()).select_from(f).where(*where)).scalar_one()
+        pages = max(1, -(-total // FINDS_PER_PAGE))
+        page = min(max(1, page), pages)
+        rows = conn.execute(sa.select(f.c.id, f.c.number, f.c.trench_id, f.c.unit_id, f.c.category, f.c.material,
+                                      f.c.found_at, f.c.voided).where(*where)
+                            .order_by(f.c.found_at.desc(), f.c.number.desc())
+                            .limit(FINDS_PER_PAGE).offset((page - 1) * FINDS_PER_PAGE)).all()
     shown = [{"id": r.id, "number": r.number, "trench": trenches.get(r.trench_id, "?"), "unit": units.get(r.unit_id, "?"),
-              "category": r.category, "material": r.material, "voided": r.voided} for r in rows[:200]]
-    return _page(request, "finds.html", session, "Finds", page="finds", finds=shown, q=q, more=len(rows) > 200)
+              "category": words(r.category), "material": words(r.material), "voided": r.voided,
+              "found": _when(r.found_at, zone)} for r in rows]
+    first = (page - 1) * FINDS_PER_PAGE + 1
+    return _page(request, "finds.html", session, "Finds", page="finds", finds=shown, q=q or "", total=total,
+                 first=first, last=first + len(shown) - 1, number=page, pages=pages)
+
+
+_FIND_GROUPS = (  # the find page, read top to bottom as a record card: what it is, where, who and when, state
+    ("What", ("category", "material", "taxon", "element", "count", "weight_g", "length_mm", "width_mm",
+              "thickness_mm", "bearing_deg", "plunge_deg", "notes", "photo_hashes")),
+    ("Where", ("trench_id", "unit_id", "spit_id", "recovery", "bucket", "e", "n", "z", "position_source",
+               "position_sigma_m", "human_remains")),
+    ("Who and when", ("found_at", "recorder", "device_id", "season_id", "label_printed_at")),
+    ("State", ("voided", "void_reason")),
+)
+
+
+class _Shown:
+    """Record values in the user's terms: codes for ids, words for vocabulary, site-zone times, yes or no."""
+
+    def __init__(self, store: Any) -> None:
+        self.zone = site_zone(store)
+        self.names: dict[str, dict[Any, str]] = {
+            "unit_id": {str(u.id): u.code for u in store.list(Unit)},
+            "trench_id": {str(t.id): t.code for t in store.list(Trench)},
+            "season_id": {str(s.id): s.label for s in store.list(Season)},
+            "spit_id": {str(s.id): f"spit {s.number}" for s in store.list(Spit)},
+            "device_id": {str(d.id): d.label for d in store.list(Device)},
+        }
+
+    def __call__(self, name: str, value: Any) -> str:
+        if value is None or value == "" or value == []:
+            return "none"
+        if name in self.names:
+            return self.names[name].get(str(value), "not synced here yet")
+        if name in ("shot_id", "gnss_fix_id"):
+            return "kept (raw observation)"
+        if name == "photo_hashes":
+            return f"{len(value)} photo{'s' if len(value) != 1 else ''}"
+        if isinstance(value, bool):
+            return "yes" if value else "no"
+        if name.endswith("_at"):
+            return _when(value, self.zone) or "none"
+        if isinstance(value, float):
+            return f"{value:.3f}" if name in ("e", "n", "z", "position_sigma_m") else f"{value:g}"
+        return words(value) if name in ("category", "material", "recovery", "position_source") else str(value)
 
 
 @router.get("/finds/{find_id}", response_class=HTMLResponse)
@@ -287,19 +420,35 @@ def find(request: Request, find_id: uuid.UUID) -> Response:
         raise HTTPException(404, detail="no find has this id here (it may not have synced yet)")
     f = found[0]
     hidden = withheld(session.device.role, [f])  # an analyst: no position of possible human remains
-    fields = [(k, NOTE if hidden.field("find", f.id, k) else v) for k, v in f.model_dump(mode="json").items()
-              if v not in (None, "", [])]
-    history = [{**c, "value": NOTE} if hidden.field("find", f.id, c["field"]) else c
-               for c in changes(store, record="find", record_id=find_id, limit=2000)]
-    return _page(request, "find.html", session, f"Find {f.number}", page="finds", fields=fields, history=history)
+    show = _Shown(store)
+    data = f.model_dump(mode="json")
+    groups = []
+    for title, names in _FIND_GROUPS:
+        rows = [(field_label(k), NOTE if hidden.field("find", f.id, k) else show(k, data[k])) for k in names
+                if data.get(k) not in (None, "", []) and not (k == "voided" and not data[k])]
+        if rows:
+            groups.append((title, rows))
+    history: list[dict[str, Any]] = []  # one entry per device and minute: what it wrote then, newest first
+    for c in changes(store, record="find", record_id=find_id, limit=2000):
+        if c["field"] in ("id", "site_id"):
+            continue
+        at = _when(c["at"], show.zone)
+        if not history or (history[-1]["at"], history[-1]["device"]) != (at, c["device"]):
+            history.append({"at": at, "device": c["device"], "changes": []})
+        history[-1]["changes"].append((field_label(c["field"]), NOTE if hidden.field("find", f.id, c["field"])
+                                       else show(c["field"], c["value"])))
+    history.reverse()
+    return _page(request, "find.html", session, f"Find {f.number}", page="finds", find=f, groups=groups,
+                 history=history, unit_code=show.names["unit_id"].get(str(f.unit_id), "?"),
+                 trench_code=show.names["trench_id"].get(str(f.trench_id), "?"))
 
 
 # -- safety ---------------------------------------------------------------------------------------------------
 _SPANS = {"1": 1, "7": 7, "30": 30}  # days back the Safety page can show; anything else shows every check
 
 
-def _shown(check: dict[str, Any]) -> dict[str, Any]:
-    return {**check, "at": _when(check["checked_at"]),
+def _shown(check: dict[str, Any], zone: dt.tzinfo) -> dict[str, Any]:
+    return {**check, "at": _when(check["checked_at"], zone),
             "depth": f"{check['depth_m']:.2f} m" if check["depth_m"] is not None else ""}
 
 
@@ -310,16 +459,87 @@ def safety(request: Request, trench: str | None = None, kind: str | None = None,
     span = _SPANS.get(days or "")
     since = dt.datetime.now(dt.timezone.utc) - dt.timedelta(days=span) if span else None
     filters = {"trench": trench or None, "kind": kind if kind in KINDS else None}
-    rows = [_shown(c) for c in safety_log(store, since=since, limit=1001, **filters)]
+    zone = site_zone(store)
+    rows = [_shown(c, zone) for c in safety_log(store, since=since, limit=1001, **filters)]
     trenches = sorted(t.code for t in store.list(Trench))
     return _page(request, "safety.html", session, "Safety", page="safety", checks=rows[:1000], more=len(rows) > 1000,
                  filters={**filters, "days": days if span else ""}, trenches=trenches, kinds=KIND_LABELS)
 
 
 # -- matrix and exports ---------------------------------------------------------------------------------------
+def flagged_units(store: Any) -> dict[uuid.UUID, int]:
+    """Units the Checks page names with an open check not accepted (on the unit itself, on one of its finds or
+    on one of its relations) and how many: the matrix outlines exactly these, so picture and page agree."""
+    from schema.records import Relation
+
+    from ..validation import list_issues
+
+    by_code = {u.code: u.id for u in store.list(Unit)}
+    relations = {str(r.id): r for r in store.list(Relation)}
+    counts: dict[uuid.UUID, int] = {}
+    for i in list_issues(store, include_accepted=False, limit=100_000):
+        named = {by_code[i["unit"]]} if i["unit"] in by_code else set()
+        if i["record"] == "relation" and i["record_id"] in relations:
+            r = relations[i["record_id"]]
+            named |= {r.upper_unit_id, r.lower_unit_id}
+        for u in named:
+            counts[u] = counts.get(u, 0) + 1
+    return counts
+
+
+_BOX_H, _ROW, _GAP, _CHAR, _FONT = 40, 84, 28, 10, 17  # px: box height, row pitch, gap, width per character, type
+
+
+def matrix_picture(matrix: Any, horizons: list[Any], flagged: dict[uuid.UUID, int]) -> dict[str, Any]:
+    """The reduced matrix as plain drawing data for an SVG at its natural size (text stays readable; a narrow
+    screen scrolls it): boxes with their text, fill, outline and link, and the lines between them. The layout is
+    the exported picture's (``export_pictures.matrix_layout``), so both drawings agree."""
+    from ..export_pictures import NO_HORIZON, PALETTE, box_fill, matrix_layout
+
+    colour = {h.id: PALETTE[i % len(PALETTE)] for i, h in enumerate(sorted(horizons, key=lambda h: h.order))}
+    layout = matrix_layout(matrix, {h.id: h.order for h in horizons})
+    text = {k: " / ".join(matrix.label(g) for g in k) for k in layout.at}
+    pitch = max([_CHAR * len(t) + 24 for t in text.values()] + [90]) + _GAP
+    xs = [x for x, _r in layout.at.values()] or [0.0]
+    left = min(xs)
+    boxes = {}
+    for k, (x, r) in layout.at.items():
+        units = [matrix.units[u] for g in k for u in matrix.members[g]]
+        checks = sum(flagged.get(u.id, 0) for u in units)
+        width = _CHAR * len(text[k]) + 24 + (_CHAR * 3 if checks else 0)
+        cx = _GAP / 2 + (x - left) * pitch + pitch / 2
+        cycle = len(k) > 1
+        boxes[k] = {"x": cx - width / 2, "y": 20 + r * _ROW, "w": width, "h": _BOX_H, "cx": cx,
+                    "ty": 20 + r * _ROW + _BOX_H / 2, "text": text[k] + (f" ({checks})" if checks else ""),
+                    "fill": box_fill({u.horizon_id for u in units if u.horizon_id}, len(k) > 1, colour), "bad": cycle or checks > 0,
+                    "cycle": cycle, "href": (f"/camp/checks?unit={units[0].code}" if checks else
+                                             f"/camp/units/{units[0].id}"),
+                    "title": ("units in a cycle: " if cycle else "unit ") + text[k]
+                    + (f", {checks} open check{'s' if checks != 1 else ''}" if checks else "")}
+    lines = [{"x1": boxes[a]["cx"], "y1": boxes[a]["y"] + _BOX_H, "x2": boxes[b]["cx"], "y2": boxes[b]["y"]}
+             for a, b in sorted(layout.lines, key=lambda ab: (text[ab[0]], text[ab[1]]))]
+    rows = 1 + max((r for _x, r in layout.at.values()), default=-1)
+    return {"boxes": sorted(boxes.values(), key=lambda b: (b["y"], b["x"])), "lines": lines,
+            "width": int(_GAP + (max(xs) - left + 1) * pitch), "height": int(40 + max(rows, 1) * _ROW),
+            "font": _FONT, "legend": [(colour[h.id], f"{h.code} {h.label}")
+                                      for h in sorted(horizons, key=lambda h: h.order)] + [(NO_HORIZON, "no horizon yet")],
+            "cycle": matrix.reduced is None}
+
+
 @router.get("/matrix", response_class=HTMLResponse)
 def matrix(request: Request) -> Response:
-    return _page(request, "matrix.html", _signed_in(request), "Matrix", page="matrix")
+    from schema.records import Horizon
+    from schema.strata.matrix import build_matrix
+
+    session = _signed_in(request)
+    store = request.app.state.store
+    try:
+        data = store.site_data()
+    except BaulkError as exc:
+        return _page(request, "matrix.html", session, "Matrix", page="matrix", picture=None, message=str(exc), error=True)
+    picture = matrix_picture(build_matrix(data.units, data.relations), store.list(Horizon, site_id=data.site.id),
+                             flagged_units(store))
+    return _page(request, "matrix.html", session, "Matrix", page="matrix", picture=picture)
 
 
 @router.get("/matrix.png")
@@ -327,17 +547,16 @@ def matrix_png(request: Request) -> Response:
     import tempfile
 
     from schema.records import Horizon
-    from schema.strata.validate import validate
+    from schema.strata.matrix import build_matrix
 
     from ..export_pictures import draw_matrix
 
     _signed_in(request)
     store = request.app.state.store
     data = store.site_data()
-    report = validate(data)
-    problems = {uuid.UUID(i.record_id) for i in report.issues if i.record == "unit" and i.record_id}
     with tempfile.TemporaryDirectory(prefix="baulk-matrix-") as tmp:
-        draw_matrix(report.matrix, store.list(Horizon, site_id=data.site.id), problems, Path(tmp))
+        draw_matrix(build_matrix(data.units, data.relations), store.list(Horizon, site_id=data.site.id),
+                    set(flagged_units(store)), Path(tmp))
         png = (Path(tmp) / "harris_matrix.png").read_bytes()
     return Response(png, media_type="image/png")
 

@@ -10,7 +10,8 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
 # import name -> python-for-android requirement name
-DIST = {"pydantic_settings": "pydantic-settings", "pydantic_core": "pydantic-core", "typing_extensions": "typing-extensions"}
+DIST = {"pydantic_settings": "pydantic-settings", "pydantic_core": "pydantic-core", "typing_extensions": "typing-extensions",
+        "PIL": "pillow"}  # Pillow installs as the module PIL
 
 
 def test_staged_build_imports_only_what_the_spec_requires(tmp_path: Path) -> None:

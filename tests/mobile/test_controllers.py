@@ -277,8 +277,9 @@ def test_gnss_find_without_proj_uses_the_site_polynomial(field, monkeypatch):  #
                                                    position=Position("gnss")).find
     monkeypatch.setattr(crs_mod, "have_proj", lambda: False)
     monkeypatch.setattr(grid_mod, "have_proj", lambda: False)
-    without = FindController(store, days).record(category="artifact", values={"material": "basalt"},
-                                                 position=Position("gnss")).find
+    without = FindController(store, days).record(
+        category="artifact", values={"material": "basalt"},
+        position=Position("gnss", old_fix_reason="the same fix placed twice to compare the two methods")).find
     limit = demo.site.grid_polynomial.max_error_m
     assert abs(without.e - with_proj.e) <= limit and abs(without.n - with_proj.n) <= limit
     assert without.e != with_proj.e or without.n != with_proj.n  # a different method really ran
@@ -353,3 +354,123 @@ def test_the_next_number_counts_only_numbers_inside_the_tablets_blocks(field):  
     # a find whose number the camp gave stays editable: an unchanged number is not judged again
     edited = finds.edit(saved.find.id, {"notes": "renumbered at camp"})
     assert (edited.find.number, edited.find.notes) == (1001, "renumbered at camp")
+
+
+def test_a_correction_carries_a_new_position_and_unit_and_says_what_was_written(field):  # type: ignore[no-untyped-def]
+    """Issue 18 item 1: correcting find N writes the new shot and the new unit, and names exactly those."""
+    store, demo, days, sim = field
+    finds = FindController(store, days)
+    saved = finds.record(category="artifact", values={"material": "chert"},
+                         position=Position("shot", shot_line=sim.shot_line(1002.0, 2001.0, 99.70)))
+    again = finds.edit(saved.find.id, {"material": "chert"}, unit_code="102",
+                       position=Position("shot", shot_line=sim.shot_line(1002.0, 2001.0, 99.45)))
+    kept = store.get(Find, saved.find.id)
+    assert kept.unit_id == demo.units["102"].id and kept.z == pytest.approx(99.45, abs=1e-4)
+    assert kept.shot_id != saved.find.shot_id and store.get(Shot, kept.shot_id).raw_line.startswith("BKS,1,")
+    assert again.written == ["unit 101 -> 102", f"Z {saved.find.z:.3f} -> {kept.z:.3f}"]
+    # no new shot: the position is kept, and only the field that changed is named
+    plain = finds.edit(saved.find.id, {"material": "obsidian"}, position=Position("shot", shot_line=""))
+    assert plain.written == ["material chert -> obsidian"]
+    assert store.get(Find, saved.find.id).z == kept.z and store.count(Find) == 1
+
+
+def test_a_gnss_fix_is_not_reused_or_stale_without_a_reason(field):  # type: ignore[no-untyped-def]
+    """Issue 18 item 2: a fix older than the limit, or already used, needs a fresh reading or a reason."""
+    from schema.errors import FixNotAccepted
+
+    store, demo, days, _sim = field
+    finds = FindController(store, days)
+    at = dt.datetime.now(dt.timezone.utc)
+    days.feed_gnss(gnss_epoch(demo.site, 1003.0, 2002.0, 99.9, at, quality=4), now=at - dt.timedelta(seconds=330))
+    assert days.gnss_age_s() == pytest.approx(330, abs=5)
+    assert "read 5.5 min ago. OLD FIX: the fix is 5.5 min old (the limit is 60 s)" in days.gnss_line()
+    with pytest.raises(FixNotAccepted, match=r"the fix is 5\.5 min old \(the limit is 60 s\)\. Tap Read receiver"):
+        finds.record(category="artifact", values={"material": "basalt"}, position=Position("gnss"))
+    assert store.count(Find) == 0
+    days.feed_gnss(gnss_epoch(demo.site, 1003.5, 2002.0, 99.9, at, quality=4))
+    first = finds.record(category="artifact", values={"material": "basalt"}, position=Position("gnss")).find
+    with pytest.raises(FixNotAccepted, match=f"the fix already placed find {first.number}"):
+        finds.record(category="artifact", values={"material": "chert"}, position=Position("gnss"))
+    second = finds.record(category="artifact", values={"material": "chert"},
+                          position=Position("gnss", old_fix_reason="two flakes touching; one point for both")).find
+    assert second.notes == (f"[GNSS: the fix already placed find {first.number}; used because: two flakes touching; "
+                            "one point for both]")
+
+
+def test_a_level_that_puts_finds_out_of_bounds_says_how_many(field):  # type: ignore[no-untyped-def]
+    """Issue 18 item 5: a new top level on a unit re-runs its finds' checks and names the finds that changed."""
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    saved = [finds.record(category="artifact", values={"material": "chert"},
+                          position=Position("shot", shot_line=sim.shot_line(1001.98 + 0.02 * k, 2001.5, 99.80))).find
+             for k in range(3)]
+    assert all(not finds.open_checks(f.id) for f in saved)
+    units = UnitsController(store, days)
+    # a top of unit 101 shot at 99.70 puts the three finds (at 99.80) above their unit
+    units.level_point(unit="101", surface="top", shot_line=sim.shot_line(1002.0, 2001.5, 99.70))
+    got = units.last_recheck
+    assert got.checked == 3 and sorted(got.now_failing) == [f.number for f in saved] and got.cleared == []
+    assert got.sentence("unit 101") == ("Checks run again on 3 finds of unit 101: CHECK: 3 finds now fail a check "
+                                        "(1, 2, 3; see Finds, Open checks).")
+    assert all("POS_ABOVE_UNIT" in {c["code"] for c in finds.open_checks(f.id)} for f in saved)
+    assert FindListController(store).count(FindFilter(unresolved_only=True)) == 3
+
+
+def test_the_heat_caution_is_recorded_like_the_lasers(field):  # type: ignore[no-untyped-def]
+    """Issue 18 item 9: the heat caution shown at day start is acknowledged and kept as a safety check."""
+    store, _demo, days, _sim = field
+    assert days.heat_acknowledged() is None
+    with pytest.raises(RecordInvalid, match="heat: the heat caution was not acknowledged. Fix: type who read it"):
+        days.acknowledge_heat(by=" ")
+    check = days.acknowledge_heat(by="AK")
+    assert (check.kind, check.answer, check.trench_id) == ("heat", "heat caution read at day start; acknowledged by AK",
+                                                           days.day.trench.id)
+    assert days.heat_acknowledged().id == check.id
+
+
+def test_labels_are_for_this_tablets_finds_and_can_be_written_again(field, tmp_path):  # type: ignore[no-untyped-def]
+    """Issue 18 item 8: another tablet's finds stay out of the queue; a range is written again on demand."""
+    from mobile.controllers import LabelQueue
+    from schema.errors import RecordNotFound
+
+    store, demo, days, _sim = field
+    finds = FindController(store, days)
+    mine = [finds.record(category="artifact", values={"material": "other_stone"},
+                         position=Position("sieve", spit=1, bucket=str(k))).find for k in range(3)]
+    _other_tablets_find(store, demo, 1001)
+    queue = LabelQueue(store)
+    assert [f.number for f in queue.queue()] == [f.number for f in mine]
+    queue.print_queue(tmp_path)
+    assert queue.queue() == []
+    with pytest.raises(RecordNotFound, match="no labels are waiting"):
+        queue.print_queue(tmp_path)
+    again = queue.in_range(2, 3)
+    assert [f.number for f in again] == [2, 3]
+    assert queue.print_queue(tmp_path, finds=again).exists()
+    with pytest.raises(RecordNotFound, match="this tablet holds no finds numbered 1001 to 1001"):
+        queue.in_range(1001, 1001)
+
+
+def test_words_not_internal_names(tablet, demo_site):  # type: ignore[no-untyped-def]
+    """Issue 18 item 11: no empty quotes or field keys reach the screen."""
+    from mobile.controllers import DayController
+
+    with pytest.raises(RecordInvalid) as exc:
+        DayController(tablet).start(site_code="VLM", season_label="2026", trench_code="TR1", recorder="")
+    assert str(exc.value) == ("day start refused, nothing was saved. recorder: no initials were typed. "
+                              "Fix: type 2-4 capital letters, e.g. AK")
+
+
+def test_a_refused_void_or_confirmation_is_not_called_a_refused_find(field):  # type: ignore[no-untyped-def]
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    saved = finds.record(category="artifact", values={"material": "chert"},
+                         position=Position("shot", shot_line=sim.shot_line(1002.0, 2001.0, 99.55)))
+    with pytest.raises(RecordInvalid) as void:
+        finds.void(saved.find.id, " ")
+    assert str(void.value) == "void refused, nothing was saved. reason: a void needs a reason. Fix: say why the find is voided"
+    with pytest.raises(RecordInvalid) as confirm:
+        finds.confirm(saved.find.id, saved.issues[0].code, "")
+    assert str(confirm.value).startswith("confirmation refused, nothing was saved. reason: a confirmation needs a reason")
+    with pytest.raises(RecordInvalid, match="shot: no shot was taken for this find. Fix: tap Take shot"):
+        finds.record(category="artifact", values={"material": "chert"}, position=Position("shot", shot_line=""))

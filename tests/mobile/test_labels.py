@@ -98,3 +98,25 @@ def test_print_queue_marks_printed_finds(tablet, demo_site, tmp_path) -> None:  
     codes, _ = _decode_page(path, 0)
     assert sorted(codes) == sorted(label_payload("VLM", f.number, f.id) for f in (made[0], made[2]))
     assert queue.queue() == []
+
+
+def test_every_line_stays_inside_its_label(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """Issue 18 item 8: "HANDLE PER LOCAL LAW" and a long material ran over the label's edge; each character's
+    box, as PDFium places it, now lies inside the first label's cell."""
+    import pypdfium2 as pdfium
+
+    label = LabelData(find_id=uuid.UUID(int=7), number=1432, site="VLM", trench="TR12", unit="1012",
+                      category="fossil", material="other_organic_material", found_on=dt.date(2026, 7, 3),
+                      recorder="ABCD", human_remains=True)
+    path = write_label_sheet(tmp_path / "labels.pdf", [label])
+    pdf = pdfium.PdfDocument(str(path))
+    textpage = pdf[0].get_textpage()
+    text = textpage.get_text_range()
+    assert "HANDLE PER LOCAL LAW" in text and "fossil: other organic material" in text
+    mx, my = (L.PAGE_W - L.COLS * L.LABEL_W) / 2, (L.PAGE_H - L.ROWS * L.LABEL_H) / 2
+    left, top = mx, L.PAGE_H - my  # the first slot, top left (PDF y runs upwards)
+    for i in range(textpage.count_chars()):
+        x0, y0, x1, y1 = textpage.get_charbox(i)
+        if x1 > x0:  # spaces have no box
+            assert left <= x0 and x1 <= left + L.LABEL_W and top - L.LABEL_H <= y0 and y1 <= top, (text[i], x1)
+    pdf.close()

@@ -21,3 +21,9 @@ def test_twenty_tablets_push_at_once_and_nothing_is_lost(monkeypatch: pytest.Mon
     assert 0 < r.extra["push_p50_ms"] <= r.extra["push_p95_ms"]
     assert r.extra["server_idle_mb"] > 20  # a real server process was measured, not this one
     assert r.ratio > 1  # over HTTP with a merge cannot beat a bare insert of the same rows
+    # every tablet pulled the other 19 tablets' finds and none of its own (issue 16): it sends its 30 finds'
+    # versions and receives 19 times as many, not 20 times
+    assert r.extra["retries"] == 0
+    assert 0 < r.extra["tablet_sent_mb"] < r.extra["tablet_received_mb"] < r.extra["tablet_received_before_mb"]
+    per_tablet = r.extra["versions"] // 20
+    assert r.extra["tablet_pulled_versions"] >= 19 * per_tablet

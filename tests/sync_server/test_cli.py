@@ -87,7 +87,7 @@ def test_the_demo_takes_the_public_path_and_ends_with_the_analysts_files(demo_ou
     assert report.valid, report.flatten(["rowNumber", "fieldName", "type", "note"])[:5]
     md = (demo_out / "summary.md").read_text()
     assert "ran the code behind `baulk site init`" in md
-    assert "`export/`: age_depth_TR1.png, age_depth_TR2.png, age_depth_TR3.png, ages_by_find.csv" in md
+    assert "`export/`: README.md, age_depth_TR1.png, age_depth_TR2.png, age_depth_TR3.png, ages_by_find.csv" in md
 
 
 def test_demo_refuses_to_overwrite(demo_out: Path) -> None:

@@ -65,7 +65,7 @@ def test_horizons_page_adds_moves_and_assigns(camp) -> None:  # type: ignore[no-
     assert "HORIZON_ORDER" in http.get("/camp/checks", params={"code": "HORIZON_ORDER"}).text
     _post(http, "/camp/horizons/move", csrf, code="H2", direction="down")
     assert [h["code"] for h in list_horizons(server)] == ["H1", "H2", "H3", "H4", "H5"]
-    assert "0 open checks (filtered)." in http.get("/camp/checks", params={"code": "HORIZON_ORDER"}).text
+    assert '<span class="num">0</span> open checks (filtered).' in http.get("/camp/checks", params={"code": "HORIZON_ORDER"}).text
 
     r = _post(http, "/camp/horizons/assign", csrf, horizon="H2", units="101, 201", reason="same tuff in section",
               by="DM")
@@ -173,7 +173,7 @@ def test_a_find_is_corrected_from_its_page(camp) -> None:  # type: ignore[no-unt
     csrf = _sign_in(http, server, "manager")
     page = http.get(f"/camp/finds/{flake.id}").text
     assert "<h2>Corrections</h2>" in page and "No correction made at camp." in page
-    assert f'action="/camp/finds/{flake.id}/correct"' in page and "<option>unit</option>" in page
+    assert f'action="/camp/finds/{flake.id}/correct"' in page and '<option value="unit">Unit</option>' in page
 
     r = _post(http, f"/camp/finds/{flake.id}/correct", csrf, field="unit", value="102",
               reason="section shows it in the <tuff>")
@@ -181,14 +181,14 @@ def test_a_find_is_corrected_from_its_page(camp) -> None:  # type: ignore[no-unt
     assert server.get(Find, flake.id).unit_id == demo.units["102"].id
     page = http.get(r.headers["location"]).text
     assert "Corrected: unit 101 -&gt; 102" in page
-    assert re.search(r"<td>MGR</td><td>unit</td><td>section shows it in the &lt;tuff&gt;</td>", page)
+    assert re.search(r"<td>MGR</td><td>Unit</td><td>section shows it in the &lt;tuff&gt;</td>", page)
 
     before = _count(server)
     r = _post(http, f"/camp/finds/{flake.id}/correct", csrf, field="weight_g", value="-3", reason="weighed again")
     assert r.status_code == 400
     assert ("Find not corrected: find 5 refused, nothing was saved. weight_g: input should be greater than 0 "
             "(got -3.0).") in r.text
-    assert "<h2>History</h2>" in r.text and 'value="-3"' in r.text and "<option selected>weight_g</option>" in r.text
+    assert "<h2>History</h2>" in r.text and 'value="-3"' in r.text and '<option value="weight_g" selected>Weight (g)</option>' in r.text
     r = _post(http, f"/camp/finds/{flake.id}/correct", csrf, field="", value="x", reason="weighed again")
     assert r.status_code == 400 and "field: no field was chosen" in r.text
     r = _post(http, f"/camp/finds/{flake.id}/correct", csrf, field="notes", value="x", reason="")
@@ -203,7 +203,7 @@ def test_a_unit_page_shows_its_history_and_takes_a_correction(camp) -> None:  # 
     unit = demo.units["103"]
     _post(http, "/camp/horizons/assign", csrf, horizon="H2", units="103", reason="tuff lens at the top", by="DM")
     page = http.get(f"/camp/units/{unit.id}").text
-    assert "<h1>Unit 103</h1>" in page and "<th>trench</th><td>TR1</td>" in page
+    assert "<h1>Unit 103</h1>" in page and "<th>Trench</th><td>TR1</td>" in page
     assert re.search(r"<td>H2</td><td>DM</td><td>tuff lens at the top</td>", page)
     r = _post(http, f"/camp/units/{unit.id}/correct", csrf, field="munsell", value="10yr 6/3", reason="daylight")
     assert r.status_code == 303

@@ -19,7 +19,7 @@ def exported(demo_out: Path, tmp_path_factory: pytest.TempPathFactory) -> dict[s
     db = tmp_path_factory.mktemp("export") / "server.sqlite"
     shutil.copy(demo_out / "server.sqlite", db)
     out = {}
-    for mode in ("plain", "strict"):
+    for mode in ("plain", "strict", "again"):  # "again": a second plain export of the same store (same bytes)
         folder = db.parent / mode
         args = ["export", "--out", str(folder), "--db", f"sqlite:///{db}"] + (["--strict"] if mode == "strict" else [])
         r = CliRunner().invoke(cli, args)
@@ -36,7 +36,7 @@ def _rows(path: Path) -> list[dict[str, str]]:
 def test_the_data_package_is_valid_and_a_broken_copy_is_not(exported: dict[str, Path], tmp_path: Path) -> None:
     from frictionless import Package  # the Frictionless Data reference library (frictionlessdata.io)
 
-    for folder in exported.values():
+    for folder in (exported["plain"], exported["strict"]):
         report = Package(str(folder / "datapackage.json")).validate()
         assert report.valid, report.flatten(["rowNumber", "fieldName", "type", "note"])[:5]
     broken = tmp_path / "broken"
@@ -272,3 +272,162 @@ def test_volume_between_surfaces_by_hand() -> None:
     vols = unit_volumes([], units=[unit], levels=pts("top", lambda e, n: 100.0) + pts("bottom", lambda e, n: 99.5),
                         outlines={unit.trench_id: square})
     assert vols[uid].excavated_m3 == pytest.approx(2.0) and vols[uid].from_surfaces == 1 and vols[uid].spits == 0
+
+
+# --- issue 17: correct, complete and joinable, same bytes ------------------------------------------------------
+
+
+def test_the_same_store_gives_the_same_bytes(exported: dict[str, Path]) -> None:
+    a, b = exported["plain"], exported["again"]
+    names = sorted(p.name for p in a.iterdir())
+    assert names == sorted(p.name for p in b.iterdir())
+    differ = [n for n in names if (a / n).read_bytes() != (b / n).read_bytes()]
+    assert differ == ["manifest.json"]  # the manifest's own time is the one exception
+    ma, mb = (json.loads((f / "manifest.json").read_text()) for f in (a, b))
+    del ma["created"], mb["created"]
+    assert ma == mb
+
+
+def test_every_record_joins_by_its_codes_and_codes_stay_text(exported: dict[str, Path], tmp_path: Path) -> None:
+    import pandas as pd  # the outside reader an analyst would use
+    from frictionless import Package  # the Frictionless Data reference library
+
+    folder = exported["plain"]
+    package = json.loads((folder / "datapackage.json").read_text())
+    resources = {r["name"]: r for r in package["resources"]}
+    assert {"seasons", "trenches", "units", "relations", "reduced_matrix", "spits", "samples", "horizons",
+            "laboratory_dates", "level_points", "station_setups", "shots", "gnss_fixes", "control_points",
+            "codebook"} <= set(resources)
+    for name, res in resources.items():  # every code column is typed as text, so unit 101 never loads as 101
+        for f in res["schema"]["fields"]:
+            if f["name"] in ("unit", "trench", "horizon", "code", "upper_unit", "lower_unit", "season"):
+                assert f["type"] == "string", (name, f["name"])
+    units = Package(str(folder / "datapackage.json")).get_resource("units").read_rows()
+    assert {type(r["code"]) for r in units} == {str} and "101" in {r["code"] for r in units}
+    # the joins an analyst makes, by pandas (every code read as text)
+    read = lambda n: pd.read_csv(folder / f"{n}.csv", dtype=str, keep_default_na=False)  # noqa: E731
+    finds, u, lp, rel = read("finds"), read("units"), read("level_points"), read("relations")
+    assert finds.merge(u, left_on="unit", right_on="code", how="left", indicator=True)["_merge"].eq("both").all()
+    assert set(lp["unit"]) <= set(u["code"]) and set(rel["upper_unit"]) | set(rel["lower_unit"]) <= set(u["code"])
+    assert set(finds["season"]) <= set(read("seasons")["label"])
+    assert set(finds.loc[finds["spit_id"] != "", "spit_id"]) <= set(read("spits")["id"])
+    shots = set(read("shots")["id"])
+    assert set(finds.loc[finds["shot_id"] != "", "shot_id"]) <= shots and shots
+    assert set(read("shots")["setup_id"]) <= set(read("station_setups")["id"])
+    # finds carry every recorded field of the record model
+    from schema.records import Find
+
+    recorded = set(Find.model_fields) - {"site_id", "human_remains", "voided", "void_reason"}
+    assert recorded <= set(finds.columns)
+    # a broken copy fails: a find naming a unit the units table does not hold
+    broken = tmp_path / "broken"
+    shutil.copytree(folder, broken)
+    text = (broken / "finds.csv").read_text().splitlines()
+    head = text[0].split(",")
+    cells = text[1].split(",")
+    cells[head.index("unit")] = "999"
+    (broken / "finds.csv").write_text("\n".join([text[0], ",".join(cells), *text[2:]]) + "\n")
+    report = Package(str(broken / "datapackage.json")).validate()
+    assert not report.valid and "foreign-key" in {e[0] for e in report.flatten(["type"])}
+
+
+def test_volumes_by_hand_on_the_demo_trenches(exported: dict[str, Path]) -> None:
+    folder = exported["plain"]
+    units = {r["code"]: r for r in _rows(folder / "units.csv")}
+    vols = _rows(folder / "volumes.csv")
+    per_trench: dict[str, float] = {}
+    for r in vols:
+        if r["excavated_m3"]:
+            per_trench[units[r["unit"]]["trench"]] = per_trench.get(units[r["unit"]]["trench"], 0.0) + float(r["excavated_m3"])
+    # By hand from the demo's set-up (schema/demo_site.py: outlines and unit thicknesses):
+    # TR1 4 m x 3 m = 12 m2, 101-104 are 0.35 + 0.20 + 0.40 + 0.30 = 1.25 m thick: 12 x 1.25 = 15.0 m3
+    # TR2 3 m x 3 m = 9 m2, 201, 203, 204, 205 are 0.30 + 0.25 + 0.20 + 0.45 = 1.20 m: 9 x 1.20 = 10.8 m3
+    #     (the channel cut 202 has no volume of its own: counting it too gave 13.05 m3, +21 %)
+    # TR3 2 m x 5 m = 10 m2, 301-303 are 0.30 + 0.25 + 0.35 = 0.90 m: 10 x 0.90 = 9.0 m3
+    assert per_trench == pytest.approx({"TR1": 15.0, "TR2": 10.8, "TR3": 9.0}, rel=1e-6)
+    trenches = {r["code"]: float(r["area_m2"]) for r in _rows(folder / "trenches.csv")}
+    assert trenches == {"TR1": 12.0, "TR2": 9.0, "TR3": 10.0}
+    cut = next(r for r in vols if r["unit"] == "202")
+    assert (cut["volume_from"], cut["excavated_m3"], cut["kind"]) == ("cut", "", "cut")
+    assert all(r["overlaps"] == "" for r in vols)  # the demo's units stack without sharing space
+
+
+def test_densities_of_bags_and_items_recomputed_by_pandas(exported: dict[str, Path]) -> None:
+    import pandas as pd  # an outside reference for the counting
+
+    folder = exported["plain"]
+    finds = pd.read_csv(folder / "finds.csv", dtype={"horizon": str, "unit": str}, keep_default_na=False)
+    vols = pd.read_csv(folder / "volumes.csv", dtype={"horizon": str, "unit": str}, keep_default_na=False)
+    ours = pd.read_csv(folder / "counts_by_horizon.csv", dtype={"horizon": str}, keep_default_na=False)
+    m3 = vols.assign(v=pd.to_numeric(vols["excavated_m3"])).groupby("horizon")["v"].sum()
+    litres = vols.assign(v=pd.to_numeric(vols["sieved_l"])).groupby("horizon")["v"].sum()
+    theirs = finds.groupby(["horizon", "category", "material", "recovery"]).agg(
+        bags_pd=("id", "count"), items_pd=("count", "sum")).reset_index()
+    merged = ours.merge(theirs, on=["horizon", "category", "material", "recovery"], how="inner")
+    assert len(merged) == len(ours) == len(theirs)
+    assert (merged["finds"] == merged["bags_pd"]).all() and (merged["items"] == merged["items_pd"]).all()
+    dated = merged[merged["horizon"] != ""]
+    for _, r in dated.iterrows():
+        assert float(r["bags_per_m3"]) == pytest.approx(r["bags_pd"] / m3[r["horizon"]], rel=1e-6)
+        assert float(r["items_per_m3"]) == pytest.approx(r["items_pd"] / m3[r["horizon"]], rel=1e-6)
+        assert r["per_m3"] == r["bags_per_m3"]
+        if r["recovery"] == "sieved":
+            assert float(r["items_per_10l"]) == pytest.approx(r["items_pd"] / litres[r["horizon"]] * 10, rel=1e-6)
+            assert float(r["bags_per_10l"]) == pytest.approx(r["bags_pd"] / litres[r["horizon"]] * 10, rel=1e-6)
+        else:
+            assert r["items_per_10l"] == "" and r["bags_per_10l"] == ""
+    sieved = dated[(dated["recovery"] == "sieved") & (dated["items_pd"] > dated["bags_pd"])]
+    assert len(sieved) > 0  # bags of several pieces: the two densities differ, and both are there
+
+
+def test_unit_errors_and_conflicts_mark_finds_and_strict_leaves_them_out(exported: dict[str, Path]) -> None:
+    plain, strict = exported["plain"], exported["strict"]
+    mp = json.loads((plain / "manifest.json").read_text())["counts"]
+    ms = json.loads((strict / "manifest.json").read_text())["counts"]
+    rows = _rows(plain / "finds.csv")
+    in_cycle = [r for r in rows if "MATRIX_CYCLE" in r["unit_errors"].split()]
+    conflicted = [r for r in rows if r["conflicts"]]
+    # the demo's merged store holds a planted cycle (102=204=302, 301, 303) and a conflict on a unit's description
+    assert in_cycle and len(in_cycle) == mp["finds_with_unit_errors"] == mp["finds_in_matrix_cycles"]
+    assert conflicted and len(conflicted) == mp["finds_with_open_conflicts"]
+    assert {r["unit"] for r in in_cycle} == {"102", "204", "302", "301", "303"}
+    kept = {r["id"] for r in _rows(strict / "finds.csv")}
+    assert not kept & {r["id"] for r in in_cycle + conflicted}
+    out = _rows(strict / "excluded.csv")
+    cyc = [r for r in out if r["code"] == "MATRIX_CYCLE"]
+    assert cyc and all(r["applies_to"] == "unit" and r["message"].startswith(f"its unit {r['unit']}: ") for r in cyc)
+    assert ms["excluded_by_code"]["MATRIX_CYCLE"] == len(cyc)
+    assert sum(ms["excluded_by_reason"].values()) == ms["finds_excluded"] == len(out)
+    assert all(r["unit_errors"] == "" and r["conflicts"] == "" for r in _rows(strict / "finds.csv"))
+
+
+def test_horizons_carry_their_age_brackets_and_the_dates_they_rest_on(exported: dict[str, Path]) -> None:
+    rows = {r["code"]: r for r in _rows(exported["plain"] / "horizons.csv")}
+    assert [rows[c]["order"] for c in ("H1", "H2", "H3", "H4")] == ["1", "2", "3", "4"]
+    # H4 holds 104, dated 1935 +- 12 ka (two sigma: 1911 to 1959, by hand): before, the file read "1863 to ?"
+    h4 = rows["H4"]
+    assert (h4["youngest_ka"], h4["oldest_ka"]) == ("1911.0", "1959.0")
+    assert h4["youngest_from"] == h4["oldest_from"] == "104 (VLM-TC-02 1935 +- 12 ka)"
+    assert h4["units"] == "104 303" and h4["dated_units"] == "104"
+    assert h4["bracket_note"] == "unit 303 is left out (caught in a matrix cycle)"
+    # every unit of H2 is in the planted cycle: no bracket, and the reason says so
+    assert rows["H2"]["youngest_ka"] == rows["H2"]["oldest_ka"] == ""
+    assert "caught in a matrix cycle" in rows["H2"]["bracket_note"]
+
+
+def test_the_codebook_and_readme_name_every_code(exported: dict[str, Path]) -> None:
+    from schema.strata.issues import CATALOGUE
+
+    folder = exported["plain"]
+    book = _rows(folder / "codebook.csv")
+    checks = {r["code"]: r["severity"] for r in book if r["kind"] == "check"}
+    assert checks == {c: sev for c, (sev, _w) in CATALOGUE.items()}
+    assert {r["code"] for r in book if r["kind"] == "export"} == {"VOIDED", "CONFLICT"}
+    assert {"deposit", "fill", "cut", "structure"} <= {r["code"] for r in book if r["kind"].startswith("vocabulary:")}
+    assert {r["code"] for r in book if r["kind"] == "recorder"} == {"AK", "MO", "JT"}
+    text = (folder / "README.md").read_text()
+    package = json.loads((folder / "datapackage.json").read_text())
+    for res in package["resources"]:
+        assert f"### {res['name']}.csv" in text
+    assert all(f"| {code} |" in text for code in CATALOGUE)
+    assert "items_per_m3" in text and "bags_per_m3" in text

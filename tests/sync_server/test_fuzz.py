@@ -20,6 +20,8 @@ _server, _demo = seeded_server(f"sqlite:///{Path(tempfile.mkdtemp(prefix='baulk-
 APP = create_app(store=_server)
 TOKENS = {role: _server.add_device(label=f"FUZZ-{role}", role=role)[1] for role in ("recorder", "manager")}
 schema = schemathesis.openapi.from_asgi("/openapi.json", APP)
+# photo chunks (tus): their bodies are raw bytes, sent as application/octet-stream would be
+schemathesis.serializer.alias("application/offset+octet-stream", "application/octet-stream")
 FUZZ = settings(max_examples=60 if os.environ.get("CI") == "true" else 25, deadline=None,
                 suppress_health_check=list(HealthCheck))
 

@@ -166,3 +166,64 @@ def test_today_shows_possible_human_remains_first(camp) -> None:  # type: ignore
     assert re.search(r"shoring check: <span class=\"num\">1</span>.*possible human remains: <span "
                      r"class=\"num\">1</span>.*total station laser: <span class=\"num\">0</span>", page, re.S)
 
+
+
+def test_the_bare_address_opens_the_camp_pages(camp) -> None:  # type: ignore[no-untyped-def]
+    _server, _demo, http, _tmp = camp
+    r = http.get("/")
+    assert r.status_code == 303 and r.headers["location"] == "/camp/"
+    assert http.get("/camp/").headers["location"] == "/camp/sign-in"  # signed out: on to the sign-in form
+
+
+def test_finds_are_paged_newest_first_and_a_find_reads_as_a_record(camp) -> None:  # type: ignore[no-untyped-def]
+    import datetime as dt
+
+    from schema.records import Site
+
+    server, demo, http, tmp = camp
+    server.put(server.list(Site)[0].model_copy(update={"timezone": "Africa/Nairobi"}))  # EAT: UTC+3 all year
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    start = dt.datetime(2026, 7, 3, 5, 0, 7, 250000, tzinfo=dt.timezone.utc)
+    made = [t1.save_find(find=find_data(demo, number=t1.next_find_number(), material="other_stone", weight_g=12.5,
+                                        found_at=start + dt.timedelta(minutes=i)))
+            for i in range(53)]
+    c1.sync()
+    _sign_in(http, server.add_device(label="MGR", role="manager")[1])
+    page = http.get("/camp/finds").text
+    numbers = [int(n) for n in re.findall(r'<a href="/camp/finds/[^"]+">(\d+)</a>', page)]
+    assert numbers == [f.number for f in reversed(made)][:50]  # newest first, fifty a page
+    assert "Finds <span class=\"num\">1-50</span> of <span class=\"num\">53</span>, newest first." in page
+    assert "other stone" in page and "2026-07-03 08:52 EAT" in page and 'rel="next"' in page
+    second = http.get("/camp/finds", params={"page": "2"}).text
+    assert [int(n) for n in re.findall(r'<a href="/camp/finds/[^"]+">(\d+)</a>', second)] == [3, 2, 1]
+    assert 'rel="prev"' in second and 'rel="next"' not in second
+    record = http.get(f"/camp/finds/{made[0].id}").text
+    assert "Trench <strong>TR1</strong>, unit <strong>101</strong>" in record
+    assert "<dt>Weight (g)</dt><dd>12.5</dd>" in record and "<dt>Found at</dt><dd>2026-07-03 08:00 EAT</dd>" in record
+    assert "<dt>Unit</dt><dd>101</dd>" in record and "<dt>Numbered on</dt><dd>TAB-1</dd>" in record
+    assert str(made[0].unit_id) not in record.split("<h2>History</h2>")[0].replace(f"/camp/units/{made[0].unit_id}", "")
+    assert record.index("<h2>Where</h2>") < record.index("<h2>History</h2>") < record.index("<h2>Corrections</h2>")
+    assert not re.search(r"\d\d:\d\d:\d\d", record)  # no seconds, no microseconds
+
+
+def test_the_matrix_outlines_exactly_the_units_checks_name(camp) -> None:  # type: ignore[no-untyped-def]
+    from sync_server.validation import accept_issue, list_issues, run_validation
+
+    server, demo, http, tmp = camp
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t1.save_find(find=find_data(demo, number=t1.next_find_number(), z=99.30))  # below unit 101: a find check
+    t1.save_find(find=find_data(demo, number=t1.next_find_number(), unit_id=demo.units["102"].id))  # above 102
+    c1.sync()
+    run_validation(server)
+    on_102 = [i for i in list_issues(server) if i["unit"] == "102"]
+    assert on_102 and all(i["record"] == "find" for i in list_issues(server))  # only find checks name units here
+    for i in on_102:
+        accept_issue(server, key=i["key"], by="MGR", reason="ash lens seen in the section")
+    _sign_in(http, server.add_device(label="MGR", role="manager")[1])
+    page = http.get("/camp/matrix").text
+    red = re.findall(r'<rect [^>]*stroke="#c00000" stroke-width="4"/>\s*<text [^>]*>([^<]+)</text>', page)
+    assert red == ["101 (1)"]  # named by a find check and open; 102's check is accepted, so not outlined
+    assert '<a href="/camp/checks?unit=101">' in page
+    checks = http.get("/camp/checks").text
+    assert f'<span class="num">1</span> open check; <span class="num">{len(on_102)}</span> accepted' in checks
+    assert checks.index("POS_BELOW_UNIT") < checks.index("Accepted by MGR")  # what still needs a look comes first

@@ -76,9 +76,13 @@ def test_edits_in_both_stores_and_a_reused_number_become_conflicts(last_season, 
     write_archive(old, tmp_path / "second.zip")
     r = import_archive(new, tmp_path / "second.zip")
     assert r["number_clashes"] == 1
-    kinds = {(c["record_id"], c["field"]): c["kind"] for c in list_conflicts(new)}
-    assert kinds == {(str(finds[0].id), "material"): "concurrent",
-                     (str(four_old.id), "number"): "duplicate_number", (str(four_new.id), "number"): "duplicate_number"}
+    listed = list_conflicts(new)
+    kinds = {(c["record_id"], c["field"]): c["kind"] for c in listed}
+    first_four = min(str(four_old.id), str(four_new.id))  # one clash, one conflict: under the first of its finds
+    assert kinds == {(str(finds[0].id), "material"): "concurrent", (first_four, "number"): "duplicate_number"}
+    (clash,) = [c for c in listed if c["kind"] == "duplicate_number"]
+    assert sorted(v["record_id"] for v in clash["values"]) == sorted([str(four_old.id), str(four_new.id)])
+    assert r["conflicts_open"] == 2
     new.close()
 
 

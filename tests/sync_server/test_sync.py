@@ -87,6 +87,10 @@ def test_a_batch_sent_twice_is_applied_once(camp) -> None:  # type: ignore[no-un
     r = http.post("/v1/sync/push", headers=token, json=body)
     assert r.status_code == 200 and r.json()["replayed"] is True
     assert server.count(Find) == 1
+    # the answer says what this request did (nothing) and what the first one did (issue 16)
+    ack = r.json()
+    assert (ack["applied"], ack["rows_written"], ack["duplicates"], ack["received"]) == (0, 0, len(first), len(first))
+    assert ack["original"]["applied"] == len(first) and ack["original"]["rows_written"] == 1
 
 
 def test_same_batch_different_content_is_refused_with_the_fix(camp) -> None:  # type: ignore[no-untyped-def]
@@ -180,14 +184,15 @@ def test_a_number_used_twice_reaches_the_server_as_a_conflict_and_is_renumbered(
     # both finds are visible everywhere, and the clash is listed for the data manager
     assert server.get(Find, a.id).number == server.get(Find, b.id).number == 1
     assert t1.get(Find, b.id).number == 1
-    clashes = list_conflicts(server)
-    assert {c["record_id"] for c in clashes} == {str(a.id), str(b.id)}
-    assert {c["kind"] for c in clashes} == {"duplicate_number"} and {c["field"] for c in clashes} == {"number"}
-    assert sorted(v["record_id"] for v in clashes[0]["values"]) == sorted([str(a.id), str(b.id)])
+    (clash,) = list_conflicts(server)  # one clash, one conflict (issue 16), though both finds keep it
+    assert (clash["kind"], clash["field"], clash["record_id"]) == ("duplicate_number", "number", min(str(a.id), str(b.id)))
+    assert sorted(v["record_id"] for v in clash["values"]) == sorted([str(a.id), str(b.id)])
+    t1.save_find(find=find_data(demo, number=2))
+    assert c1.sync().conflicts_open == 1  # the push answer counts it once too
     assert "NUMBER_DUPLICATE" in {r["code"] for r in list_issues(server)}
     manager_token = server.add_device(label="MGR", role="manager")[1]
     listed = http.get("/v1/conflicts", headers={"Authorization": f"Bearer {manager_token}"}).json()
-    assert {c["kind"] for c in listed["data"]} == {"duplicate_number"}
+    assert [c["kind"] for c in listed["data"]] == ["duplicate_number"] and listed["count"] == 1
     r = http.post("/v1/conflicts/resolve", headers={"Authorization": f"Bearer {manager_token}"},
                   json={"record": "find", "record_id": str(b.id), "field": "number", "value": 4001})
     assert r.status_code == 200 and r.json()["still_open"] is None, r.text
@@ -235,3 +240,64 @@ def test_a_void_made_after_seeing_an_edit_raises_no_conflict(camp) -> None:  # t
     t1.void_find(find_id=find.id, reason="logged twice")
     c1.sync()
     assert list_conflicts(server) == [] and server.get(Find, find.id).voided is True
+
+
+def test_a_pull_sends_back_none_of_the_callers_own_versions(camp) -> None:  # type: ignore[no-untyped-def]
+    """Issue 16: every sync used to download again what it had just uploaded. The pull leaves the caller's own
+    versions out, still moving its cursor past them; the other tablets get every one of them."""
+    server, demo, http, tmp = camp
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
+    for _ in range(30):
+        t1.save_find(find=find_data(demo, number=t1.next_find_number()))
+    with t1.read() as conn:
+        from mobile.sync import cursor_of
+
+        before = cursor_of(conn)
+    report = c1.sync()  # 50 versions a batch here, so several pushes, then the pull
+    assert report.pushed_versions > 300 and report.pulled_versions == 0
+    with server.read() as conn:
+        import sqlalchemy as sa
+
+        from schema.sync.tables import field_version
+
+        top = int(conn.execute(sa.select(sa.func.max(field_version.c.log_seq))).scalar_one())
+    with t1.read() as conn:
+        assert cursor_of(conn) == top > before  # moved past its own versions all the same
+    # one page of 100 reads on past more than 100 of the caller's own versions to the end of the log
+    page = http.get("/v1/sync/pull", params={"after": before, "limit": 100}, headers=c1.headers).json()
+    assert (page["versions"], page["next"], page["more"]) == ([], top, False)
+    assert page["own_left_out"] == report.pushed_versions
+    # another tablet is sent every one of them
+    got = c2.sync()
+    assert got.pulled_versions == report.pushed_versions and t2.count(Find) == 30
+    with t1.read() as a, t2.read() as b:
+        mine = {r.id for r in a.execute(sa.select(field_version.c.id).where(field_version.c.device == t1.device_id()))}
+        theirs = {r.id for r in b.execute(sa.select(field_version.c.id).where(field_version.c.device == t1.device_id()))}
+    assert mine == theirs and len(mine) == report.pushed_versions
+
+
+def test_the_batch_size_is_set_from_the_camp_link(camp) -> None:  # type: ignore[no-untyped-def]
+    """A weak link wants short requests: CampLink's batch_size cuts the unsent work into batches that small."""
+    import sqlalchemy as sa
+    from fastapi.testclient import TestClient
+
+    from mobile.controllers import CampLink
+    from sync_server.tables import push_batch
+    from tests.helpers import enrolled_tablet
+
+    server, demo, http, tmp = camp
+    tablet, device, _token = enrolled_tablet(server, tmp / "weak.sqlite", "TAB-W")
+    tablet.set_setting("link.server", "http://testserver")
+    link = CampLink(tablet, client_factory=lambda _server, _verify: TestClient(http.app), batch_size=7)
+    link.sync()  # the site and a block
+    for _ in range(3):
+        tablet.save_find(find=find_data(demo, number=tablet.next_find_number()))
+    report = link.sync()
+    with server.read() as conn:
+        sizes = [a["received"] for a in conn.execute(sa.select(push_batch.c.ack).where(
+            push_batch.c.device == device.id).order_by(push_batch.c.batch)).scalars()]
+    assert report.pushed_versions == sum(sizes) > 14 and max(sizes) == 7 and len(sizes) == -(-sum(sizes) // 7)
+    assert server.count(Find) == 3
+    with pytest.raises(ValueError, match="batch size 5001 and page size 500 must be from 1 to 5000 and 2000"):
+        CampLink(tablet, batch_size=5001)

@@ -35,7 +35,9 @@ class Driver:
         parent = widget.parent
         while parent is not None and parent is not self.window and not isinstance(parent, ScrollView):
             parent = parent.parent
-        if isinstance(parent, ScrollView):
+        recycled = any(c.__name__ == "RecycleView" for c in type(parent).__mro__)  # its rows are on screen
+        content = parent.children[0] if isinstance(parent, ScrollView) and parent.children else None
+        if isinstance(parent, ScrollView) and not recycled and content is not None and content.height > parent.height:
             parent.scroll_to(widget, padding=40, animate=False)
             self.pump(3)
 

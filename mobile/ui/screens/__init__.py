@@ -22,6 +22,30 @@ class BaulkScreen(Screen):
     def app(self) -> Any:
         return App.get_running_app()
 
+    def on_problem(self, _screen: Any, text: str) -> None:
+        """A problem is never out of sight: the page scrolls to the line that shows it (after the frame that
+        lays the new text out)."""
+        if text:
+            from kivy.clock import Clock
+
+            Clock.schedule_once(lambda _dt: self.scroll_to_problem(), 0)
+
+    def scroll_to_problem(self) -> None:
+        from kivy.metrics import dp
+        from kivy.uix.scrollview import ScrollView
+
+        from ..widgets import Alarm
+
+        for widget in self.walk(restrict=True):
+            if isinstance(widget, Alarm) and widget.text == self.problem and self.problem:
+                parent = widget.parent
+                while parent is not None and parent is not self and not isinstance(parent, ScrollView):
+                    parent = parent.parent
+                content = parent.children[0] if isinstance(parent, ScrollView) and parent.children else None
+                if content is not None and content.height > parent.height:  # a short page is all in sight
+                    parent.scroll_to(widget, padding=dp(72), animate=False)
+                return
+
     def on_pre_enter(self, *_: Any) -> None:
         self.problem = ""
         self.guard(self.refresh)

@@ -23,8 +23,11 @@ class DayScreen(BaulkScreen):
     residuals = StringProperty("")
     gnss = StringProperty("no receiver read yet")
     setup_state = StringProperty("No instrument setup accepted today.")
+    heat_state = StringProperty("")
+    instrument_line = StringProperty("")  # the active line template and the last line read, raw and decoded
 
     def refresh(self) -> None:
+        self.instrument_line = self.app.shot_feed.status()
         days = self.app.days
         sites = days.sites()
         self.sites = [s.code for s in sites]
@@ -40,6 +43,7 @@ class DayScreen(BaulkScreen):
             self.points = [NONE, *(p.code for p in days.control_points())]
             if days.day.setup is not None:
                 self.setup_state = f"Setup accepted: station {days.day.setup.station_code}."
+            self._heat_line()
         else:
             if ids.season.text not in self.seasons and self.seasons:
                 ids.season.text = self.seasons[-1]
@@ -54,7 +58,19 @@ class DayScreen(BaulkScreen):
             return
         self.cautions = "\n\n".join(f"{c.title.upper()}: {c.text}" for c in self.app.days.day_cautions())
         self.message = f"Day started: {day.site.code} {day.season.label}, trench {day.trench.code}, {day.recorder}."
+        self.ids.heat_by.text = day.recorder
         self.refresh()
+
+    def acknowledge_heat(self) -> None:
+        check = self.guard(self.app.days.acknowledge_heat, by=self.ids.heat_by.text)
+        if check is not None:
+            self.refresh()
+
+    def _heat_line(self) -> None:
+        done = self.app.days.heat_acknowledged()
+        tz = self.app.days.day.tz
+        self.heat_state = (f"Heat caution acknowledged at {done.checked_at.astimezone(tz):%H:%M} ({done.answer})." if done
+                           else "HEAT: not acknowledged yet today.")
 
     def read_backsight(self, row: int) -> None:
         ids = self.ids
@@ -63,6 +79,7 @@ class DayScreen(BaulkScreen):
             self.problem = "PROBLEM: choose the occupied point and this row's point first"
             return
         line = self.guard(self.app.read_backsight_line, ids.station.text, target)
+        self.instrument_line = self.app.shot_feed.status()
         if line:
             ids[f"bs{row}_line"].text = line
         elif line is None and self.problem == "":
@@ -95,6 +112,17 @@ class DayScreen(BaulkScreen):
         setup = self.guard(self.app.days.accept_setup, laser_acknowledged_by=self.ids.laser_by.text)
         if setup is not None:
             self.setup_state = f"Setup accepted: station {setup.station_code}. Shots can be taken."
+
+    def take_photo(self, what: str) -> None:
+        """The photo dialog for today's trench or the day's work (``what``: trench or day)."""
+        from ..photo import PhotoDialog, photo_controller
+
+        photos = photo_controller(self.app)
+        target = self.guard(photos.of_trench if what == "trench" else photos.of_day)
+        if target is not None:
+            self.dialog = PhotoDialog(photos, target, lambda photo: setattr(
+                self, "message", f"Photo P{photo.number} of {target.label} kept."))
+            self.dialog.open()
 
     def read_receiver(self) -> None:
         status = self.guard(self.app.read_receiver)

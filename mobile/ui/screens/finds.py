@@ -39,11 +39,13 @@ class FindsScreen(BaulkScreen):
         self._filter = self.filters()
         self._total = self.app.listing.count(self._filter)
         self.ids.rv.data = self._page(0)
-        self.count = f"{self._total} finds"
+        self.count = f"{self._total} {'find' if self._total == 1 else 'finds'}"
+        if self.chosen and self.chosen not in {r["find_id"] for r in self.ids.rv.data}:
+            self.chosen, self.detail = "", ""  # a find the filter hides is not acted on
 
     def _page(self, offset: int) -> list[dict[str, str]]:
         rows = self.app.listing.rows(self._filter, limit=PAGE, offset=offset)
-        return [{"text": r["text"], "find_id": r["id"]} for r in rows]
+        return [{"text": r["text"], "find_id": r["id"], "selected": r["id"] == self.chosen} for r in rows]
 
     def more(self, scroll_y: float) -> None:
         loaded = len(self.ids.rv.data)
@@ -51,12 +53,16 @@ class FindsScreen(BaulkScreen):
             self.ids.rv.data.extend(self._page(loaded))
 
     def choose(self, find_id: str) -> None:
-        from schema.records import Find
+        from schema.records import Find, Unit
 
         find = self.app.store.get(Find, uuid.UUID(find_id))
         self.chosen = find_id
+        for row in self.ids.rv.data:
+            row["selected"] = row["find_id"] == find_id
+        self.ids.rv.refresh_from_data()
         checks = self.app.finds.open_checks(find.id)
-        self.detail = (f"Find {find.number}: {find.category} {find.material}, {find.recovery}"
+        unit = self.app.store.get(Unit, find.unit_id).code
+        self.detail = (f"Find {find.number} in unit {unit}: {find.category} {find.material.replace('_', ' ')}, {find.recovery}"
                        + (" VOIDED: " + (find.void_reason or "") if find.voided else "")
                        + "".join(f"\n{c['severity'].upper()} {c['code']}: {c['message']}"
                                  + (f" (confirmed: {c['confirmed_reason']})" if c["confirmed_reason"] else f". Fix: {c['fix']}")

@@ -36,8 +36,22 @@ class LinkScreen(BaulkScreen):
             self.outcome = f"Enrolled as {device.label}. Tap Sync now to receive the site and your find numbers."
             self.refresh()
 
+    def save_address(self) -> bool:
+        typed = self.ids.server.text.strip()
+        if not typed or typed.rstrip("/") == (self.app.store.setting("link.server") or ""):
+            return True
+        address = self.guard(self.app.link.set_server, typed)
+        if address is None:
+            return False
+        self.ids.server.text = address
+        self.outcome = f"Camp server address saved: {address}. Sync uses it from now on."
+        self.refresh()
+        return True
+
     def sync(self) -> None:
         if self.busy:
+            return
+        if self.app.store.token() is not None and not self.save_address():  # the address typed is the one used
             return
         self.busy, self.progress, self.outcome, self.problem = True, 0, "Syncing...", ""
         threading.Thread(target=self._sync_in_background, name="baulk-sync", daemon=True).start()

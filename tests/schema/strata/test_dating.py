@@ -60,8 +60,9 @@ def test_horizon_bracket_spans_its_units(demo_site) -> None:  # type: ignore[no-
     # the tuff's date reaches every unit recorded as the same bed
     assert b[u["302"].id].dated and b[u["302"].id].youngest == 1860.0
     hb = horizon_brackets(b, m, list(demo_site.horizons.values()))
-    # H3 also holds 205 in TR2, with nothing dated beneath it: the horizon is bounded above only
-    assert (hb[demo_site.horizons["H3"].id].youngest, hb[demo_site.horizons["H3"].id].oldest) == (1860.0, None)
+    # H3 also holds 205 in TR2, with nothing dated beneath it (1860 to ?); the horizon is taken as one layer,
+    # inside both its units' brackets: 103's 1860 to 1970 (issue 17; before, the span 1860 to ?)
+    assert (hb[demo_site.horizons["H3"].id].youngest, hb[demo_site.horizons["H3"].id].oldest) == (1860.0, 1970.0)
     # 104 carries its own date (1950 +- 10): its bracket is that date's two-sigma range
     assert (b[u["104"].id].youngest, b[u["104"].id].oldest) == (1930.0, 1970.0)
     assert hb[demo_site.horizons["H4"].id].dated

@@ -1,0 +1,268 @@
+"""The day's download from the instrument's own data collector, matched to finds: pure functions over text and
+records (the command reads the files and writes the result, ``sync_server/survey_jobs.py``).
+
+A download is a CSV with a header, or lines in an instrument line template. Each point is either raw (hz,
+zenith, slope distance: reduced here through the setup, like a shot on the tablet) or reduced (e, n, z: the
+instrument's own coordinates). A reduced point is kept as the shot the setup would have read on it
+(``readings_for``, the exact inverse of the reduction), so the find's position still comes from a kept shot and
+is recomputed with it when the setup is corrected; the point's own line is kept as the shot's raw line.
+
+A point matches the find whose number it carries (after an optional prefix, leading zeros ignored). A match that
+would move a find by more than ``max_move_m`` is held until confirmed; nothing is guessed.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import uuid
+from dataclasses import dataclass, field
+from typing import Any, Iterable
+
+from ..errors import InputFileInvalid, InstrumentLineInvalid
+from . import templates as tpl
+from .polar import Station, reduce_shots
+from .simulate import readings_for
+
+__all__ = ["COLUMNS", "AttachPlan", "DownloadPoint", "Match", "plan_attach", "read_download_csv",
+           "read_download_lines"]
+
+COLUMNS = ("point", "hz", "zenith", "slope_distance", "target_height", "prism_constant_mm", "e", "n", "z")
+"""What a download column may hold (``--column WHAT=HEADER`` names the header of each)."""
+_DEFAULT_HEADERS = {"point": ("point", "id", "number", "pt")}
+RAW = ("hz", "zenith", "slope_distance")
+REDUCED = ("e", "n", "z")
+
+
+@dataclass(frozen=True)
+class DownloadPoint:
+    """One point of a download: its id, where it came from, its raw readings (in the setup's angle unit) and,
+    for a reduced point, the instrument's coordinates."""
+
+    point: str
+    line: int
+    raw_line: str
+    kind: str  # "raw" or "reduced"
+    hz: float = math.nan
+    zenith: float = math.nan
+    slope_distance_m: float = math.nan
+    target_height_m: float = 0.0
+    prism_constant_mm: float = 0.0
+    e: float | None = None
+    n: float | None = None
+    z: float | None = None
+
+
+def _float(text: str, source: str, line: int, header: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise InputFileInvalid(f"{source} line {line}: {header} {text!r} is not a number; give it as digits with a "
+                               "decimal point") from None
+    if not math.isfinite(value):
+        raise InputFileInvalid(f"{source} line {line}: {header} {text!r} is not a finite number")
+    return value
+
+
+def read_download_csv(
+    text: str, *, source: str, setup_unit: str, columns: dict[str, str] | None = None, angle_unit: str | None = None,
+    target_height_m: float | None = None,
+) -> list[DownloadPoint]:
+    """Points of a CSV download. ``columns`` maps what a column holds to its header (else the header is the name:
+    ``point`` (or ``id``, ``number``), ``hz``, ``zenith``, ``slope_distance``, ``target_height``,
+    ``prism_constant_mm``, or ``e``, ``n``, ``z``); ``angle_unit`` is the file's (deg, gon, dms, mil; default the
+    setup's). Every row is checked first: one bad row reads nothing."""
+    columns = dict(columns or {})
+    unknown = sorted(set(columns) - set(COLUMNS))
+    if unknown:
+        raise InputFileInvalid(f"--column {unknown[0]}=...: {unknown[0]!r} is not something a download column holds; "
+                               f"use one of {', '.join(COLUMNS)}")
+    lines = text.splitlines()
+    reader = csv.reader(lines)
+    header = [h.strip() for h in next(reader, [])]
+    if not any(header):
+        raise InputFileInvalid(f"{source}: the file is empty; give the instrument's download with a header line")
+    where = {h: i for i, h in enumerate(header)}
+    for what in COLUMNS:
+        if what not in columns:
+            found = next((h for h in (_DEFAULT_HEADERS.get(what) or (what,)) if h in where), None)
+            if found:
+                columns[what] = found
+    missing = [f"{w} ({columns[w]!r})" for w in columns if columns[w] not in where]
+    if missing:
+        raise InputFileInvalid(f"{source}: no column {', '.join(missing)} in the header ({', '.join(header)}); "
+                               "name the columns with --column WHAT=HEADER")
+    if "point" not in columns:
+        raise InputFileInvalid(f"{source}: no point column (point, id or number) in the header ({', '.join(header)}); "
+                               "name it with --column point=HEADER")
+    raw = all(c in columns for c in RAW)
+    reduced = all(c in columns for c in REDUCED)
+    if not raw and not reduced:
+        raise InputFileInvalid(f"{source}: the header ({', '.join(header)}) has neither the raw readings (hz, "
+                               "zenith, slope_distance) nor the coordinates (e, n, z); name them with --column")
+    if raw and "target_height" not in columns and target_height_m is None:
+        raise InputFileInvalid(f"{source}: no target_height column; name it with --column target_height=HEADER, or "
+                               "give the pole height for every point with --target-height")
+    unit = angle_unit or setup_unit
+    out: list[DownloadPoint] = []
+    seen: dict[str, int] = {}
+    for number, row in enumerate(reader, start=2):
+        if not any(c.strip() for c in row):
+            continue
+        cell = lambda what: row[where[columns[what]]].strip() if where[columns[what]] < len(row) else ""  # noqa: E731
+        point = cell("point")
+        if not point:
+            raise InputFileInvalid(f"{source} line {number}: the point id ({columns['point']}) is empty")
+        if point in seen:
+            raise InputFileInvalid(f"{source} line {number}: point {point!r} is also on line {seen[point]}; keep "
+                                   "one reading per point (delete the one taken in error)")
+        seen[point] = number
+        raw_line = lines[number - 1] if number - 1 < len(lines) else ",".join(row)
+        if raw:
+            values = {}
+            for what in RAW:
+                text_ = cell(what)
+                if what == "slope_distance":
+                    values[what] = _float(text_, source, number, columns[what])
+                    continue
+                try:
+                    degrees = tpl.angle_from_text(text_, unit)
+                except ValueError as exc:
+                    raise InputFileInvalid(f"{source} line {number}: {columns[what]} {text_!r}: {exc} (read as "
+                                           f"{tpl.UNIT_WORDS[unit]}); give --angle-unit if the file is in another "
+                                           "unit") from None
+                values[what] = tpl.from_degrees(degrees, setup_unit)
+            th = (_float(cell("target_height"), source, number, columns["target_height"])
+                  if "target_height" in columns else float(target_height_m))  # type: ignore[arg-type]
+            pc = (_float(cell("prism_constant_mm"), source, number, columns["prism_constant_mm"])
+                  if "prism_constant_mm" in columns else 0.0)
+            out.append(DownloadPoint(point, number, raw_line, "raw", values["hz"], values["zenith"],
+                                     values["slope_distance"], th, pc))
+        else:
+            e, n, z = (_float(cell(w), source, number, columns[w]) for w in REDUCED)
+            th = (_float(cell("target_height"), source, number, columns["target_height"])
+                  if "target_height" in columns else (target_height_m or 0.0))
+            out.append(DownloadPoint(point, number, raw_line, "reduced", target_height_m=th, e=e, n=n, z=z))
+    return out
+
+
+def read_download_lines(text: str, *, source: str, template: tpl.Template, setup_unit: str) -> list[DownloadPoint]:
+    """Points of a download written as instrument lines (one a line) in ``template``; one bad line reads nothing
+    and is named with its number and the field that failed."""
+    if template.field("point") is None:
+        raise InputFileInvalid(f"{source}: template {template.name} has no point field, so its lines cannot be matched "
+                               "to finds; use a template with a point id (what = \"point\")")
+    out: list[DownloadPoint] = []
+    seen: dict[str, int] = {}
+    for number, line in enumerate(text.splitlines(), start=1):
+        if not line.strip():
+            continue
+        try:
+            d = tpl.decode(template, line)
+        except InstrumentLineInvalid as exc:
+            raise InputFileInvalid(f"{source} line {number}: {exc}") from None
+        o = d.observation
+        if not o.point:
+            raise InputFileInvalid(f"{source} line {number}: the point id is empty")
+        if o.point in seen:
+            raise InputFileInvalid(f"{source} line {number}: point {o.point!r} is also on line {seen[o.point]}; keep "
+                                   "one reading per point")
+        seen[o.point] = number
+        hz, zen = (tpl.from_degrees(tpl.to_degrees(v, o.angle_unit), setup_unit) if o.angle_unit != setup_unit else v
+                   for v in (o.hz, o.zenith))
+        out.append(DownloadPoint(o.point, number, d.raw, "raw", hz, zen, o.slope_distance_m, o.target_height_m,
+                                 o.prism_constant_mm))
+    return out
+
+
+@dataclass(frozen=True)
+class Match:
+    """A point matched to a find: the readings to keep as its shot, where it puts the find, how far it moves it."""
+
+    point: DownloadPoint
+    find_id: uuid.UUID
+    number: int
+    hz: float
+    zenith: float
+    slope_distance_m: float
+    e: float
+    n: float
+    z: float
+    was: tuple[float, float, float] | None
+    move_m: float | None
+    same: bool = False  # the find already holds this very point (a download attached again)
+
+
+@dataclass
+class AttachPlan:
+    """What an attach would do: the matches, the moves held for confirmation, and what matched nothing."""
+
+    matches: list[Match] = field(default_factory=list)
+    held: list[Match] = field(default_factory=list)
+    unmatched: list[tuple[DownloadPoint, str]] = field(default_factory=list)
+    finds_without_point: list[int] = field(default_factory=list)
+
+
+def find_number(point: str, prefix: str = "") -> int | None:
+    """The find number a point id carries (``prefix`` removed, leading zeros ignored), or None."""
+    text = point.strip()
+    if prefix:
+        if not text.startswith(prefix):
+            return None
+        text = text[len(prefix):]
+    return int(text) if text.isdigit() and int(text) > 0 else None
+
+
+def plan_attach(
+    points: Iterable[DownloadPoint], finds: Iterable[Any], station: Station, *, prefix: str = "",
+    max_move_m: float = 0.10, confirm_moves: bool = False, held_lines: dict[uuid.UUID, str | None] | None = None,
+) -> AttachPlan:
+    """Match points to finds (records with ``id, number, e, n, z, voided, recovery, position_source``) and reduce
+    them through ``station``. ``held_lines`` gives the raw line of each find's current shot (a point attached
+    again is then reported as the same, not written twice)."""
+    points = list(points)
+    by_number: dict[int, list[Any]] = {}
+    for f in finds:
+        by_number.setdefault(f.number, []).append(f)
+    held_lines = held_lines or {}
+    plan = AttachPlan()
+    matched: set[uuid.UUID] = set()
+    raw_points = []
+    for p in points:
+        number = find_number(p.point, prefix)
+        live = [f for f in by_number.get(number or -1, []) if not f.voided]
+        if number is None:
+            plan.unmatched.append((p, "not a find number" + (f" (no prefix {prefix!r})" if prefix else "")))
+        elif not live:
+            voided = by_number.get(number)
+            plan.unmatched.append((p, f"find {number} is voided" if voided else f"no find {number}"))
+        elif len(live) > 1:
+            plan.unmatched.append((p, f"find number {number} is held by {len(live)} finds; settle the duplicate first"))
+        else:
+            raw_points.append((p, live[0]))
+    if raw_points:
+        readings = [_readings(p, station) for p, _f in raw_points]
+        r = reduce_shots(station, [x[0] for x in readings], [x[1] for x in readings], [x[2] for x in readings],
+                         [p.target_height_m for p, _f in raw_points], [p.prism_constant_mm for p, _f in raw_points])
+        for (p, f), (hz, zen, sd), e, n, z in zip(raw_points, readings, r.e, r.n, r.z):
+            was = (f.e, f.n, f.z) if f.e is not None and f.n is not None and f.z is not None else None
+            move = math.dist(was, (e, n, z)) if was else None
+            same = held_lines.get(f.id) == p.raw_line and move is not None and move < 1e-6
+            m = Match(p, f.id, f.number, hz, zen, sd, float(e), float(n), float(z), was, move, same)
+            matched.add(f.id)
+            if move is not None and move > max_move_m and not confirm_moves:
+                plan.held.append(m)
+            else:
+                plan.matches.append(m)
+    plan.finds_without_point = sorted(
+        f.number for fs in by_number.values() for f in fs
+        if not f.voided and f.recovery == "plotted" and f.position_source == "none" and f.id not in matched)
+    return plan
+
+
+def _readings(p: DownloadPoint, station: Station) -> tuple[float, float, float]:
+    """The raw readings of a point: as read, or (reduced point) those the setup would read on its coordinates."""
+    if p.kind == "raw":
+        return p.hz, p.zenith, p.slope_distance_m
+    hz, zen, sd = readings_for(station, p.e, p.n, p.z, p.target_height_m)  # type: ignore[arg-type]
+    return float(hz[0]), float(zen[0]), float(sd[0])
