@@ -14,7 +14,9 @@ Every column is a term of the Darwin Core List of Terms, version 2026-05-26 (cit
 - the chronostratigraphic terms name the stages of the horizon's age bracket (``schema.chronostrat``, the ICS chart
   v2024-12); elevations are CRS heights (site datum Z minus the site's vertical offset), with ``verticalDatum``;
 - sieved finds, known only by their trench, are georeferenced by the point-radius method (``schema.georef``);
-- ``eventDate`` is the day in the site's own time zone.
+- ``eventDate`` is the day in the site's own time zone;
+- ``associatedMedia`` lists the find's photo files by their names in the export's ``photos/`` folder, joined by
+  " | " (the Darwin Core guidance for lists); a photo of possible human remains is never named there.
 """
 
 from __future__ import annotations
@@ -76,6 +78,8 @@ DWC_TERMS: list[tuple[str, str, str, dict[str, Any]]] = [
     ("bed", "string", "the horizon's bed, when given", {}),
     ("informationWithheld", "string", "what was left out and why", {}),
     ("occurrenceRemarks", "string", "open check codes, space-separated", {}),
+    ("associatedMedia", "string", "the find's photo files in the export (photos/...), separated by ' | '; photos of "
+     "possible human remains left out, as their files are", {}),
 ]
 assert all(t in TERM_IRIS for t, *_ in DWC_TERMS), "every column must be a published Darwin Core term"
 

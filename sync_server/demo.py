@@ -281,12 +281,14 @@ def _set_up_instrument(tablet: Any, demo: DemoSite, plan: TabletPlan) -> tuple[A
 
 
 def _morning_cautions(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any) -> None:
-    """The day-start cautions each recorder acknowledges on the tablet: heat, and the laser with the setup."""
+    """The day-start cautions each recorder acknowledges on the tablet: heat, and the laser with the setup,
+    kept through the app's own path (``record_acknowledgement``)."""
+    from mobile.controllers.day import record_acknowledgement
+
     trench = demo.trenches[plan.trench]
-    for kind, answer in (("heat", f"read at day start; water and shade checked by {plan.recorder}"),
-                         ("laser", f"laser class 3R; acknowledged by {plan.recorder}")):
-        tablet.add(SafetyCheck(site_id=demo.site.id, trench_id=trench.id, kind=kind, answer=answer,
-                               recorder=plan.recorder, checked_at=setup.set_up_at))
+    for kind in ("heat", "laser"):
+        record_acknowledgement(tablet, kind=kind, site_id=demo.site.id, trench_id=trench.id, recorder=plan.recorder,
+                               by=plan.recorder, at=setup.set_up_at, laser_class="3R" if kind == "laser" else None)
 
 
 def _record(tablet: Any, demo: DemoSite, plan: TabletPlan, setup: Any, progress: Progress, rng: Any) -> dict[str, Any]:

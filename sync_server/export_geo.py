@@ -136,9 +136,11 @@ _PROTOCOL = {"plotted": "plotted in place", "surface": "surface collection", "co
 
 def dwc_rows(site: Site, grid: GridTransform | None, trenches: list[Trench], units: list[Unit],
              horizons: list[Horizon], sel: Selection, *, spits: list[Spit] | None = None,
-             horizon_ages: dict[uuid.UUID, tuple[float | None, float | None]] | None = None) -> list[dict[str, Any]]:
+             horizon_ages: dict[uuid.UUID, tuple[float | None, float | None]] | None = None,
+             media: dict[uuid.UUID, list[str]] | None = None) -> list[dict[str, Any]]:
     """One Darwin Core occurrence per counted fossil find (what each term holds: ``schema.dwc``).
-    ``horizon_ages``: horizon id -> (youngest, oldest) ka of its age bracket, for the chronostratigraphic terms."""
+    ``horizon_ages``: horizon id -> (youngest, oldest) ka of its age bracket, for the chronostratigraphic terms;
+    ``media``: find id -> its exported photo files (``photos/...``), for ``associatedMedia``."""
     fossils = [f for f in sel.included if f.category == "fossil"]
     unit_by_id = {u.id: u for u in units}
     horizon_by_id = {h.id: h for h in horizons}
@@ -220,6 +222,7 @@ def dwc_rows(site: Site, grid: GridTransform | None, trenches: list[Trench], uni
             "formation": h.formation if h else None, "member": h.member if h else None, "bed": h.bed if h else None,
             "informationWithheld": withheld,
             "occurrenceRemarks": " ".join(sel.issue_codes.get(f.id, [])) or None,
+            "associatedMedia": None if f.human_remains else " | ".join((media or {}).get(f.id, [])) or None,
         })
     return rows
 

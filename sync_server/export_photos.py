@@ -9,6 +9,7 @@ positions do (``schema.withholding``); photos of finds the export leaves out (vo
 from __future__ import annotations
 
 import shutil
+import uuid
 from pathlib import Path
 from typing import Any
 
@@ -16,7 +17,7 @@ from schema.records import Find, Photo, Trench, Unit
 
 from .photos import PhotoVault, default_photo_dir
 
-__all__ = ["PHOTO_RESOURCES", "write_photo_files"]
+__all__ = ["PHOTO_RESOURCES", "find_media", "write_photo_files"]
 
 _ID = {"required": True}
 PHOTO_RESOURCES: dict[str, tuple[str, list[tuple[str, str, str, dict[str, Any]]], list[str], list[dict[str, Any]]]] = {
@@ -90,3 +91,13 @@ def write_photo_files(store: Any, tmp: Path, *, finds: list[Find], all_finds: li
                      "file": file, "withheld": withheld})
     return rows
 
+
+
+def find_media(register: list[dict[str, Any]]) -> dict[uuid.UUID, list[str]]:
+    """Each find's exported photo files, in register order (Darwin Core ``associatedMedia``): only files written
+    under photos/, so a withheld photo (possible human remains) or one the camp does not hold is never named."""
+    media: dict[uuid.UUID, list[str]] = {}
+    for r in register:
+        if r["find"] and r["file"] and not r["withheld"]:
+            media.setdefault(uuid.UUID(r["find"]), []).append(r["file"])
+    return media

@@ -59,7 +59,7 @@ from schema.vocab import MATERIALS
 from schema.withholding import Withheld, withheld
 
 from .export_ages import AGE_RESOURCES
-from .export_photos import PHOTO_RESOURCES, write_photo_files
+from .export_photos import PHOTO_RESOURCES, find_media, write_photo_files
 from .export_records import RECORD_RESOURCES, codebook_rows, readme, record_tables
 from .export_sql import tally_in_db
 from .store import ServerStore
@@ -278,7 +278,8 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
     from .export_dwca import write_archive
 
     occurrences = export_geo.dwc_rows(site, grid, data.trenches, units, horizons, sel, spits=spits,
-                                      horizon_ages=export_geo.age_brackets(ages))
+                                      horizon_ages=export_geo.age_brackets(ages),
+                                      media=find_media(record_rows["photo_register"]))
     rows["dwc_occurrence"] = _write_csv(tmp / "dwc_occurrence.csv", "dwc_occurrence", occurrences)
     write_archive(tmp / "dwc_archive.zip", site, occurrences, seasons=sorted(s.label for s in chosen))
     newest = max((f.found_at for f in finds), default=None)

@@ -34,7 +34,7 @@ from schema.tables import metadata
 from schema.withholding import NOTE, withheld
 
 from ..safety import KINDS, safety_log, safety_summary
-from ..sync import list_conflicts, resolve_conflict
+from ..sync import count_conflicts, list_conflicts, resolve_conflict
 from ..tables import push_batch
 from ..withholding import withheld_for
 from .session import COOKIE, LIFETIME_S, PAGE_ROLES, Session, check_csrf, current, end_sessions, make_cookie
@@ -46,7 +46,8 @@ _EXPLAIN = {
     "concurrent": "Two devices changed this field without seeing each other's change. Choose the value to keep.",
     "void": "One device voided this find while another, not knowing, edited it. Keep the void (yes) or restore "
             "the find (no); the edit stays either way.",
-    "duplicate_number": "Two finds of the site carry the same number. Give this find a new number (type it).",
+    "duplicate_number": "Finds of the site carry the same number. Give one of them a new number (type it beside "
+                        "that find); the others keep theirs.",
 }
 
 
@@ -129,7 +130,6 @@ async def sign_out(request: Request) -> Response:
 def today(request: Request) -> Response:
     session = _signed_in(request)
     store = request.app.state.store
-    from schema.sync.tables import open_conflict
     from ..tables import validation_issue as T
 
     since = dt.datetime.now(dt.timezone.utc) - dt.timedelta(hours=24)
@@ -141,7 +141,7 @@ def today(request: Request) -> Response:
             f.join(u, f.c.unit_id == u.c.id).join(t, f.c.trench_id == t.c.id))
             .where(f.c.found_at >= since, sa.not_(f.c.voided)).group_by(t.c.code, u.c.code)
             .order_by(t.c.code, u.c.code)).all()
-        conflicts = conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one()
+        conflicts = count_conflicts(conn)  # a number clash once, as GET /v1/conflicts counts it (issue 16)
         errors = conn.execute(sa.select(sa.func.count()).select_from(T).where(
             T.c.open, T.c.severity == "error", T.c.accepted_at.is_(None))).scalar_one()
     zone = site_zone(store)
@@ -255,10 +255,21 @@ def conflicts(request: Request, message: str | None = None) -> Response:
                   else v for v in c["values"]]
         rows.append({**c, "what": _what(store, c), "explain": _EXPLAIN.get(c["kind"], ""),
                      "values": [{**v, "json": json.dumps(v["value"]), "at": _when(v["at"], show.zone),
-                                 "shown": v["value"] if v.get("withheld") else show(c["field"], v["value"])}
+                                 "shown": v["value"] if v.get("withheld") else show(c["field"], v["value"]),
+                                 "name": record_name(store, c["record"], v["record_id"]),
+                                 "detail": _find_detail(store, v["record_id"]) if c["kind"] == "duplicate_number" else ""}
                                 for v in values]})
     return _page(request, "conflicts.html", session, "Conflicts", page="conflicts", conflicts=rows,
                  can_resolve=session.device.role == "manager", message=message)
+
+
+def _find_detail(store: Any, find_id: str) -> str:
+    """What tells apart finds sharing a number: material and unit (``obsidian, unit 101``)."""
+    found = store.list(Find, id=uuid.UUID(find_id))
+    if not found:
+        return ""
+    units = store.list(Unit, id=found[0].unit_id)
+    return ", ".join(x for x in (words(found[0].material), f"unit {units[0].code}" if units else None) if x)
 
 
 async def _manager_form(request: Request, action: str) -> tuple[Session, dict[str, str]]:

@@ -66,6 +66,18 @@ def test_demo_writes_a_summary(demo_out: Path) -> None:
     # safety: each tablet's day-start heat and laser acknowledgements reached the camp
     assert summary["safety"] == {"checks": 6, "by_kind": {"heat": 3, "laser": 3}}
     assert "the camp holds 6 safety checks (heat 3, laser 3)" in (out / "summary.md").read_text()
+    # ... written by the tablet's own acknowledgement path, so they read as the app's do
+    from schema.records import SafetyCheck
+    from sync_server.store import ServerStore
+
+    server = ServerStore.open(f"sqlite:///{out / 'server.sqlite'}")
+    try:
+        answers = sorted(c.answer for c in server.list(SafetyCheck))
+    finally:
+        server.close()
+    recorders = sorted(t["recorder"] for t in summary["tablets"].values())
+    assert answers == sorted([f"heat caution read at day start; acknowledged by {r}" for r in recorders]
+                             + [f"laser class 3R; acknowledged by {r}" for r in recorders])
 
 
 def test_the_demo_takes_the_public_path_and_ends_with_the_analysts_files(demo_out: Path) -> None:

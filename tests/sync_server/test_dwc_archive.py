@@ -222,3 +222,69 @@ def test_possible_human_remains_get_no_place_at_all() -> None:
     assert plain["samplingProtocol"] == "sieved, 4 mm mesh"
     assert hidden["decimalLatitude"] is None and hidden["coordinateUncertaintyInMeters"] is None
     assert hidden["minimumElevationInMeters"] is None and "human remains" in hidden["informationWithheld"]
+
+
+def test_fossils_with_photos_name_their_exported_files_in_associated_media(tmp_path: Path) -> None:
+    """Issue 19: ``associatedMedia`` lists a fossil's photo files as exported under photos/, joined by " | " (the
+    usage comment of dwc:associatedMedia in the Darwin Core List of Terms: "separate the values in a list with space
+    vertical bar space ( | )", https://dwc.tdwg.org/list/#dwc_associatedMedia, as quoted in tdwg/dwc issue 337);
+    a photo of possible human remains is never named, as its file is never exported. Read back by
+    python-dwca-reader, images by Pillow."""
+    import hashlib
+    import io
+    import random
+
+    import httpx
+    from dwca.read import DwCAReader  # python-dwca-reader, the reference reader
+    from PIL import Image  # Pillow, the reference image reader
+
+    from mobile.photos import save_photo, upload_photos
+    from sync_server.app import create_app
+    from sync_server.loopback import serve_in_thread
+    from tests.helpers import find_data, seeded_server, synced_tablet
+
+    def jpeg(seed: int) -> bytes:
+        rnd = random.Random(seed)
+        out = io.BytesIO()
+        Image.frombytes("RGB", (64, 48), rnd.randbytes(64 * 48 * 3)).save(out, format="JPEG")
+        return out.getvalue()
+
+    url = f"sqlite:///{tmp_path / 'camp.sqlite'}"
+    server, demo = seeded_server(url)
+    try:
+        with serve_in_thread(create_app(store=server)) as base, httpx.Client(base_url=base, timeout=30) as http:
+            tablet, client = synced_tablet(server, http, tmp_path, "TAB-1")
+            fossil = dict(category="fossil", material="bone", taxon="Bovidae indet.")
+            tooth = tablet.save_find(find=find_data(demo, number=tablet.next_find_number(), **fossil))
+            plain = tablet.save_find(find=find_data(demo, number=tablet.next_find_number(), **fossil))
+            remains = tablet.save_find(find=find_data(demo, number=tablet.next_find_number(), human_remains=True,
+                                                      **fossil))
+            flake = tablet.save_find(find=find_data(demo, number=tablet.next_find_number()))  # an artefact
+            for subject, seed in ((tooth, 1), (tooth, 2), (remains, 3), (flake, 4)):
+                save_photo(tablet, data=jpeg(seed), subject="find", subject_id=subject.id, site_id=demo.site.id, by="AK")
+            client.sync()
+            upload_photos(tablet, http, tablet.token())
+            tablet.close()
+        out = tmp_path / "out"
+        r = CliRunner().invoke(cli, ["export", "--out", str(out), "--db", url])
+        assert r.exit_code == 0, r.output
+    finally:
+        server.close()
+    with DwCAReader(str(out / "dwc_archive.zip")) as d:
+        media = {r.data[DWC + "catalogNumber"]: r.data[DWC + "associatedMedia"] for r in d}
+    code = demo.site.code
+    assert set(media) == {f"{code}-{f.number}" for f in (tooth, plain, remains)}  # the artefact is no occurrence
+    assert media[f"{code}-{tooth.number}"] == (f"photos/find-{tooth.number}_TAB-1-P1.jpg | "
+                                               f"photos/find-{tooth.number}_TAB-1-P2.jpg")
+    assert media[f"{code}-{plain.number}"] == "" and media[f"{code}-{remains.number}"] == ""
+    register = {r["photo"]: r for r in _rows(out / "photo_register.csv")}
+    for name in media[f"{code}-{tooth.number}"].split(" | "):  # each named file is in the export, a whole image
+        with Image.open(out / name) as img:
+            assert img.size == (64, 48)
+        photo = name.rsplit("_", 1)[1].removesuffix(".jpg")
+        assert hashlib.sha256((out / name).read_bytes()).hexdigest() == register[photo]["sha256"]
+    assert register["TAB-1-P3"]["withheld"] == "true" and register["TAB-1-P3"]["file"] == ""
+    assert not list((out / "photos").glob(f"find-{remains.number}_*"))
+    # the data package's table says the same
+    table = {r["catalogNumber"]: r["associatedMedia"] for r in _rows(out / "dwc_occurrence.csv")}
+    assert table == media

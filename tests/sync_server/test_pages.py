@@ -227,3 +227,42 @@ def test_the_matrix_outlines_exactly_the_units_checks_name(camp) -> None:  # typ
     checks = http.get("/camp/checks").text
     assert f'<span class="num">1</span> open check; <span class="num">{len(on_102)}</span> accepted' in checks
     assert checks.index("POS_BELOW_UNIT") < checks.index("Accepted by MGR")  # what still needs a look comes first
+
+
+def test_a_number_clash_is_one_conflict_on_today_and_each_of_its_finds_can_be_renumbered(camp) -> None:  # type: ignore[no-untyped-def]
+    """Issue 16: Today counts a clash as GET /v1/conflicts does, and the Conflicts page offers a renumber form
+    for every find of the clash, not only the first."""
+    import datetime as dt
+    import uuid
+
+    from schema.records import NumberBlock
+
+    server, demo, http, tmp = camp
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
+    # TAB-2 was given TAB-1's block by hand in camp: both number a find 1
+    t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
+                                          issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
+    a = t1.save_find(find=find_data(demo, number=1))
+    b = t2.save_find(find=find_data(demo, number=1, material="chert"))
+    c1.sync()
+    c2.sync()
+    csrf = _sign_in(http, server.add_device(label="MGR", role="manager")[1])
+    assert '<span class="num">1</span> conflict waits;' in http.get("/camp/").text
+    page = http.get("/camp/conflicts").text
+    forms = re.findall(r'<form method="post" action="/camp/conflicts/resolve" class="renumber">.*?</form>', page, re.S)
+    offered = sorted(re.search(r'name="record_id" value="([^"]+)"', f).group(1) for f in forms)  # type: ignore[union-attr]
+    assert offered == sorted([str(a.id), str(b.id)])
+    assert all('name="field" value="number"' in f and "Renumber this find" in f for f in forms)
+    # each find said in site terms, told apart by material and unit
+    assert sorted(re.search(r'find 1</a> \(([^)]*)\) from (TAB-\d)', f).groups() for f in forms) == [  # type: ignore[union-attr]
+        ("chert, unit 101", "TAB-2"), ("obsidian, unit 101", "TAB-1")]
+    later = max(str(a.id), str(b.id))  # the find the page used to leave without a form
+    form = {"content-type": "application/x-www-form-urlencoded"}
+    r = http.post("/camp/conflicts/resolve", headers=form,
+                  content=f"csrf={csrf}&record=find&record_id={later}&field=number&typed=150")
+    assert r.status_code == 303 and "settled" in r.headers["location"], r.headers["location"]
+    assert list_conflicts(server) == []
+    assert server.get(Find, uuid.UUID(later)).number == 150
+    assert server.get(Find, uuid.UUID(min(str(a.id), str(b.id)))).number == 1  # the other keeps its number
+    assert '<span class="num">0</span> conflicts wait;' in http.get("/camp/").text
