@@ -77,6 +77,8 @@ class Driver:
         assert options, f"{value!r} is not among {[w.text for w in spinner._dropdown.container.children]}"
         self.tap(options[0])
         assert spinner.text == value
+        # Kivy's DropDown leaves the window a moment later (a scheduled dismiss); until then it takes every touch
+        self.until(lambda: spinner._dropdown.parent is None, timeout_s=10, what=f"the list of {value!r} to close")
 
     def screenshot(self, folder: Path, name: str) -> Path:
         self.pump(3)
