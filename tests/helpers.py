@@ -148,3 +148,41 @@ def chromium_or_skip() -> tuple[str, Any]:
     api = pytest.importorskip("playwright.sync_api", reason="Playwright drives the browser (in the test extra)")
     return path, api
 
+
+
+def start_serve(db: Any, port: int, *, timeout_s: float = 30) -> Any:
+    """A real ``baulk serve`` process on loopback for the SQLite file ``db``, once it answers /v1/status (the
+    crash, backup and black-box tests kill and restart it)."""
+    import subprocess
+    import sys
+    import time
+
+    import httpx
+
+    proc = subprocess.Popen([sys.executable, "-m", "sync_server.cli", "serve", "--port", str(port), "--db",
+                             f"sqlite:///{db}"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        try:
+            if httpx.get(f"http://127.0.0.1:{port}/v1/status", timeout=0.5).status_code == 200:
+                return proc
+        except httpx.TransportError:
+            time.sleep(0.05)
+    proc.kill()
+    raise RuntimeError("the server did not start")
+
+
+def number_clash(server: Any, demo: DemoSite, http: Any, tmp: Any) -> tuple[tuple[Any, Any], tuple[Any, Any], Any, Any]:
+    """TAB-1 and TAB-2 both number a find 1 (TAB-2 was given TAB-1's block by hand in camp, the mistake the
+    number checks guard against) and both sync: ((t1, c1), (t2, c2), TAB-1's find, TAB-2's chert find)."""
+    from schema.records import NumberBlock
+
+    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
+    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
+    t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
+                                          issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
+    a = t1.save_find(find=find_data(demo, number=1))
+    b = t2.save_find(find=find_data(demo, number=1, material="chert"))
+    c1.sync()
+    c2.sync()
+    return (t1, c1), (t2, c2), a, b

@@ -7,7 +7,6 @@ queue, and a season archive's ``number_floor`` of 2^63 imported with exit 0.
 
 from __future__ import annotations
 
-import datetime as dt
 import json
 import re
 import zipfile
@@ -29,7 +28,7 @@ from sync_server.cli import cli
 from sync_server.seasons import write_archive
 from sync_server.store import ServerStore
 from sync_server.sync import list_conflicts
-from tests.helpers import find_data, seeded_server, synced_tablet
+from tests.helpers import find_data, number_clash, seeded_server, synced_tablet
 
 MAX = 2**53 - 1
 
@@ -146,14 +145,7 @@ def test_a_floor_far_above_the_issued_numbers_is_imported_only_when_confirmed(ar
 
 def _duplicate_number(server: Any, demo: Any, http: Any, tmp: Path) -> tuple[Any, Any]:
     """Two tablets' finds sharing number 1 (TAB-2 was given an overlapping block by hand): a conflict on each."""
-    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
-    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
-    t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
-                                          issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
-    a = t1.save_find(find=find_data(demo, number=1))
-    b = t2.save_find(find=find_data(demo, number=1, material="chert"))
-    c1.sync()
-    c2.sync()
+    _first, _second, a, b = number_clash(server, demo, http, tmp)
     assert {c["kind"] for c in list_conflicts(server)} == {"duplicate_number"}
     return a, b
 
@@ -208,7 +200,8 @@ def test_the_conflicts_page_asks_for_the_checkbox_before_a_far_renumbering(camp)
         form = {"content-type": "application/x-www-form-urlencoded"}
         assert http.post("/camp/sign-in", content=f"token={token}", headers=form).status_code == 303
         page = http.get("/camp/conflicts").text
-        assert page.count('name="confirm_far" value="yes"') == 1  # one clash, one conflict (issue 16)
+        assert page.count('<section class="card" id="c') == 1  # one clash, one conflict (issue 16)...
+        assert page.count('name="confirm_far" value="yes"') == 2  # ...with a renumber form for each of its finds
         csrf = re.search(r'name="csrf" value="([^"]+)"', page).group(1)  # type: ignore[union-attr]
         body = f"csrf={csrf}&record=find&record_id={b.id}&field=number&typed=100000000000"
         r = http.post("/camp/conflicts/resolve", content=body, headers=form)

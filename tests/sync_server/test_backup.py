@@ -11,7 +11,6 @@ import os
 import shutil
 import sqlite3
 import subprocess
-import sys
 import threading
 import time
 import uuid
@@ -37,7 +36,7 @@ from sync_server.loopback import free_port
 from sync_server.recovery import recover_store
 from sync_server.store import ServerStore, number_floor
 from sync_server.sync import list_conflicts, resolve_conflict
-from tests.helpers import enrolled_tablet, find_data, seeded_server, synced_tablet, unit_conflict
+from tests.helpers import enrolled_tablet, find_data, seeded_server, start_serve, synced_tablet, unit_conflict
 
 NOT_FROM_TABLETS = {"device", "number_block"}  # the server's own: checked apart below
 
@@ -247,18 +246,8 @@ def test_recover_refuses_what_is_not_a_tablet_file_and_writes_nothing(tmp_path: 
 
 
 # -- baulk backup while baulk serve takes pushes ----------------------------------------------------------------
-def _start(db_path: Path, port: int) -> subprocess.Popen[bytes]:
-    proc = subprocess.Popen([sys.executable, "-m", "sync_server.cli", "serve", "--port", str(port), "--db",
-                             f"sqlite:///{db_path}"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    deadline = time.monotonic() + 30
-    while time.monotonic() < deadline:
-        try:
-            if httpx.get(f"http://127.0.0.1:{port}/v1/status", timeout=0.5).status_code == 200:
-                return proc
-        except httpx.TransportError:
-            time.sleep(0.05)
-    proc.kill()
-    raise RuntimeError("the server did not start")
+def _start(db: Path, port: int) -> subprocess.Popen[bytes]:
+    return start_serve(db, port)  # type: ignore[no-any-return]
 
 
 def test_backup_while_serve_takes_pushes_is_a_consistent_snapshot(tmp_path: Path) -> None:

@@ -11,7 +11,6 @@ import random
 import signal
 import sqlite3
 import subprocess
-import sys
 import threading
 import time
 from pathlib import Path
@@ -27,7 +26,7 @@ from schema.records import REGISTRY, Find, NumberBlock
 from schema.sync import batch_hash
 from sync_server.bundles import import_bundle, write_for_tablet
 from sync_server.loopback import free_port
-from tests.helpers import enrolled_tablet, find_data, seeded_server
+from tests.helpers import enrolled_tablet, find_data, seeded_server, start_serve
 
 USB_FINDS = 2000
 WIFI_FINDS = 150
@@ -36,17 +35,7 @@ WIFI_ROUND = 50  # finds a Wi-Fi tablet records between two syncs (its blocks ho
 
 
 def _start(db: Path, port: int) -> subprocess.Popen[bytes]:
-    proc = subprocess.Popen([sys.executable, "-m", "sync_server.cli", "serve", "--port", str(port), "--db",
-                             f"sqlite:///{db}"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        try:
-            if httpx.get(f"http://127.0.0.1:{port}/v1/status", timeout=0.5).status_code == 200:
-                return proc
-        except httpx.TransportError:
-            time.sleep(0.05)
-    proc.kill()
-    raise RuntimeError("the server did not start")
+    return start_serve(db, port, timeout_s=60)  # type: ignore[no-any-return]
 
 
 def _sync(client: SyncClient) -> None:

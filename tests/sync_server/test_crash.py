@@ -25,23 +25,13 @@ from schema.errors import SyncError
 from schema.sync.tables import field_version
 from sync_server.loopback import free_port
 from sync_server.store import ServerStore
-from tests.helpers import enrolled_tablet, find_data, seeded_server
+from tests.helpers import enrolled_tablet, find_data, seeded_server, start_serve
 
 KILLS = 50
 
 
 def _start(db: Path, port: int) -> subprocess.Popen[bytes]:
-    proc = subprocess.Popen([sys.executable, "-m", "sync_server.cli", "serve", "--port", str(port), "--db", f"sqlite:///{db}"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    deadline = time.monotonic() + 30
-    while time.monotonic() < deadline:
-        try:
-            if httpx.get(f"http://127.0.0.1:{port}/v1/status", timeout=0.5).status_code == 200:
-                return proc
-        except httpx.TransportError:
-            time.sleep(0.05)
-    proc.kill()
-    raise RuntimeError("the server did not start")
+    return start_serve(db, port)  # type: ignore[no-any-return]
 
 
 def _ids(conn: sqlite3.Connection, device: str | None = None) -> list[str]:

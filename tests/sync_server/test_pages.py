@@ -11,7 +11,7 @@ from fastapi.testclient import TestClient
 from schema.records import Find
 from sync_server.app import ROUTE_ROLES, create_app
 from sync_server.sync import list_conflicts
-from tests.helpers import find_data, safety_day, seeded_server, synced_tablet, unit_conflict
+from tests.helpers import find_data, number_clash, safety_day, seeded_server, synced_tablet, unit_conflict
 
 
 @pytest.fixture
@@ -232,21 +232,10 @@ def test_the_matrix_outlines_exactly_the_units_checks_name(camp) -> None:  # typ
 def test_a_number_clash_is_one_conflict_on_today_and_each_of_its_finds_can_be_renumbered(camp) -> None:  # type: ignore[no-untyped-def]
     """Issue 16: Today counts a clash as GET /v1/conflicts does, and the Conflicts page offers a renumber form
     for every find of the clash, not only the first."""
-    import datetime as dt
     import uuid
 
-    from schema.records import NumberBlock
-
     server, demo, http, tmp = camp
-    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
-    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
-    # TAB-2 was given TAB-1's block by hand in camp: both number a find 1
-    t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
-                                          issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
-    a = t1.save_find(find=find_data(demo, number=1))
-    b = t2.save_find(find=find_data(demo, number=1, material="chert"))
-    c1.sync()
-    c2.sync()
+    (t1, c1), (t2, c2), a, b = number_clash(server, demo, http, tmp)
     csrf = _sign_in(http, server.add_device(label="MGR", role="manager")[1])
     assert '<span class="num">1</span> conflict waits;' in http.get("/camp/").text
     page = http.get("/camp/conflicts").text

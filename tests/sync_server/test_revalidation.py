@@ -14,13 +14,13 @@ import pytest
 from click.testing import CliRunner
 
 from mobile.bundles import export_bundle
-from schema.records import Find, NumberBlock
+from schema.records import Find
 from sync_server.app import create_app
 from sync_server.cli import cli
 from sync_server.loopback import serve_in_thread
 from sync_server.seasons import import_archive, write_archive
 from sync_server.store import ServerStore
-from tests.helpers import find_data, seeded_server, synced_tablet
+from tests.helpers import find_data, number_clash, seeded_server, synced_tablet
 
 WAIT_S = 30.0  # the bound: validation of this small site takes well under a second
 FORM = {"content-type": "application/x-www-form-urlencoded"}
@@ -66,16 +66,7 @@ def live(tmp_path: Path) -> Iterator[Live]:
 
 def _clash(live: Live) -> tuple[Any, Any, Any]:
     """Two tablets number a find 1 (TAB-2 was given TAB-1's block by hand); both sync: NUMBER_DUPLICATE."""
-    import datetime as dt
-
-    t1, c1 = synced_tablet(live.server, live.http, live.tmp, "TAB-1")
-    t2, c2 = synced_tablet(live.server, live.http, live.tmp, "TAB-2")
-    t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
-                                          issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
-    t1.save_find(find=find_data(live.demo, number=1))
-    b = t2.save_find(find=find_data(live.demo, number=1, material="chert"))
-    c1.sync()
-    c2.sync()
+    _first, (t2, c2), _a, b = number_clash(live.server, live.demo, live.http, live.tmp)
     live.wait_for("NUMBER_DUPLICATE", ["find 1"])  # after the pushes
     return t2, c2, b
 

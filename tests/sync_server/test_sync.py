@@ -11,7 +11,7 @@ from schema.errors import SyncError
 from schema.records import Find, NumberBlock, Unit
 from schema.sync import Version, batch_hash
 from sync_server.sync import list_conflicts
-from tests.helpers import find_data, synced_tablet
+from tests.helpers import find_data, number_clash, synced_tablet
 
 
 def test_first_pull_provisions_a_tablet(camp) -> None:  # type: ignore[no-untyped-def]
@@ -166,20 +166,10 @@ def test_a_truncated_push_body_is_refused_and_nothing_applied(camp) -> None:  # 
 
 
 def test_a_number_used_twice_reaches_the_server_as_a_conflict_and_is_renumbered(camp) -> None:  # type: ignore[no-untyped-def]
-    import datetime as dt
-
     from sync_server.validation import list_issues
 
     server, demo, http, tmp = camp
-    t1, c1 = synced_tablet(server, http, tmp, "TAB-1")
-    t2, c2 = synced_tablet(server, http, tmp, "TAB-2")
-    # TAB-2 was given an overlapping block by hand in camp (the mistake this guards against)
-    t2.add_number_block(block=NumberBlock(device_id=t2.device_id(), first=1, last=100,
-                                          issued_at=dt.datetime(2026, 7, 1, tzinfo=dt.timezone.utc)))
-    a = t1.save_find(find=find_data(demo, number=1))
-    b = t2.save_find(find=find_data(demo, number=1, material="chert"))
-    c1.sync()
-    c2.sync()
+    (t1, c1), (t2, c2), a, b = number_clash(server, demo, http, tmp)
     c1.sync()
     # both finds are visible everywhere, and the clash is listed for the data manager
     assert server.get(Find, a.id).number == server.get(Find, b.id).number == 1
