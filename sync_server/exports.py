@@ -36,6 +36,7 @@ import hashlib
 import json
 import os
 import shutil
+import threading
 import uuid
 from collections import Counter
 from pathlib import Path
@@ -413,9 +414,19 @@ def _site_shots(store: ServerStore, setup_ids: set[Any]) -> list[Shot]:
 def _fixed_dates() -> Any:
     """While pictures and the GeoPackage are written: matplotlib's SVG date from ``SOURCE_DATE_EPOCH`` and a
     fixed SVG id salt, GDAL's GeoPackage timestamps from ``OGR_CURRENT_DATE`` (both documented by their
-    projects for reproducible output), so the same store gives the same bytes. Restored afterwards."""
+    projects for reproducible output), so the same store gives the same bytes. Restored afterwards. The settings
+    are process-wide, so one lock holds them for one export at a time: two exports in one server process never
+    see each other's restore halfway through."""
     import matplotlib
 
+    with _FIXED_DATES_LOCK:
+        yield from _fixed_dates_held(matplotlib)
+
+
+_FIXED_DATES_LOCK = threading.RLock()
+
+
+def _fixed_dates_held(matplotlib: Any) -> Any:
     saved = {k: os.environ.get(k) for k in ("SOURCE_DATE_EPOCH", "OGR_CURRENT_DATE")}
     os.environ["SOURCE_DATE_EPOCH"] = "0"
     os.environ["OGR_CURRENT_DATE"] = "2000-01-01T00:00:00.000Z"
