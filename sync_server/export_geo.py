@@ -105,12 +105,12 @@ def write_geopackage(path: Path, site: Site, grid: GridTransform | None, trenche
         "category": [f.category for f in placed], "material": [f.material for f in placed],
         "taxon": [f.taxon for f in placed], "element": [f.element for f in placed],
         "count": [f.count for f in placed], "recovery": [f.recovery for f in placed],
-        "found_on": [_local_date(site, f.found_at) for f in placed],
+        "found_on": [np.datetime64(_local_date(site, f.found_at), "D") for f in placed],
         "season": [season_label.get(f.season_id) for f in placed],
     }, {"find_id": object, "number": np.int64, "trench": object, "unit": object, "horizon": object,
         "category": object, "material": object, "taxon": object, "element": object, "count": np.int64,
-        "recovery": object, "found_on": object, "season": object},
-        "Plotted finds (possible human remains left out). found_on: the day found, in the site's time zone "
+        "recovery": object, "found_on": "datetime64[D]", "season": object},
+        "Plotted finds (possible human remains left out). found_on: the day found (a GeoPackage Date), in the site's time zone "
         f"({site.timezone}).")
     polys = []
     for t in trenches:

@@ -5,7 +5,9 @@ join, unit codes on level points and the vertical reference in the layer metadat
 from __future__ import annotations
 
 import csv
+import datetime as dt
 import os
+import re
 import shutil
 import subprocess
 from pathlib import Path
@@ -54,9 +56,9 @@ def test_ogrinfo_reads_every_layer_without_a_warning(gpkg: Path) -> None:
         assert f"Geometry: {geometry}\n" in block
         assert 'ID["EPSG",32736]' in block  # the demo site's CRS, UTM zone 36S
     finds_block = out.split("Layer name: finds\n", 1)[1].split("Layer name:", 1)[0]
-    for field in ("trench", "unit", "horizon", "taxon", "element", "found_on", "season", "category", "material",
-                  "recovery"):
+    for field in ("trench", "unit", "horizon", "taxon", "element", "season", "category", "material", "recovery"):
         assert f"\n{field}: String" in finds_block, field
+    assert "\nfound_on: Date" in finds_block  # a GeoPackage DATE column (OGC 12-128r18, table 1), not text
     assert "VERTICAL_REFERENCE=Z: site datum heights (m). CRS height = Z + 1187.42 m" in finds_block
     levels_block = out.split("Layer name: level_points\n", 1)[1]
     assert "\nunit: String" in levels_block and "VERTICAL_REFERENCE=" in levels_block
@@ -72,7 +74,11 @@ def test_a_find_reads_back_with_its_horizon_and_date(gpkg: Path) -> None:
     assert f"horizon (String) = {f['horizon']}\n" in out
     assert f"unit (String) = {f['unit']}\n" in out and f"trench (String) = {f['trench']}\n" in out
     assert f"taxon (String) = {f['taxon']}\n" in out and "season (String) = 2026\n" in out
-    assert "found_on (String) = 2026-" in out
+    # GDAL prints an OFTDate as YYYY/MM/DD (ogrinfo output); the day is the find's UTC time in the site's zone
+    day = re.search(r"found_on \(Date\) = (\d{4})/(\d\d)/(\d\d)\n", out)
+    assert day, out
+    found_at = dt.datetime.fromisoformat(f["found_at"].replace("Z", "+00:00"))
+    assert abs((dt.date(*map(int, day.groups())) - found_at.date()).days) <= 1
 
 
 def test_level_points_carry_unit_codes(gpkg: Path) -> None:
