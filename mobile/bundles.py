@@ -28,7 +28,7 @@ from . import outbox
 from .store import TabletStore
 from .sync import apply_page, cursor_of, pending_count
 
-__all__ = ["ReturnRead", "export_bundle", "find_return_bundle", "read_return_bundle"]
+__all__ = ["ReturnRead", "export_bundle", "find_return_bundle", "keep_return_thumbnails", "read_return_bundle"]
 
 
 def _enrolled(store: TabletStore) -> tuple[Any, str, str]:
@@ -68,6 +68,8 @@ class ReturnRead:
     conflicts_settled: int = 0
     confirmed: int = 0  # this tablet's own changes the camp confirmed it holds
     numbers_left: int = 0
+    rechecked: Any = None  # the live checks run again over what came in (mobile.checks.Rechecked)
+    thumbnails: int = 0  # photo thumbnails kept from the pack beside the bundle (keep_return_thumbnails)
 
     def sentence(self) -> str:
         if self.already:
@@ -83,6 +85,10 @@ class ReturnRead:
             text += f" {self.conflicts_settled} conflict{'' if self.conflicts_settled == 1 else 's'} settled at camp."
         if self.confirmed:
             text += f" The camp confirmed {self.confirmed} change{'' if self.confirmed == 1 else 's'} this tablet sent."
+        if self.rechecked is not None and (self.rechecked.now_failing or self.rechecked.cleared):
+            text += " " + self.rechecked.sentence("this tablet")
+        if self.thumbnails:
+            text += f" {self.thumbnails} photo thumbnail{'' if self.thumbnails == 1 else 's'} from camp."
         return text + f" Find numbers left: {self.numbers_left}."
 
 
@@ -127,10 +133,61 @@ def read_return_bundle(store: TabletStore, path: Path) -> ReturnRead:
             settled = max(0, open_before - _open_conflicts(conn))
             reached = cursor_of(conn)
     new_blocks = sorted({(b.first, b.last) for b in store.number_blocks()} - blocks)
+    from .checks import recheck_arrived  # what came in may open or close live checks, as after a pull
+
+    rechecked = recheck_arrived(store) if applied else None
     return ReturnRead(path, bundle.versions, applied, reached, already=False, new_blocks=new_blocks,
                       conflicts_settled=settled, confirmed=unsent - pending_count(store),
-                      numbers_left=store.numbers_left())
+                      numbers_left=store.numbers_left(), rechecked=rechecked,
+                      thumbnails=keep_return_thumbnails(store, path))
 
 
 def _open_conflicts(conn: sa.Connection) -> int:
     return int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one())
+
+
+def keep_return_thumbnails(store: TabletStore, bundle: Path) -> int:
+    """Keep the thumbnails in the pack beside a return bundle (``<bundle>.thumbs.zip``, written by the camp's
+    ``sync_server.bundles.write_thumbnail_pack``) where this tablet's photo lists look for them
+    (``mobile.photos.thumbnail``'s files): only of photo records it holds and whose files it does not, each a
+    PNG Pillow reads, written to a temporary name, flushed and renamed. The number kept; 0 without a pack."""
+    import io
+    import os
+    import uuid
+    import zipfile
+
+    from PIL import Image
+
+    from schema.records import Photo
+
+    from .photos import THUMB_PIXELS, photo_folder, photo_path
+
+    pack = bundle.with_name(bundle.name + ".thumbs.zip")
+    if not pack.is_file():
+        return 0
+    folder = photo_folder(store)
+    wanted = {p.sha256 for p in store.list(Photo)}
+    kept = 0
+    with zipfile.ZipFile(pack) as z:
+        for info in z.infolist():
+            sha = info.filename.removesuffix(".png")
+            if sha not in wanted or photo_path(folder, sha).exists() or info.file_size > 2 * 1024 * 1024:
+                continue
+            data = z.read(info)
+            try:
+                with Image.open(io.BytesIO(data)) as img:
+                    if img.format != "PNG" or max(img.size) > 4 * THUMB_PIXELS:
+                        continue
+                    img.load()
+            except (OSError, SyntaxError):
+                continue
+            out = folder / "thumbs" / f"{sha}-{THUMB_PIXELS}.png"
+            out.parent.mkdir(parents=True, exist_ok=True)
+            tmp = out.with_name(f".{uuid.uuid4().hex}.tmp")
+            with open(tmp, "wb") as fh:
+                fh.write(data)
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.replace(tmp, out)
+            kept += 1
+    return kept

@@ -3,7 +3,10 @@
 They never stop a save; the recorder sees each problem with its fix and corrects the record or confirms it
 (the confirmation reason travels to the data manager with the record's notes once sync lands). A level or a
 relation changes what the finds of its units are checked against: ``recheck_units`` runs the checks again on
-those finds, keeps the result beside each find, and says how many changed.
+those finds, keeps the result beside each find, and says how many changed. Changes that arrive from the camp (a
+pull, a return bundle: corrections, resolutions, other tablets' finds and levels) can open or close a check on
+any find: ``recheck_arrived`` runs the checks over the tablet's whole site and rewrites the kept checks of the
+finds whose result changed.
 """
 
 from __future__ import annotations
@@ -21,7 +24,7 @@ from schema.tables import metadata
 from .store import TabletStore
 from .tables import live_check
 
-__all__ = ["Rechecked", "check_find", "check_matrix", "keep_checks", "recheck_units"]
+__all__ = ["Rechecked", "check_find", "check_matrix", "keep_checks", "recheck_arrived", "recheck_units"]
 
 
 def check_find(store: TabletStore, find: Find) -> list[Issue]:
@@ -105,4 +108,56 @@ def recheck_units(store: TabletStore, unit_ids: Iterable[uuid.UUID]) -> Rechecke
                 out.now_failing.append(number)
             elif before - after:
                 out.cleared.append(number)
+    return out
+
+
+def _surface_issues(issues: Iterable[Issue]) -> dict[str, list[Issue]]:
+    """A unit's surface issues, by unit id: a find's live check carries those of its unit (``check_find``)."""
+    out: dict[str, list[Issue]] = {}
+    for i in issues:
+        if i.record == "unit" and i.code.startswith("SURFACE_") and i.record_id:
+            out.setdefault(i.record_id, []).append(i)
+    return out
+
+
+def recheck_arrived(store: TabletStore) -> Rechecked:
+    """After changes arrived from the camp (``mobile.sync`` pull, ``mobile.bundles`` return bundle): the checks
+    of every find (not voided) run again over the site as the tablet now holds it, as ``check_find`` runs them
+    after a save; a find whose open checks changed has them rewritten (confirmations of codes that still apply
+    kept), the rest are left alone (a voided find's are too). One validation per site, one transaction."""
+    t = metadata.tables["find"]
+    with store.read() as conn:
+        finds = conn.execute(sa.select(t.c.id, t.c.number, t.c.site_id, t.c.unit_id)
+                             .where(t.c.voided.is_(False))).all()
+        stored: dict[str, set[tuple[str, str, str]]] = {}
+        for fid, code, message, fix in conn.execute(
+                sa.select(live_check.c.find_id, live_check.c.code, live_check.c.message, live_check.c.fix)):
+            stored.setdefault(str(fid), set()).add((code, message, fix))
+    out = Rechecked(checked=len(finds))
+    wanted: dict[str, list[Issue]] = {}
+    for site_id in sorted({f.site_id for f in finds}, key=str):
+        report = validate(store.site_data(site_id=site_id))
+        surfaces = _surface_issues(report.issues)
+        for issue in report.issues:
+            if issue.record == "find" and issue.record_id:
+                wanted.setdefault(issue.record_id, []).append(issue)
+        for f in finds:
+            if f.site_id == site_id and str(f.unit_id) in surfaces:
+                wanted.setdefault(str(f.id), []).extend(surfaces[str(f.unit_id)])
+    changed = []
+    for f in finds:
+        now = set({i.code: (i.code, i.message, i.fix) for i in wanted.get(str(f.id), [])
+                   if i.severity != "info"}.values())  # one kept check per code, as keep_checks keeps them
+        if now != stored.get(str(f.id), set()):
+            changed.append(f)
+    if not changed:
+        return out
+    with store.atomic() as conn:
+        for f in changed:
+            before = {code for code, _m, _f in stored.get(str(f.id), set())}
+            after = keep_checks(conn, f.id, wanted.get(str(f.id), []))
+            if after - before:
+                out.now_failing.append(f.number)
+            elif before - after:
+                out.cleared.append(f.number)
     return out

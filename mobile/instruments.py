@@ -12,9 +12,11 @@ own line). Example: ``BKS,1,45.0000,90.0000,5.0000,1.500,0,deg*28``. Lines that 
 reason and never guessed at.
 
 BKS is one built-in instrument line template (``schema.survey.templates``); ``baulk tablet --template FILE``
-makes another the active one (``use_template``), so the tablet reads what the instrument itself sends. Lines
-typed on the tablet are always BKS lines; every other line is read through the active template. ``ShotFeed``
-keeps the last line read, raw and decoded, for the Day screen.
+chooses another, which the tablet file remembers (``mobile.settings.instrument_template``) and the day's
+controller holds (``DayController.template``), so the tablet reads what the instrument itself sends. Lines
+typed on the tablet are always BKS lines; every other line is read through the tablet's template (passed to
+``parse_shot_line``: there is no module-wide template). ``ShotFeed`` keeps the last line read, raw and decoded,
+for the Day screen.
 """
 
 from __future__ import annotations
@@ -32,8 +34,8 @@ from schema.survey import templates as tpl
 from .recording import Reading
 
 __all__ = [
-    "FieldSimulator", "GnssMonitor", "LineReader", "ShotFeed", "ShotSimulator", "TtyPort", "active_template",
-    "format_shot_line", "parse_shot_line", "record_ends", "shot_checksum", "stream_lines", "typed_shot_line", "use_template",
+    "FieldSimulator", "GnssMonitor", "LineReader", "ShotFeed", "ShotSimulator", "TtyPort", "format_shot_line",
+    "parse_shot_line", "record_ends", "shot_checksum", "stream_lines", "typed_shot_line",
 ]
 
 MAX_LINE = 512  # longer runs without a line end are noise on the wire, dropped and reported
@@ -119,26 +121,13 @@ def format_shot_line(reading: Reading, *, angle_unit: str) -> str:
 _FIELDS = ("hz", "zenith", "slope distance", "target height", "prism constant")
 
 
-_ACTIVE: list[tpl.Template] = [tpl.BKS]
-
-
-def use_template(template: tpl.Template | None) -> tpl.Template:
-    """Make ``template`` the one instrument lines are read with (None: BKS); returns it."""
-    _ACTIVE[0] = template or tpl.BKS
-    return _ACTIVE[0]
-
-
-def active_template() -> tpl.Template:
-    return _ACTIVE[0]
-
-
 def parse_shot_line(line: str, *, at: dt.datetime | None = None,
-                    template: tpl.Template | None = None) -> tuple[Reading, str]:
-    """A reading and its angle unit (deg or gon) from an instrument line: through ``template``, else a BKS line
-    (typed on the tablet) as BKS, else through the active template. ``InstrumentLineInvalid`` names the field."""
+                    template: tpl.Template = tpl.BKS) -> tuple[Reading, str]:
+    """A reading and its angle unit (deg or gon) from an instrument line: a BKS line (typed on the tablet) as BKS,
+    any other through ``template`` (the tablet's instrument template). ``InstrumentLineInvalid`` names the field."""
     text = line.rstrip("\r\n")
-    if template is None:
-        template = tpl.BKS if text.lstrip().startswith("BKS,") else active_template()
+    if text.lstrip().startswith("BKS,"):
+        template = tpl.BKS
     decoded = tpl.decode(template, text)
     o = decoded.observation
     when = at or dt.datetime.now(dt.timezone.utc)
@@ -151,7 +140,7 @@ class ShotFeed:
     """What the instrument sent last, for the Day screen: the template in use, the last line as received and
     what it was read as (or why it could not be read)."""
 
-    template: tpl.Template = field(default_factory=active_template)
+    template: tpl.Template = tpl.BKS
     last_raw: str | None = None
     last: tpl.Decoded | None = None
     last_error: str | None = None

@@ -16,6 +16,7 @@ import tempfile
 import uuid
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 __all__ = ["LabelData", "PREFIX", "fit_size", "label_payload", "parse_label_payload", "write_label_sheet"]
 
@@ -117,8 +118,10 @@ def _draw_label(canvas: object, label: LabelData, x: float, y: float) -> None:
     c.rect(x, y, LABEL_W, LABEL_H, stroke=1, fill=0)  # type: ignore[attr-defined]
 
 
-def write_label_sheet(path: Path, labels: list[LabelData]) -> Path:
-    """Write the labels (21 to a page, in the order given) to ``path`` as PDF; returns the path."""
+def write_label_sheet(path: Path, labels: list[LabelData],
+                      progress: Callable[[int, int], None] | None = None) -> Path:
+    """Write the labels (21 to a page, in the order given) to ``path`` as PDF; returns the path. ``progress``
+    is called with (pages done, pages) after each page is drawn (the Labels screen's bar)."""
     from reportlab.pdfgen.canvas import Canvas
 
     if not labels:
@@ -132,13 +135,18 @@ def write_label_sheet(path: Path, labels: list[LabelData]) -> Path:
         canvas.setTitle("Baulk bag labels")
         margin_x = (PAGE_W - COLS * LABEL_W) / 2
         margin_y = (PAGE_H - ROWS * LABEL_H) / 2
+        pages = -(-len(labels) // (COLS * ROWS))
         for i, label in enumerate(labels):
             slot = i % (COLS * ROWS)
             if i and slot == 0:
                 canvas.showPage()
+                if progress is not None:
+                    progress(i // (COLS * ROWS), pages)
             col, row = slot % COLS, slot // COLS
             _draw_label(canvas, label, margin_x + col * LABEL_W, PAGE_H - margin_y - (row + 1) * LABEL_H)
         canvas.save()
+        if progress is not None:
+            progress(pages, pages)
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)

@@ -41,7 +41,8 @@ from schema.validation import check
 
 __all__ = [
     "CHUNK_BYTES", "ImageFacts", "UploadReport", "android_camera", "copy_from", "free_bytes", "mark_at_camp", "photo_pack_path", "write_photo_pack", "free_space_line", "FREE_SPACE_WARNING_BYTES", "inspect_image", "keep_file", "next_photo_number",
-    "orphans", "photo_folder", "photo_path", "save_photo", "strip_location", "thumbnail", "upload_photos",
+    "orphans", "photo_folder", "photo_path", "save_photo", "strip_location", "thumbnail", "thumbnail_if_kept",
+    "THUMB_PIXELS", "upload_photos",
 ]
 
 CHUNK_BYTES = 8 * 1024 * 1024
@@ -124,6 +125,22 @@ def _fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
+def _write_synced(path: Path, data: bytes) -> None:
+    """A new file with ``data``, flushed to the disk before this returns."""
+    with open(path, "wb") as out:
+        out.write(data)
+        out.flush()
+        os.fsync(out.fileno())
+
+
+def _rename(source: Path, target: Path) -> None:
+    os.replace(source, target)
+
+
+# keep_file's three disk steps, in order; the power-loss harness (tests/powercut.py) records them by name
+FILE_STEPS = ("_write_synced", "_rename", "_fsync_dir")
+
+
 def keep_file(folder: Path, data: bytes, sha256: str) -> Path:
     """Write ``data`` to its place by hash, durably: temporary name, flush, rename, flush the folder."""
     final = photo_path(folder, sha256)
@@ -132,11 +149,8 @@ def keep_file(folder: Path, data: bytes, sha256: str) -> Path:
     final.parent.mkdir(parents=True, exist_ok=True)
     tmp = final.parent / f".{sha256}.{uuid.uuid4().hex}.tmp"
     try:
-        with open(tmp, "wb") as out:
-            out.write(data)
-            out.flush()
-            os.fsync(out.fileno())
-        os.replace(tmp, final)
+        _write_synced(tmp, data)
+        _rename(tmp, final)
     finally:
         tmp.unlink(missing_ok=True)
     _fsync_dir(final.parent)
@@ -156,7 +170,8 @@ def save_photo(store: Any, *, data: bytes, subject: str, subject_id: uuid.UUID |
                scale_in_frame: bool = False, north_arrow_in_frame: bool = False,
                taken_at: dt.datetime | None = None, folder: Path | None = None, name: str = "the photo") -> Photo:
     """Keep an image file and its register entry: the file first (durably), then the record with the next photo
-    number in one transaction. Location tags are stripped from photos of possible human remains."""
+    number in one transaction (for a find, its ``photo_hashes`` gains the hash in the same transaction). Location
+    tags are stripped from photos of possible human remains."""
     if subject == "find" and subject_id is not None:
         try:
             found = store.get(Find, subject_id)
@@ -176,7 +191,19 @@ def save_photo(store: Any, *, data: bytes, subject: str, subject_id: uuid.UUID |
     with store.atomic() as conn:
         photo = check(Photo, {**draft, "number": next_photo_number(store, conn)})
         store.save_versioned(conn, photo, new=True)
+        if subject == "find" and subject_id is not None:
+            _link_to_find(store, conn, subject_id, facts.sha256)
     return photo
+
+
+def _link_to_find(store: Any, conn: Any, find_id: uuid.UUID, sha256: str) -> None:
+    """``Find.photo_hashes`` follows the photo records of the find (exports and sync read it): the new hash is
+    added, as one 'add' version of that set field, in the photo record's own transaction."""
+    from schema import db
+
+    find = db.get(conn, Find, find_id)
+    if sha256 not in find.photo_hashes:
+        store.save_versioned(conn, find.model_copy(update={"photo_hashes": [*find.photo_hashes, sha256]}), new=False)
 
 
 def orphans(store: Any, folder: Path | None = None) -> list[Path]:
@@ -186,8 +213,13 @@ def orphans(store: Any, folder: Path | None = None) -> list[Path]:
     return sorted(p for p in folder.glob("??/*") if not p.name.startswith(".") and p.name not in named)
 
 
-def thumbnail(folder: Path, sha256: str, *, size: int = 256) -> Path:
-    """A PNG thumbnail (EXIF orientation applied, at most ``size`` pixels a side), made once and kept."""
+THUMB_PIXELS = 256
+"""Thumbnails are at most this many pixels a side: one size for the find list and Record, made once per hash."""
+
+
+def thumbnail(folder: Path, sha256: str, *, size: int = THUMB_PIXELS) -> Path:
+    """A PNG thumbnail (EXIF orientation applied, at most ``size`` pixels a side), made once and kept under
+    ``<folder>/thumbs/`` (written to a temporary name and renamed: a cut leaves none or a whole one)."""
     from PIL import Image, ImageOps
 
     out = folder / "thumbs" / f"{sha256}-{size}.png"
@@ -195,12 +227,28 @@ def thumbnail(folder: Path, sha256: str, *, size: int = 256) -> Path:
         return out
     out.parent.mkdir(parents=True, exist_ok=True)
     with Image.open(photo_path(folder, sha256)) as img:
+        img.draft("RGB", (size, size))  # a JPEG decodes scaled down (never below the thumbnail's size)
         small = ImageOps.exif_transpose(img)
         small.thumbnail((size, size))
-        tmp = out.with_suffix(f".{uuid.uuid4().hex}.tmp")
-        small.save(tmp, format="PNG")
-        os.replace(tmp, out)
+        png = io.BytesIO()
+        small.save(png, format="PNG")
+    tmp = out.with_suffix(f".{uuid.uuid4().hex}.tmp")
+    _write_synced(tmp, png.getvalue())  # flushed before the rename: a cut never leaves an empty thumbnail
+    os.replace(tmp, out)
     return out
+
+
+def thumbnail_if_kept(folder: Path, sha256: str, *, size: int = THUMB_PIXELS) -> Path | None:
+    """The photo's thumbnail: the one kept already (made here, or brought by a return bundle for a photo another
+    tablet took), else made from the file; None when there is neither, or the file cannot be read."""
+    from PIL import UnidentifiedImageError
+
+    try:
+        return thumbnail(folder, sha256, size=size)
+    except (FileNotFoundError, UnidentifiedImageError):
+        return None
+    except OSError:  # a damaged file: no thumbnail rather than a broken screen
+        return None
 
 
 def android_camera(folder: Path, on_taken: Callable[[Path | None], None]) -> None:  # pragma: no cover - Android
@@ -253,11 +301,17 @@ def _answer(r: Any, what: str) -> None:
 
 
 def _send_one(http: Any, token: str, sha: str, path: Path, *, chunk: int, progress: Callable[..., None],
-              report: UploadReport) -> None:
+              report: UploadReport, begun: bool = True) -> None:
     length = path.stat().st_size
     where = f"/v1/photos/uploads/{sha}"
-    r = http.post("/v1/photos/uploads", headers=_headers(token, **{"Upload-Length": str(length),
-                                                                  "Upload-Metadata": f"sha256 {_b64(sha)}"}))
+    first = b""
+    if not begun:  # a new upload: its first chunk rides on the creation request (tus "Creation With Upload")
+        with open(path, "rb") as f:
+            first = f.read(chunk)
+    r = http.post("/v1/photos/uploads", content=first, headers=_headers(token, **{
+        "Upload-Length": str(length), "Upload-Metadata": f"sha256 {_b64(sha)}",
+        **({"Content-Type": "application/offset+octet-stream"} if first else {})}))
+    report.bytes_sent += len(first)
     _answer(r, f"starting the upload of photo {sha[:12]}")
     offset = r.headers.get("Upload-Offset")
     if offset is None:  # a server that answers creation without the offset: ask (tus core, HEAD)
@@ -265,6 +319,8 @@ def _send_one(http: Any, token: str, sha: str, path: Path, *, chunk: int, progre
         _answer(r, f"asking where the upload of photo {sha[:12]} stands")
         offset = r.headers["Upload-Offset"]
     offset = int(offset)
+    if first:
+        progress(sha, offset, length, report.done_bytes + offset, report.total_bytes)
     with open(path, "rb") as f:
         while offset < length:
             f.seek(offset)
@@ -294,24 +350,37 @@ def upload_photos(store: Any, http: Any, token: str, *, folder: Path | None = No
     mine = sorted({p.sha256 for p in store.list(Photo)})
     report = UploadReport()
     missing: list[str] = []
+    begun: dict[str, int] = {}  # uploads the server holds part of: resumed with PATCH, never sent again
     for start in range(0, len(mine), 500):
         r = http.post("/v1/photos/missing", json={"hashes": mine[start:start + 500]}, headers=_headers(token))
         _answer(r, "asking which photos the camp server lacks")
         missing += r.json()["missing"]
+        begun.update(r.json().get("begun", {}))
         chunk = min(chunk, int(r.json()["max_chunk_bytes"]) - 4096)  # under the server's body limit
     report.held = len(mine) - len(missing)
     mark_at_camp(store, sorted(set(mine) - set(missing)))
     on_chunk = progress or (lambda *_a: None)
     paths = {sha: photo_path(folder, sha) for sha in missing}
     report.total_bytes = sum(p.stat().st_size for p in paths.values() if p.exists())
-    for sha, path in paths.items():
-        if not path.exists():
-            raise PhotoError(f"photo {sha[:12]} has a record but no file in {folder}; it cannot be sent. "
-                             "Void the photo's record if the picture is lost")
-        _send_one(http, token, sha, path, chunk=chunk, progress=on_chunk, report=report)
-        report.sent.append(sha)
-        mark_at_camp(store, [sha])
+    # "at camp" is only a note that saves asking again (the next run asks the server anyway), so it is written
+    # every MARK_EVERY photos and when the run ends or fails, not in a commit of its own per photo
+    marked = 0
+    try:
+        for sha, path in paths.items():
+            if not path.exists():
+                raise PhotoError(f"photo {sha[:12]} has a record but no file in {folder}; it cannot be sent. "
+                                 "Void the photo's record if the picture is lost")
+            _send_one(http, token, sha, path, chunk=chunk, progress=on_chunk, report=report, begun=sha in begun)
+            report.sent.append(sha)
+            if len(report.sent) - marked >= MARK_EVERY:
+                mark_at_camp(store, report.sent[marked:])
+                marked = len(report.sent)
+    finally:
+        mark_at_camp(store, report.sent[marked:])
     return report
+
+
+MARK_EVERY = 25
 
 
 # -- photos by USB: a photo pack beside the bundle ----------------------------------------------------------------

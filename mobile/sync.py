@@ -2,7 +2,9 @@
 
 It talks to the server through any ``httpx.Client`` (a real one on the camp Wi-Fi, or a test client wrapping
 the app in process). Unsent versions are cut into numbered batches once and stored, so a retry after a cut
-connection re-sends the very same batch (the server then answers with its stored acknowledgement). A pulled
+connection re-sends the very same batch (the server then answers with its stored acknowledgement); so a request
+whose connection dropped (reset, refused, cut) is sent again at once, up to ``ATTEMPTS`` times, and counted in
+``SyncReport.retries``: a push again is applied once, a pull again moves nothing until its page is applied. A pulled
 page and the new cursor are applied in one local transaction. Every reply carries the server's clock; the
 tablet keeps the offset and its own stamps follow it.
 """
@@ -31,6 +33,8 @@ __all__ = ["Progress", "SyncClient", "SyncReport", "apply_page", "cursor_of", "p
 Progress = Callable[[str, int, int], None]
 MAX_BATCH = 5000  # the largest push batch the camp server takes (sync_server.sync.MAX_BATCH)
 MAX_PAGE = 2000  # the largest pull page it serves (sync_server.sync.MAX_PAGE)
+ATTEMPTS = 3  # a request whose connection dropped is sent this many times in all before the sync gives up
+KEEPALIVE_S = 5.0  # how long an idle connection is reused: well under the camp server's (sync_server.app.KEEP_ALIVE_S)
 
 
 @dataclass
@@ -46,6 +50,9 @@ class SyncReport:
     # versions the server would not take from this device (set-up records only a manager writes), with the
     # server's reason; acknowledged with their batch, so they are never sent again
     refused: list[dict[str, Any]] = field(default_factory=list)
+    retries: int = 0  # requests sent again after their connection dropped
+    # the live checks run again once a pull brought changes (mobile.checks.recheck_arrived); None: nothing came
+    rechecked: Any = None
 
 
 def apply_page(conn: Connection, versions: list[Version], next_cursor: int) -> list[Version]:
@@ -83,8 +90,9 @@ def pending_count(store: TabletStore) -> int:
 
 class SyncClient:
     def __init__(self, store: TabletStore, http: httpx.Client, token: str, *, batch_size: int = 500,
-                 page_size: int = 500, progress: Progress | None = None):
+                 page_size: int = 500, progress: Progress | None = None, retry_wait_s: float = 0.5):
         self.store, self.http, self.batch_size, self.page_size = store, http, batch_size, page_size
+        self.retry_wait_s = retry_wait_s
         self.headers = {"Authorization": f"Bearer {token}"}
         self.progress = progress or (lambda _stage, _done, _total: None)
         self._offset: int | None = None
@@ -98,13 +106,24 @@ class SyncClient:
         return outbox.batch_versions(self.store, number)
 
     # -- wire -----------------------------------------------------------------------------------------------
-    def _call(self, method: str, url: str, **kw: Any) -> dict[str, Any]:
+    def _send(self, method: str, url: str, report: SyncReport | None, **kw: Any) -> httpx.Response:
+        """The request, sent again when its connection dropped (both kinds are safe to repeat: a push is
+        answered once per batch, a pull reads without changing anything)."""
+        for attempt in range(1, ATTEMPTS + 1):
+            try:
+                return self.http.request(method, url, headers=self.headers, **kw)
+            except httpx.TransportError as exc:
+                if attempt == ATTEMPTS:
+                    raise SyncError(f"the camp server did not answer ({type(exc).__name__}, tried {ATTEMPTS} times); "
+                                    "check the Wi-Fi and try again, or export a bundle to carry over") from None
+                if report is not None:
+                    report.retries += 1
+                time.sleep(self.retry_wait_s * attempt)
+        raise AssertionError("unreachable")
+
+    def _call(self, method: str, url: str, report: SyncReport | None = None, **kw: Any) -> dict[str, Any]:
         sent = time.time_ns() // 1_000_000
-        try:
-            r = self.http.request(method, url, headers=self.headers, **kw)
-        except httpx.TransportError as exc:
-            raise SyncError(f"the camp server did not answer ({type(exc).__name__}); check the Wi-Fi and try again, "
-                            "or export a bundle to carry over") from None
+        r = self._send(method, url, report, **kw)
         if r.status_code >= 400:
             try:
                 body = r.json()
@@ -125,7 +144,7 @@ class SyncClient:
         for k, number in enumerate(todo, start=1):
             versions = self._batch(number)
             body = {"batch": number, "hash": batch_hash(versions), "versions": [v.model_dump(mode="json") for v in versions]}
-            ack = self._call("POST", "/v1/sync/push", json=body)
+            ack = self._call("POST", "/v1/sync/push", report, json=body)
             outbox.mark_acked(self.store, number)
             report.pushed_batches += 1
             report.pushed_versions += len(versions)
@@ -139,7 +158,7 @@ class SyncClient:
         while True:
             with self.store.read() as conn:
                 cursor = cursor_of(conn)
-            page = self._call("GET", "/v1/sync/pull", params={"after": cursor, "limit": self.page_size})
+            page = self._call("GET", "/v1/sync/pull", report, params={"after": cursor, "limit": self.page_size})
             versions = [Version.model_validate(v, strict=False) for v in page["versions"]]
             check_version_ids(versions, where=f"the camp server's page of changes after {cursor}", fix=(
                 "A version is named by the device that made it, so the camp server holds a version it should have "
@@ -150,7 +169,11 @@ class SyncClient:
             report.applied_versions += len(new)
             self.progress("pull", report.pulled_versions, report.pulled_versions + (self.page_size if page["more"] else 0))
             if not page["more"]:
-                return
+                break
+        if report.applied_versions:  # a correction, a resolution, another tablet's levels may open or close checks
+            from .checks import recheck_arrived
+
+            report.rechecked = recheck_arrived(self.store)
 
     def sync(self) -> SyncReport:
         """Push everything unsent, then pull everything new; keeps the server clock offset."""

@@ -136,4 +136,17 @@ def check(model: type[M], data: Any, *, context: dict[str, Any] | None = None, r
         return model.model_validate(data, context=context)
     except ValidationError as exc:
         name = record or getattr(model, "record_name", "") or model.__name__
-        raise RecordInvalid(name, problems(model, exc)) from None
+        raise RecordInvalid(name, _with_choices(model, data, problems(model, exc))) from None
+
+
+def _with_choices(model: type[BaseModel], data: Any, found: list[FieldProblem]) -> list[FieldProblem]:
+    """A missing field whose allowed values depend on another field (a find's material on its category) is
+    fixed with that list, not with the field's generic example (which may not be allowed here)."""
+    allowed_for = getattr(model, "allowed_values", None)
+    if allowed_for is None or not isinstance(data, dict):
+        return found
+    out = []
+    for p in found:
+        allowed = allowed_for(p.field, data) if p.message == "is required" else None
+        out.append(FieldProblem(p.field, p.message, f"add it: use one of: {', '.join(allowed)}") if allowed else p)
+    return out

@@ -23,14 +23,21 @@ from .settings import ServerSettings
 from .store import ServerStore
 from .devices import EnrolRateLimit
 from .headers import SecurityHeaders
-from .limits import BodyLimit
+from .limits import AnswerErrors, BodyLimit
 from .photos import PhotoVault, default_photo_dir
 from .tls import cert_fingerprint
 from .validation import RevalidateAfterAnswer, Revalidator
 from .web.curation_pages import ROUTE_ROLES as CURATION_ROLES
 from .web.photo_pages import ROUTE_ROLES as PHOTO_PAGE_ROLES
 
-__all__ = ["ROUTE_ROLES", "create_app"]
+__all__ = ["KEEP_ALIVE_S", "ROUTE_ROLES", "create_app"]
+
+# How long the server keeps an idle connection open (uvicorn's timeout_keep_alive; its default is 5 s). It must
+# be well above how long a client reuses an idle connection (httpx's keepalive_expiry, 5 s, on the tablets and in
+# the benchmark): with the two equal, a request sent as the server's timer fires arrives on a socket being
+# closed, and the kernel answers it with RST ("Connection reset by peer"). Every server start uses it
+# (`baulk serve`, loopback.serve_in_thread).
+KEEP_ALIVE_S = 75
 
 # Every route declares who may call it; a test walks the app and fails on a route missing here.
 ROUTE_ROLES: dict[str, str] = {
@@ -182,6 +189,7 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
     app.include_router(photo_pages.router)
     app.add_middleware(RevalidateAfterAnswer)  # checks run again after any request that changed records
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
+    app.add_middleware(AnswerErrors, limit=settings.max_body_bytes)  # an error is answered, never a reset
     app.add_middleware(SecurityHeaders)
     return app
 

@@ -10,6 +10,8 @@ serves a version twice, and when the server ends up with other than every versio
 are counted per tablet: ``tablet_sent_mb``, ``tablet_received_mb`` (medians), and
 ``tablet_received_before_mb``, what the tablet would have received had the pulls sent its own versions back
 too, as they did before issue 16 (the versions left out, ``own_left_out``, at their mean JSON size).
+``server_tracebacks`` counts the errors in the server's log (a retry with none beside it is a dropped connection);
+``client_gc_max_ms`` is the longest garbage collection of this process (it stops every tablet thread at once).
 The server runs in its own process, so its
 memory is its own: the report gives its resident memory when idle and its peak (``VmHWM``) during the run.
 The baseline is one SQLAlchemy Core insert of the same version rows in one transaction (no HTTP, no merge).
@@ -43,6 +45,8 @@ TABLETS = 20
 BATCH = 500
 PAGE = 500
 RETRIES = 5  # a request whose connection dropped is tried again this many times, as a tablet would
+KEEPALIVE_S = 5.0  # an idle connection is reused this long, as a tablet's (mobile.sync.KEEPALIVE_S); the server
+# keeps one open for app.KEEP_ALIVE_S, far longer, so no request is sent on a connection it is closing
 
 
 def _rss_kb(pid: int) -> dict[str, int]:
@@ -105,6 +109,22 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
     """Start a server on a copy of the template, let every tablet push all its batches at once, stop it."""
     import httpx
 
+    import gc
+
+    # The workload and the baseline's rows (1.85 M dicts at full size) live in this process: a full garbage
+    # collection over them stops every tablet thread for about 5 s, as long as a connection's keep-alive, and
+    # the tablets are not what is measured. Frozen objects are left out of collections.
+    gc.freeze()
+    pauses: list[float] = []  # this process's garbage collections during the run (client_gc_max_ms)
+    started_gc: list[float] = []
+
+    def gc_watch(phase: str, _info: dict[str, Any]) -> None:
+        if phase == "start":
+            started_gc[:] = [time.perf_counter()]
+        elif started_gc:
+            pauses.append(time.perf_counter() - started_gc[0])
+
+    gc.callbacks.append(gc_watch)
     db = work / f"{tag}.sqlite"
     shutil.copy(state["template"], db)
     port = free_port()
@@ -185,7 +205,8 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
                 return page
 
             with httpx.Client(base_url=base, timeout=600, headers={"Authorization": f"Bearer {t['token']}",
-                                                                   "content-type": "application/json"}) as http:
+                                                                   "content-type": "application/json"},
+                              limits=httpx.Limits(keepalive_expiry=KEEPALIVE_S)) as http:
                 try:
                     try:
                         pushes(http, t["bodies"], pull, counts)
@@ -222,6 +243,7 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
             th.join()
         peak = _rss_kb(proc.pid)["VmHWM"]
     finally:
+        gc.callbacks.remove(gc_watch)
         proc.terminate()
         proc.wait(timeout=60)
     if failures:
@@ -237,8 +259,10 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
                                     .where(field_version.c.record == "find")).scalar_one())
     if held != expected:
         raise RuntimeError(f"the server holds {held} find versions; the tablets sent {expected}")
+    tracebacks = (work / f"{tag}.log").read_text(errors="replace").count("Traceback (most recent call last)")
     return {"elapsed_s": elapsed, "idle_mb": idle / 1024, "peak_mb": peak / 1024, "latencies": latencies,
-            "pulls": pulls, "retries": retries, "wire": wire}
+            "pulls": pulls, "retries": retries, "wire": wire, "server_tracebacks": tracebacks,
+            "gc_max_s": max(pauses, default=0.0)}
 
 
 def _subject(state: dict[str, Any], work: Path, i: int) -> float:
@@ -271,6 +295,10 @@ def _after(state: dict[str, Any], work: Path) -> None:
                                                              for w in wire) / mb, 2),
         "tablet_pulled_versions": int(statistics.median(w["pulled"] for w in wire)),
         "retries": sum(len(r["retries"]) for r in runs + half_runs),
+        # errors the server logged (each answered 500 by limits.AnswerErrors, or a connection it had to close)
+        "server_tracebacks": sum(r["server_tracebacks"] for r in runs + half_runs),
+        # the longest stop of every tablet thread at once (a garbage collection in this process)
+        "client_gc_max_ms": round(1000 * max(r["gc_max_s"] for r in runs + half_runs), 1),
     })
     lat = sorted(x for r in runs for x in r["latencies"])
     pulled = sorted(x for r in runs for x in r["pulls"])

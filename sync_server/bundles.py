@@ -7,7 +7,9 @@
 - ``write_for_tablet``: the device's return bundle: what its pull would get after that position (its number
   blocks, a new one first when half of its newest is used, as at a push; resolutions, corrections, other
   devices' work) and which of its batches the camp holds, sealed for that device
-  (``schema.sync.return_bundle``).
+  (``schema.sync.return_bundle``). Beside it, ``<bundle>.thumbs.zip`` carries thumbnails only (never the photo
+  files) of the photos whose records it brings and which that tablet did not take, as the device may see them
+  (``photos.withheld_photo``); the tablet keeps them for its photo lists.
 """
 
 from __future__ import annotations
@@ -30,7 +32,8 @@ from .store import ServerStore
 from .sync import MAX_PAGE, _top_up, apply_push, pull_page
 from .tables import push_batch
 
-__all__ = ["device_cursor", "import_bundle", "write_for_tablet"]
+__all__ = ["RETURN_THUMB_PIXELS", "device_cursor", "import_bundle", "thumbnail_pack_path", "write_for_tablet",
+           "write_thumbnail_pack"]
 
 
 def _cursor_key(device_id: uuid.UUID) -> str:
@@ -43,7 +46,7 @@ def device_cursor(store: ServerStore, device_id: uuid.UUID) -> int:
         return int(state_get(conn, _cursor_key(device_id), "0") or 0)
 
 
-def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
+def import_bundle(store: ServerStore, path: Path, *, photos_dir: Path | None = None) -> dict[str, Any]:
     """Apply every batch of the bundle once (batches already applied by a push are answered from their ack).
 
     ``refused`` lists the versions of newly applied batches the server would not take from this device (set-up
@@ -66,7 +69,7 @@ def import_bundle(store: ServerStore, path: Path) -> dict[str, Any]:
     fresh = [a for a in acks if not a["replayed"]]
     from .photos import import_photo_pack, vault_for  # the photo pack beside it, after the records that name them
 
-    photos = import_photo_pack(store, vault_for(store), Path(path))
+    photos = import_photo_pack(store, vault_for(store, photos_dir), Path(path))
     return {"device": device.label, "batches": len(acks), "applied": sum(a["applied"] for a in fresh),
             "replayed": len(acks) - len(fresh), "refused": [r for a in fresh for r in a["refused"]], "acks": acks,
             "cursor": cursor, "photos": photos}
@@ -99,15 +102,16 @@ def _device(store: ServerStore, label: str) -> Device:
     return device
 
 
-def write_for_tablet(store: ServerStore, *, label: str, out: Path,
-                     now: dt.datetime | None = None) -> dict[str, Any]:
+def write_for_tablet(store: ServerStore, *, label: str, out: Path, now: dt.datetime | None = None,
+                     photos_dir: Path | None = None) -> dict[str, Any]:
     """Write the return bundle of the device ``label`` to ``out`` (a folder gets ``<label>-from-camp-<time>``).
 
     First, as at a push, a recorder that has used half of its newest number block is issued a new one. Then the
     change log after the position the device last reported is written page by page, as ``pull_page`` serves it
     to that device, with the number of its batches held here (the tablet stops carrying them). Returns the
     manifest with ``path``, ``issued`` (blocks issued now), ``blocks`` (all of the device's blocks) and
-    ``from_camp`` (versions the camp server made: resolutions, corrections, blocks)."""
+    ``from_camp`` (versions the camp server made: resolutions, corrections, blocks) and ``thumbnails`` (in the
+    thumbnail pack beside it)."""
     device = _device(store, label)
     out = Path(out)
     path = out / return_bundle_name(device.label, now or dt.datetime.now(dt.timezone.utc)) if out.is_dir() else out
@@ -121,6 +125,7 @@ def write_for_tablet(store: ServerStore, *, label: str, out: Path,
         acked = _acked(conn, device.id)
         camp = load_identity(conn).device
     counts = {"from_camp": 0}
+    photo_ids: set[uuid.UUID] = set()
 
     def pages() -> Iterator[tuple[int, int, list[Version]]]:
         cursor = after
@@ -128,6 +133,7 @@ def write_for_tablet(store: ServerStore, *, label: str, out: Path,
             page = pull_page(store, after=cursor, limit=MAX_PAGE, device=device)
             if page["versions"] or page["next"] > cursor:
                 counts["from_camp"] += sum(v.device == camp for v in page["versions"])
+                photo_ids.update(v.record_id for v in page["versions"] if v.record == "photo")
                 yield cursor, page["next"], page["versions"]
             cursor = page["next"]
             if not page["more"]:
@@ -135,7 +141,63 @@ def write_for_tablet(store: ServerStore, *, label: str, out: Path,
 
     manifest = write_return_bundle(path, device=device.id, label=device.label, token_hash=str(device.token_hash),
                                    after=after, pages=pages(), acked=acked)
+    from .photos import vault_for
+
+    counts["thumbnails"] = write_thumbnail_pack(store, vault_for(store, photos_dir), device, path, photo_ids)
     return {**manifest, "path": str(path), "issued": [(b.first, b.last) for b in issued],
             "blocks": [(b.first, b.last) for b in store.blocks_for(device.id)],
             "versions": sum(p["versions"] for p in manifest["pages"]), **counts}
 
+
+
+RETURN_THUMB_PIXELS = 256
+"""The thumbnails' longest side in a return bundle's pack (the tablet's own thumbnails are this size too)."""
+
+
+def thumbnail_pack_path(bundle: Path) -> Path:
+    """The thumbnail pack that travels beside a return bundle: ``<bundle>.thumbs.zip``."""
+    return bundle.with_name(bundle.name + ".thumbs.zip")
+
+
+def write_thumbnail_pack(store: ServerStore, vault: Any, device: Device, bundle: Path,
+                         photo_ids: set[uuid.UUID]) -> int:
+    """Write ``<bundle>.thumbs.zip``: a PNG thumbnail (``<hash>.png``) of each photo among ``photo_ids`` that the
+    device did not take, that the camp holds and that the device may see; written to a temporary name, flushed
+    and renamed. An old pack of that name is removed first; none is written when there is nothing to carry.
+    Returns the number of thumbnails. A photo that cannot be decoded is left out (its record still travels)."""
+    import os
+    import zipfile
+
+    from schema.errors import PhotoError
+    from schema.tables import metadata
+
+    from .photos import withheld_photo
+
+    out = thumbnail_pack_path(bundle)
+    out.unlink(missing_ok=True)
+    photo = metadata.tables["photo"]
+    with store.read() as conn:
+        rows = conn.execute(sa.select(photo.c.sha256).where(
+            photo.c.id.in_(sorted(photo_ids)), photo.c.device_id != device.id, photo.c.voided.is_(False))).scalars()
+        shas = sorted({sha for sha in rows if not withheld_photo(conn, sha, device.role)})
+    thumbs = []
+    for sha in shas:
+        if vault.has(sha):
+            try:
+                thumbs.append((sha, vault.thumbnail(sha, size=RETURN_THUMB_PIXELS)))
+            except PhotoError:
+                continue
+    if not thumbs:
+        return 0
+    tmp = out.with_name(out.name + ".part")
+    try:
+        with zipfile.ZipFile(tmp, "w", compression=zipfile.ZIP_STORED) as z:  # PNG is compressed already
+            for sha, thumb in thumbs:
+                z.write(thumb, arcname=f"{sha}.png")
+        with open(tmp, "rb") as fh:
+            os.fsync(fh.fileno())
+        tmp.replace(out)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return len(thumbs)

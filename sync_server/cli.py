@@ -26,6 +26,10 @@ __all__ = ["cli", "main"]
 # the server database every store command takes (the settings' default when not given)
 _db_option = click.option("--db", "database_url", default=None,
                           help="Server database URL [default: the server's SQLite file].")
+_photos_dir_option = click.option(  # the camp's photo folder (sync_server.photos.photo_dir decides the default)
+    "--photos-dir", type=click.Path(file_okay=False, path_type=Path), default=None,
+    help="Folder of the camp's photo files [default: the setting BAULK_SERVER_PHOTOS_DIR, else <database>-photos "
+         "beside a SQLite file, else photos/ in the user data folder].")
 
 
 class _BaulkGroup(click.Group):
@@ -100,18 +104,20 @@ def tablet(store_path: Path | None, simulate: bool, instrument: str | None, rece
 @click.option("--forwarded-allow-ips", default=None, metavar="IPS",
               help="Behind a reverse proxy: its address(es), comma-separated, whose X-Forwarded-For is believed "
                    "[default: none; every client is the address it connects from].")
+@_photos_dir_option
 def serve(host: str | None, port: int | None, database_url: str | None, tls_cert: Path | None, tls_key: Path | None,
-          forwarded_allow_ips: str | None) -> None:
+          forwarded_allow_ips: str | None, photos_dir: Path | None = None) -> None:
     """Start the camp server (HTTP, or HTTPS with --tls-cert and --tls-key)."""
     import uvicorn
     from pydantic import ValidationError
 
     from .access_log import log_config
-    from .app import create_app
+    from .app import KEEP_ALIVE_S, create_app
     from .settings import ServerSettings
 
     given = {k: v for k, v in dict(host=host, port=port, database_url=database_url, tls_cert=tls_cert,
-                                   tls_key=tls_key, forwarded_allow_ips=forwarded_allow_ips).items() if v is not None}
+                                   tls_key=tls_key, forwarded_allow_ips=forwarded_allow_ips,
+                                   photos_dir=photos_dir).items() if v is not None}
     try:
         settings = ServerSettings(**given)
     except ValidationError as exc:
@@ -119,6 +125,9 @@ def serve(host: str | None, port: int | None, database_url: str | None, tls_cert
     scheme = "https" if settings.tls_cert else "http"
     click.echo(f"Baulk camp server {__version__} listening on {scheme}://{settings.host}:{settings.port}/v1/")
     click.echo(f"database: {_redact(settings.database_url)}")
+    from .photos import photo_dir
+
+    click.echo(f"photos: {photo_dir(settings.database_url, settings.photos_dir)}")
     click.echo("Tablets on the camp Wi-Fi reach it at this machine's address; stop it with Ctrl+C.")
     click.echo("Enrol a tablet: baulk device add --role recorder --label TAB-1 (prints a one-time code and a QR code)")
     proxies = (settings.forwarded_allow_ips or "").strip()
@@ -130,6 +139,7 @@ def serve(host: str | None, port: int | None, database_url: str | None, tls_cert
         ssl_keyfile=str(settings.tls_key) if settings.tls_key else None,
         log_config=log_config(),  # the access log's query strings without tokens
         proxy_headers=bool(proxies), forwarded_allow_ips=proxies or None,  # trust no proxy unless named
+        timeout_keep_alive=KEEP_ALIVE_S,  # longer than a tablet reuses an idle connection (app.KEEP_ALIVE_S)
     )
 
 
@@ -275,13 +285,15 @@ def safety_cmd(trench: str | None, kind: str | None, days: int | None, csv_path:
 @click.option("--seasons", "seasons", multiple=True, help="Season label to include (repeatable) [default: all].")
 @click.option("--strict", is_flag=True, help="Leave out every find an error-severity check names (listed in excluded.csv).")
 @_db_option
-def export(out: Path, seasons: tuple[str, ...], strict: bool, database_url: str | None) -> None:
+@_photos_dir_option
+def export(out: Path, seasons: tuple[str, ...], strict: bool, database_url: str | None,
+           photos_dir: Path | None = None) -> None:
     """Write the analyst's files: counts and densities per horizon and unit, finds, excluded finds, volumes,
     Darwin Core occurrences, a GeoPackage, a Frictionless data package and a manifest."""
     from .exports import run_export
 
     with _server_store(database_url) as store:
-        m = run_export(store, out, seasons=list(seasons) or None, strict=strict,
+        m = run_export(store, out, seasons=list(seasons) or None, strict=strict, photos_dir=photos_dir,
                        progress=lambda msg: click.echo(f"[export] {msg}", err=True))
     c = m["counts"]
     click.echo(f"wrote {out}: {c['finds_included']} finds counted, {c['finds_excluded']} left out (excluded.csv), "

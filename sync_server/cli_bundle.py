@@ -15,6 +15,10 @@ __all__ = ["bundle"]
 
 _db_option = click.option("--db", "database_url", default=None,
                           help="Server database URL [default: the server's SQLite file].")
+_photos_dir_option = click.option(
+    "--photos-dir", type=click.Path(file_okay=False, path_type=Path), default=None,
+    help="Folder of the camp's photo files [default: as baulk serve: BAULK_SERVER_PHOTOS_DIR, else beside the "
+         "database].")
 
 
 @click.group()
@@ -45,14 +49,15 @@ def bundle_export(store_path: Path, out: Path) -> None:
 @bundle.command("import")
 @click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
 @_db_option
-def bundle_import(file: Path, database_url: str | None) -> None:
+@_photos_dir_option
+def bundle_import(file: Path, database_url: str | None, photos_dir: Path | None = None) -> None:
     """Check a bundle whole, then apply it exactly like a push (a bad bundle changes nothing)."""
     from .bundles import import_bundle
     from .cli import _server_store
     from .validation import validate_after_merge
 
     with _server_store(database_url) as store:
-        r = import_bundle(store, file)
+        r = import_bundle(store, file, photos_dir=photos_dir)
         if r["applied"]:
             validate_after_merge(store)  # the checks follow the new finds (a running server shows them at once)
     click.echo(f"imported {file.name} from {r['device']}: {r['batches']} batches, {r['applied']} new versions"
@@ -78,7 +83,8 @@ def _spans(blocks: list[tuple[int, int]]) -> str:
               help="Return bundle file to write, or a folder (the stick) to write "
                    "<LABEL>-from-camp-<time>.baulkreturn into.")
 @_db_option
-def bundle_for_tablet(label: str, out: Path, database_url: str | None) -> None:
+@_photos_dir_option
+def bundle_for_tablet(label: str, out: Path, database_url: str | None, photos_dir: Path | None = None) -> None:
     """Write what the tablet LABEL would pull into one file sealed for it: the changes after the position its last
     bundle reported (everything, if it never sent one), its number blocks (a new one first when half of its newest
     is used) and the camp's resolutions and corrections. The tablet reads it on its Camp screen (Read bundle)."""
@@ -86,11 +92,13 @@ def bundle_for_tablet(label: str, out: Path, database_url: str | None) -> None:
     from .cli import _server_store
 
     with _server_store(database_url) as store:
-        r = write_for_tablet(store, label=label, out=out)
+        r = write_for_tablet(store, label=label, out=out, photos_dir=photos_dir)
     click.echo(f"wrote {r['path']} for {r['device_label']}: {r['versions']} changes after camp change {r['after']} "
                f"(up to {r['next']}), {r['from_camp']} of them made at camp")
     click.echo(f"number blocks: {_spans(r['blocks'])}"
                + (f" ({_spans(r['issued'])} issued now)" if r["issued"] else ""))
+    if r["thumbnails"]:
+        click.echo(f"and {r['path']}.thumbs.zip: {r['thumbnails']} photo thumbnails (keep it beside the bundle)")
 
 
 @bundle.command("read")

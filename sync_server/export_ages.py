@@ -30,6 +30,7 @@ from schema.records import Find, Horizon, Site
 from schema.strata import agemodel
 from schema.strata.agemodel import AgeModel, AgeSummary, HorizonAge, SeriesSummary, UnitAge
 from schema.strata.data import SiteData
+from schema.strata.dating import date_words
 from schema.strata.matrix import Matrix
 from schema.strata.ranges import Range, stratigraphic_ranges
 
@@ -80,7 +81,8 @@ AGE_RESOURCES: dict[str, tuple[str, list[Field], list[str], list[dict[str, Any]]
         *_interval("unit's middle"),
         ("top_median_ka", "number", "median age of its top surface (ka)", {}),
         ("bottom_median_ka", "number", "median age of its bottom surface (ka)", {}),
-        ("dates", "string", "its own laboratory dates used (lab codes)", {}),
+        ("dates", "string", "its own laboratory dates used (lab codes; a date without one by its method and age), "
+                  "separated by ' | '", {}),
         ("dates_left_out", "string", "its own laboratory dates left out, each with the reason", {}),
         ("rests_on", "string", "the dated units (and their dates) its ages are computed from", {}),
         _DRAWS, ("note", "string", "why it has no age, or a warning about its age", {}),
@@ -230,7 +232,7 @@ def _unit_rows(model: AgeModel, ages: list[UnitAge], data: SiteData,
             "horizon": code.get(u.horizon_id) if u.horizon_id else None,
             "age_from": a.how, "top_z": _r(a.top_z), "bottom_z": _r(a.bottom_z), **_ages(a.age),
             "top_median_ka": _r(a.top_median_ka), "bottom_median_ka": _r(a.bottom_median_ka),
-            "dates": " ".join(d.lab_code or f"date {str(d.id)[:8]}" for d in mine if d.id not in left),
+            "dates": " | ".join(date_words(d) for d in mine if d.id not in left),
             "dates_left_out": " | ".join(f"{left[d.id].lab_code}: {left[d.id].reason}" for d in mine if d.id in left),
             "rests_on": a.rests_on, "draws": model.draws if a.age else 0, "note": a.note,
         })

@@ -15,7 +15,7 @@ from typing import Any
 
 from schema.records import Find, Photo, Trench, Unit
 
-from .photos import PhotoVault, default_photo_dir
+from .photos import PhotoVault, photo_dir
 
 __all__ = ["PHOTO_RESOURCES", "find_media", "write_photo_files"]
 
@@ -56,7 +56,7 @@ def _extension(path: Path) -> str:
 def write_photo_files(store: Any, tmp: Path, *, finds: list[Find], all_finds: list[Find], units: list[Unit],
                       trenches: list[Trench], photos_dir: Path | None = None) -> list[dict[str, Any]]:
     """Copy the photo files into ``tmp/photos/`` and give the register rows (written by the caller)."""
-    vault = PhotoVault(photos_dir or default_photo_dir(store.url))
+    vault = PhotoVault(photo_dir(store.url, photos_dir))
     included = {f.id: f for f in finds}
     every = {f.id: f for f in all_finds}
     unit_code = {u.id: u.code for u in units}

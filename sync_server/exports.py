@@ -203,7 +203,7 @@ def _sha256(path: Path) -> str:
 
 
 def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = None, strict: bool = False,
-               progress: Progress | None = None) -> dict[str, Any]:
+               progress: Progress | None = None, photos_dir: Path | None = None) -> dict[str, Any]:
     """Write every export file into ``out`` (created; files of an earlier export there are replaced). The files
     are made in ``out.part`` first, so an output folder that cannot be written is refused before any work, and a
     failed export leaves nothing behind."""
@@ -212,13 +212,14 @@ def run_export(store: ServerStore, out: Path, *, seasons: list[str] | None = Non
     shutil.rmtree(tmp, ignore_errors=True)
     tmp.mkdir(parents=True)
     try:
-        return _export_into(store, out, tmp, seasons=seasons, strict=strict, progress=progress)
+        return _export_into(store, out, tmp, seasons=seasons, strict=strict, progress=progress,
+                            photos_dir=photos_dir)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)  # renamed to ``out`` when the export is whole
 
 
 def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str] | None, strict: bool,
-                 progress: Progress | None) -> dict[str, Any]:
+                 progress: Progress | None, photos_dir: Path | None = None) -> dict[str, Any]:
     say = progress or (lambda _msg: None)
     say("reading the site and running every check")
     data = store.site_data()
@@ -265,7 +266,7 @@ def _export_into(store: ServerStore, out: Path, tmp: Path, *, seasons: list[str]
     recorders = {f.recorder for f in finds} | {u.recorder for u in units}
     record_rows["codebook"] = codebook_rows(RESOURCES, recorders, MATERIALS)
     record_rows["photo_register"] = write_photo_files(store, tmp, finds=sel.included, all_finds=finds, units=units,
-                                                      trenches=data.trenches)  # copies photos/ too
+                                                      trenches=data.trenches, photos_dir=photos_dir)  # photos/ too
     for name, table in record_rows.items():
         rows[name] = _write_csv(tmp / f"{name}.csv", name, table)
     grid = site.grid  # site grid -> CRS; without it the GeoPackage stays in grid metres, with no CRS
@@ -443,12 +444,13 @@ def _fixed_dates_held(matplotlib: Any) -> Any:
                 os.environ[k] = v
 
 
-def export_zip(store: ServerStore, work: Path, *, seasons: list[str] | None = None, strict: bool = False) -> Path:
+def export_zip(store: ServerStore, work: Path, *, seasons: list[str] | None = None, strict: bool = False,
+               photos_dir: Path | None = None) -> Path:
     """Run an export into ``work`` and pack it as ``work/baulk-export.zip`` (for the API and the camp pages)."""
     import zipfile
 
     out = work / "export"
-    run_export(store, out, seasons=seasons, strict=strict)
+    run_export(store, out, seasons=seasons, strict=strict, photos_dir=photos_dir)
     archive = work / "baulk-export.zip"
     with zipfile.ZipFile(archive, "w", compression=zipfile.ZIP_DEFLATED) as z:
         for p in sorted(q for q in out.rglob("*") if q.is_file()):  # a fixed entry time: the same export, the same zip

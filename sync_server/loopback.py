@@ -25,8 +25,11 @@ def serve_in_thread(app: Any, *, port: int | None = None, timeout_s: float = 20.
     import uvicorn
 
     port = port or free_port()
+    from .app import KEEP_ALIVE_S
+
     server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning", lifespan="on",
-                                           ssl_certfile=tls[0] if tls else None, ssl_keyfile=tls[1] if tls else None))
+                                           ssl_certfile=tls[0] if tls else None, ssl_keyfile=tls[1] if tls else None,
+                                           timeout_keep_alive=KEEP_ALIVE_S))
     thread = threading.Thread(target=server.run, name="baulk-loopback", daemon=True)
     thread.start()
     deadline = time.monotonic() + timeout_s

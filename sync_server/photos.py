@@ -1,19 +1,26 @@
 """Photo files at camp: kept by SHA-256 in a folder beside the store, received in resumable chunks.
 
 The register (the ``photo`` records) is in the database like every record; the bytes are files in the photo
-folder: ``<folder>/<first two hex digits>/<hash>``, a PNG thumbnail made once under ``<folder>/thumbs/``, and
-unfinished uploads under ``<folder>/partial/<hash>.<declared length>``. An upload follows the tus resumable-upload
-protocol, version 1.0.0 (tus.io/protocols/resumable-upload, "Core Protocol" and the "Creation" extension): its
-offset is the partial file's size (flushed after each chunk, so a restart resumes from what reached the disk), a
-chunk must start at that offset or is refused without touching the file (409), and when the last byte arrives
-the whole file is hashed and decoded by Pillow before it is renamed into place: a file whose hash is not its name
-is deleted and the upload starts again from 0 (``UploadMismatch``); nothing half-received is ever served.
+folder: ``<folder>/<first two hex digits>/<hash>``, a PNG thumbnail made once, when first asked for, under
+``<folder>/thumbs/``, and unfinished uploads under ``<folder>/partial/<hash>.<declared length>``. An upload follows
+the tus resumable-upload protocol, version 1.0.0 (tus.io/protocols/resumable-upload, "Core Protocol" and the
+"Creation" extension): its offset is the partial file's size (flushed after each chunk, so a restart resumes from
+what reached the disk), a chunk must start at that offset or is refused without touching the file (409), and when
+the last byte arrives the file is checked before it is renamed into place: a file whose hash is not its name is
+deleted and the upload starts again from 0 (``UploadMismatch``); a file that is not an image, is cut short or has
+too many pixels is deleted (``NotAnImage``, ``ImageTooLarge``); nothing half-received is ever served.
 
-A chunk is written as it arrives (``append`` takes an iterator of pieces): the server never holds a whole photo.
+The checks are cheap so that an upload costs about what a plain one does: the hash is taken while the bytes
+stream in (in 1 MiB blocks, on one hashing thread beside the event loop; kept per upload with the offset it covers; the partial file is hashed again only when the server lost
+it, e.g. after a restart), and the image is judged by its header (Pillow opens it without decoding the pixels:
+format and pixel size) and its structure (a JPEG must end its scan with the EOI marker, a PNG with its IEND chunk;
+other formats are decoded whole). A chunk is written as it arrives (``append`` takes an iterator of pieces): the
+server never holds a whole photo.
 """
 
 from __future__ import annotations
 
+import concurrent.futures
 import contextlib
 import hashlib
 import os
@@ -30,7 +37,7 @@ from schema.errors import ImageTooLarge, NotAnImage, PhotoError, RecordNotFound,
 from schema.records.photo import MAX_PHOTO_BYTES, MAX_PHOTO_PIXELS
 from schema.tables import metadata
 
-__all__ = ["OffsetMismatch", "PhotoVault", "UploadState", "default_photo_dir", "register_rows", "withheld_photo", "import_photo_pack", "vault_for"]
+__all__ = ["OffsetMismatch", "PhotoVault", "UploadState", "default_photo_dir", "photo_dir", "register_rows", "withheld_photo", "import_photo_pack", "vault_for"]
 
 
 class OffsetMismatch(PhotoError):
@@ -65,6 +72,7 @@ class PhotoVault:
         self.root = Path(root)
         self._locks: dict[str, threading.Lock] = {}
         self._guard = threading.Lock()
+        self._digests: dict[str, tuple[int, Any]] = {}  # sha -> (bytes covered, running SHA-256 of them)
 
     # -- where things are ------------------------------------------------------------------------------------
     def path(self, sha: str) -> Path:
@@ -75,6 +83,14 @@ class PhotoVault:
 
     def missing(self, hashes: Iterable[str]) -> list[str]:
         return sorted({h for h in hashes if not self.has(h)})
+
+    def begun(self, hashes: Iterable[str]) -> dict[str, int]:
+        """Of these hashes, the uploads begun and not finished: hash -> bytes held."""
+        wanted = set(hashes)
+        folder = self.root / "partial"
+        names = sorted(os.listdir(folder)) if folder.is_dir() else []
+        return {name.partition(".")[0]: (folder / name).stat().st_size for name in names
+                if name.partition(".")[0] in wanted}
 
     def _partial(self, sha: str) -> Path | None:
         found = sorted((self.root / "partial").glob(f"{sha}.*"))
@@ -106,6 +122,7 @@ class PhotoVault:
             part = self._partial(sha)
             if part is not None and int(part.suffix.lstrip(".")) != length:
                 part.unlink()  # a different length for the same hash: one of them is wrong; start again
+                self._digests.pop(sha, None)
                 part = None
             if part is None:
                 part = self.root / "partial" / f"{sha}.{length}"
@@ -139,15 +156,30 @@ class PhotoVault:
                                      "ask with HEAD and send from there")
             part = self._partial(sha)
             assert part is not None
+            digest = self._digest(sha, part, state.offset)
             with open(part, "ab") as out:
-                chunk = Chunk(out, state)
+                chunk = Chunk(out, state, digest)
                 try:
                     yield chunk
                 finally:
+                    chunk.drain()
                     out.flush()
                     os.fsync(out.fileno())
+                    self._digests[sha] = (chunk.state().offset, digest)
         finally:
             lock.release()
+
+    def _digest(self, sha: str, part: Path, offset: int) -> Any:
+        """The running SHA-256 of the first ``offset`` bytes: the one kept from the last chunk, or (after a
+        restart, or a chunk whose end did not reach the disk) the partial file hashed again."""
+        kept = self._digests.pop(sha, None)
+        if kept is not None and kept[0] == offset:
+            return kept[1]
+        digest = hashlib.sha256()
+        with open(part, "rb") as f:
+            for block in iter(lambda: f.read(1 << 20), b""):
+                digest.update(block)
+        return digest
 
     def finish(self, sha: str, state: UploadState) -> UploadState:
         """Keep the photo once every byte is in (hash and image checked); otherwise where the upload stands."""
@@ -160,23 +192,23 @@ class PhotoVault:
             return self._finish(sha, part)
 
     def _finish(self, sha: str, part: Path) -> UploadState:
-        digest = hashlib.sha256()
-        with open(part, "rb") as f:
-            for block in iter(lambda: f.read(1 << 20), b""):
-                digest.update(block)
-        if digest.hexdigest() != sha:
+        size = part.stat().st_size
+        digest = self._digest(sha, part, size).hexdigest()
+        if digest != sha:
             part.unlink()
-            raise UploadMismatch(f"the bytes received hash to {digest.hexdigest()}, not to photo {sha}; the upload "
+            raise UploadMismatch(f"the bytes received hash to {digest}, not to photo {sha}; the upload "
                                  "was discarded: send the photo again from byte 0")
         try:
-            check_image(part, name=f"photo {sha}", thumb=self._thumb(sha))
+            check_image(part, name=f"photo {sha}")
         except PhotoError:
             part.unlink()
             raise
         final = self.path(sha)
         final.parent.mkdir(parents=True, exist_ok=True)
+        # The bytes were flushed with the chunk; the folder is not flushed after the rename: a power cut that loses
+        # the rename leaves the whole partial file, which /missing lists as begun at its full length, and the
+        # tablet's next creation request for it finishes it (nothing sent twice, nothing half-kept shown).
         os.replace(part, final)
-        _fsync_dir(final.parent)
         size = final.stat().st_size
         return UploadState(size, size)
 
@@ -185,10 +217,11 @@ class PhotoVault:
         return self.root / "thumbs" / f"{sha}-{size}.png"
 
     def thumbnail(self, sha: str, *, size: int = 320) -> Path:
-        """A PNG thumbnail, EXIF orientation applied (Pillow); made when the photo is kept, or again here."""
+        """A PNG thumbnail, EXIF orientation applied (Pillow decodes the whole photo); made the first time it is
+        asked for (a page, a return bundle), then kept. NotAnImage when the photo cannot be decoded after all."""
         out = self._thumb(sha, size)
         if not out.exists():
-            check_image(self.path(sha), name=f"photo {sha}", thumb=out, size=size)
+            make_thumbnail(self.path(sha), out, name=f"photo {sha}", size=size)
         return out
 
 
@@ -201,30 +234,70 @@ def _save_thumb(img: Any, out: Path, size: int) -> None:
     os.replace(tmp, out)
 
 
-class Chunk:
-    """The chunk being received: ``write`` refuses bytes past the declared length."""
+_HASHERS: dict[int, concurrent.futures.ThreadPoolExecutor] = {}
 
-    def __init__(self, out: Any, start: UploadState):
-        self._out, self._start, self.written = out, start, 0
+
+def _hasher() -> concurrent.futures.ThreadPoolExecutor:
+    """One thread per process hashes the blocks of every upload in the order they were written (a running SHA-256
+    must be fed in order), beside the event loop that receives the next block. Made afresh in a forked child,
+    whose copy of the parent's executor has no thread."""
+    pid = os.getpid()
+    if pid not in _HASHERS:
+        _HASHERS.clear()
+        _HASHERS[pid] = concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="baulk-photo-hash")
+    return _HASHERS[pid]
+
+
+class Chunk:
+    """The chunk being received: ``write`` refuses bytes past the declared length. Pieces are gathered up to
+    ``BLOCK`` bytes and each block is written and hashed at once (a request body comes in pieces of some 64 KiB;
+    fewer, larger writes and hash updates cost less); ``drain`` writes what is left, and the upload's
+    ``receiving`` calls it before it flushes the file, also when the connection was cut."""
+
+    BLOCK = 1 << 20
+
+    def __init__(self, out: Any, start: UploadState, digest: Any = None):
+        self._out, self._start, self._digest, self.written = out, start, digest, 0
+        self._pending = bytearray()
+        self._hashing: Any = None  # the block being hashed (a Future of _HASHER)
 
     def write(self, piece: bytes) -> None:
         if self._out is None:
             return
-        if self._start.offset + self.written + len(piece) > self._start.length:
+        if self._start.offset + self.written + len(self._pending) + len(piece) > self._start.length:
             raise OffsetMismatch(f"the chunk runs past the declared length ({self._start.length} bytes); send only "
                                  "the bytes of the photo")
-        self._out.write(piece)
-        self.written += len(piece)
+        self._pending += piece
+        if len(self._pending) >= self.BLOCK:
+            self.drain(last=False)
+
+    def drain(self, *, last: bool = True) -> None:
+        """Write the gathered bytes and hand them to the hashing thread (``written`` counts only bytes handed to
+        the file); with ``last``, wait until every block is hashed. At most one block is being hashed while the
+        next is gathered, so an upload holds two blocks at most."""
+        if self._out is None:
+            return
+        if self._pending:
+            block = bytes(self._pending)
+            self._pending.clear()
+            self._out.write(block)
+            self.written += len(block)
+            if self._hashing is not None:
+                self._hashing.result()
+            self._hashing = _hasher().submit(self._digest.update, block)  # hashlib lets go of the GIL meanwhile
+        if last and self._hashing is not None:
+            self._hashing.result()
+            self._hashing = None
 
     def state(self) -> UploadState:
         return UploadState(self._start.offset + self.written, self._start.length)
 
 
-def check_image(path: Path, *, name: str, thumb: Path | None = None, size: int = 320) -> tuple[int, int, str]:
-    """Decode an image file with Pillow to its last byte (a truncated JPEG fails); its width, height and format.
-    A JPEG is decoded scaled down to no less than ``size`` (libjpeg's DCT scaling still reads every coded byte);
-    with ``thumb``, that small image becomes the PNG thumbnail (EXIF orientation applied)."""
-    from PIL import Image, ImageOps, UnidentifiedImageError
+def check_image(path: Path, *, name: str) -> tuple[int, int, str]:
+    """Whether a complete file is a whole image within the bounds, without decoding its pixels: Pillow reads the
+    header (format, width, height: more than ``MAX_PHOTO_PIXELS`` is refused), then the file must end as its
+    format says an image ends (``_whole``); a format we cannot judge so is decoded whole. Width, height, format."""
+    from PIL import Image, UnidentifiedImageError
 
     try:
         with Image.open(path) as img:
@@ -232,10 +305,12 @@ def check_image(path: Path, *, name: str, thumb: Path | None = None, size: int =
             if width * height > MAX_PHOTO_PIXELS:
                 raise ImageTooLarge(f"{name} is {width} x {height} pixels, more than "
                                     f"{MAX_PHOTO_PIXELS // 1_000_000} megapixels; it was not kept")
-            img.draft("RGB", (size, size))  # JPEG: scaled while decoded, no smaller than the thumbnail
-            img.load()
-            if thumb is not None:
-                _save_thumb(ImageOps.exif_transpose(img), thumb, size)
+            whole = _whole(img.fp, fmt)
+            if whole is None:
+                img.draft("RGB", (320, 320))
+                img.load()  # raises OSError when cut short
+            elif not whole:
+                raise OSError(f"the {fmt} data stops before the image's end marker")
             return width, height, fmt
     except Image.DecompressionBombError as exc:
         raise ImageTooLarge(f"{name} has more than {MAX_PHOTO_PIXELS // 1_000_000} megapixels ({exc}); it was not kept") from None
@@ -245,19 +320,97 @@ def check_image(path: Path, *, name: str, thumb: Path | None = None, size: int =
         raise NotAnImage(f"{name} is not a whole image ({exc}); it was not kept: send it again") from None
 
 
-def _fsync_dir(path: Path) -> None:
-    fd = os.open(path, os.O_RDONLY)
+_PNG_END = b"\x00\x00\x00\x00IEND\xaeB`\x82"  # an empty IEND chunk and its CRC (PNG specification, 5.6 and 11.2.5)
+
+
+def _whole(f: Any, fmt: str) -> bool | None:
+    """Whether the image file ``f`` runs to its format's end marker (None: a format not judged here).
+
+    JPEG (ITU-T T.81, annex B): after the SOI marker, segments with a two-byte length lead to the first SOS; in
+    the entropy-coded data after it an 0xFF byte is always followed by 0x00 or a restart marker, so an EOI
+    (0xFF 0xD9) after the first SOS can only be the image's end: a file cut before it has none. Data after the EOI
+    (a camera's trailer) is allowed. PNG: the file ends with the IEND chunk."""
+    if fmt == "PNG":
+        f.seek(0, os.SEEK_END)
+        if f.tell() < len(_PNG_END):
+            return False
+        f.seek(-len(_PNG_END), os.SEEK_END)
+        return bool(f.read(len(_PNG_END)) == _PNG_END)
+    if fmt != "JPEG":
+        return None
+    scan = _jpeg_scan_start(f)
+    if scan is None:
+        return False
+    end = f.seek(0, os.SEEK_END)
+    tail = max(scan, end - (1 << 16))  # the EOI is nearly always in the last bytes: look there first
+    f.seek(tail)
+    if b"\xff\xd9" in f.read():
+        return True
+    f.seek(scan)
+    carry = b""
+    for block in iter(lambda: f.read(1 << 20), b""):
+        if b"\xff\xd9" in carry + block:
+            return True
+        carry = block[-1:]
+    return False
+
+
+def _jpeg_scan_start(f: Any) -> int | None:
+    """The offset where the first scan's entropy-coded data begins (after the SOS header); None when the marker
+    segments before it are broken or cut short."""
+    f.seek(0)
+    if f.read(2) != b"\xff\xd8":
+        return None
+    while True:
+        head = f.read(2)
+        if len(head) < 2 or head[0] != 0xFF:
+            return None
+        marker = head[1]
+        while marker == 0xFF:  # fill bytes before a marker
+            more = f.read(1)
+            if not more:
+                return None
+            marker = more[0]
+        if marker == 0x01 or 0xD0 <= marker <= 0xD7:  # TEM and RSTn stand alone
+            continue
+        if marker == 0xD9:
+            return None  # an EOI before any scan
+        size = f.read(2)
+        if len(size) < 2 or int.from_bytes(size, "big") < 2:
+            return None
+        length = int.from_bytes(size, "big")
+        if marker == 0xDA:
+            return int(f.tell()) + length - 2
+        f.seek(length - 2, os.SEEK_CUR)
+
+
+def make_thumbnail(path: Path, out: Path, *, name: str, size: int = 320) -> None:
+    """Decode the photo with Pillow (a JPEG scaled while decoded, libjpeg's DCT scaling, no smaller than ``size``)
+    and keep a PNG of at most ``size`` pixels a side, EXIF orientation applied (temporary name, then renamed)."""
+    from PIL import Image, ImageOps, UnidentifiedImageError
+
     try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
+        with Image.open(path) as img:
+            img.draft("RGB", (size, size))
+            img.load()
+            _save_thumb(ImageOps.exif_transpose(img), out, size)
+    except (UnidentifiedImageError, OSError) as exc:
+        raise NotAnImage(f"{name} cannot be decoded for its thumbnail ({exc})") from None
 
 
-def vault_for(store: Any) -> PhotoVault:
-    """The photo folder of a store opened by a command (``BAULK_SERVER_PHOTOS_DIR``, else beside the store)."""
+def photo_dir(database_url: str, given: Path | None = None) -> Path:
+    """The camp's photo folder, the one place it is decided: ``given`` (a command's ``--photos-dir``), else the
+    server setting ``photos_dir`` (``BAULK_SERVER_PHOTOS_DIR``), else beside the store (``default_photo_dir``)."""
+    if given is not None:
+        return Path(given)
     from .settings import ServerSettings
 
-    return PhotoVault(ServerSettings().photos_dir or default_photo_dir(store.url))
+    return ServerSettings().photos_dir or default_photo_dir(database_url)
+
+
+def vault_for(store: Any, given: Path | None = None) -> PhotoVault:
+    """The photo folder of a store opened by a command (``photo_dir``)."""
+    return PhotoVault(photo_dir(store.url, given))
 
 
 def import_photo_pack(store: Any, vault: PhotoVault, bundle: Path) -> dict[str, Any]:

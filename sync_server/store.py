@@ -64,8 +64,15 @@ def make_engine(url: str) -> sa.Engine:
     if parsed.get_backend_name() == "sqlite":
         path = Path(parsed.database)  # type: ignore[arg-type]
         path.parent.mkdir(parents=True, exist_ok=True)
-        return db.sqlite_engine(path)
-    return sa.create_engine(parsed, isolation_level="READ COMMITTED", pool_pre_ping=True)
+        return db.sqlite_engine(path, **SERVER_POOL)
+    return sa.create_engine(parsed, isolation_level="READ COMMITTED", pool_pre_ping=True, **SERVER_POOL)
+
+
+# One pooled connection for each of the server's request threads (Starlette runs plain handlers on anyio's
+# default limiter of 40 threads) plus the background checks, so a busy camp never waits out the pool: with
+# SQLAlchemy's default 5 + 10 a push could time out waiting for a connection before it read its body. Writers
+# still queue on the database's own lock (SQLite BEGIN IMMEDIATE, PostgreSQL row locks), not on the pool.
+SERVER_POOL: dict[str, int] = {"pool_size": 10, "max_overflow": 35, "pool_timeout": 120}
 
 
 def _alembic_config(conn: sa.Connection) -> Config:

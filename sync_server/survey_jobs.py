@@ -136,8 +136,9 @@ def attach_job(
     max_move_m: float = 0.10, confirm_moves: bool = False, site: str | None = None, now: Any = None,
 ) -> dict[str, Any]:
     """Attach the points of an instrument download to finds by number, in one transaction of the server's own
-    device: each match becomes the find's shot (the point's line kept as its raw line) and the find's position
-    is what the setup reduces it to; a ``Correction`` keeps who and why. Moves past ``max_move_m`` are refused
+    device: each raw point becomes the find's shot (the point's line kept as its raw line) and the find's
+    position is what the setup reduces it to; a reduced point gives the find the instrument's E, N, Z exactly
+    and its line goes into the notes (see ``schema/survey/download.py``); a ``Correction`` keeps who and why. Moves past ``max_move_m`` are refused
     (``MoveNotConfirmed``, nothing written) unless ``confirm_moves``."""
     import datetime as dt
 
@@ -180,35 +181,44 @@ def attach_job(
                 "nothing was written. Check those points (the right find number? the right setup?), then run again "
                 "with --confirm-moves to move them, or with a larger --max-move")
         todo = [m for m in plan.matches if not m.same]
+        shots_todo = any(m.point.kind == "raw" for m in todo)  # reduced points keep no shot, so no setup
         setup, setup_new = _download_setup(conn, s, station, code, by=by.strip(), at=now)
-        if todo and setup_new:
+        if shots_todo and setup_new:
             store.save_versioned(conn, setup, new=True)
         find_by_id = {f.id: f for f in finds}
         for m in todo:
-            shot = check(Shot, {"setup_id": setup.id, "hz": m.hz, "zenith": m.zenith, "slope_distance_m":
-                                m.slope_distance_m, "target_height_m": m.point.target_height_m,
-                                "prism_constant_mm": m.point.prism_constant_mm, "shot_at": now,
-                                "raw_line": m.point.raw_line[:1000]}, record=f"point {m.point.point}")
             current = find_by_id[m.find_id]
-            changes = {"e": m.e, "n": m.n, "z": m.z, "position_source": "total_station", "shot_id": shot.id,
-                       "gnss_fix_id": None, "position_sigma_m": current.position_sigma_m or 0.005}
+            changes = {"e": m.e, "n": m.n, "z": m.z, "position_source": "total_station", "gnss_fix_id": None,
+                       "position_sigma_m": current.position_sigma_m or 0.005}
+            shot = None
+            if m.point.kind == "raw":
+                shot = check(Shot, {"setup_id": setup.id, "hz": m.hz, "zenith": m.zenith, "slope_distance_m":
+                                    m.slope_distance_m, "target_height_m": m.point.target_height_m,
+                                    "prism_constant_mm": m.point.prism_constant_mm, "shot_at": now,
+                                    "raw_line": m.point.raw_line[:1000]}, record=f"point {m.point.point}")
+                changes["shot_id"] = shot.id
+            else:  # the instrument's own E, N, Z: no shot to keep, the line goes into the notes (download.py)
+                changes["shot_id"] = None
+                changes["notes"] = f"{current.notes}\n{dl.reduced_note(m.point, download.name)}".strip()
             try:
                 updated = check(Find, {**current.model_dump(), **changes}, record=f"find {m.number}")
             except RecordInvalid as exc:
                 raise RecordInvalid(f"find {m.number} (point {m.point.point}, line {m.point.line})", exc.problems) from None
-            changed = [k for k in ("e", "n", "z", "position_source", "shot_id", "gnss_fix_id")
+            changed = [k for k in ("e", "n", "z", "position_source", "shot_id", "gnss_fix_id", "notes")
                        if getattr(updated, k) != getattr(current, k)]
             note = check(Correction, {
                 "record": "find", "record_id": current.id, "fields": ",".join(changed),
-                "reason": f"point {m.point.point} of {download.name} ({m.point.kind}, setup {setup.station_code})",
+                "reason": f"point {m.point.point} of {download.name} " + (
+                    f"(raw, setup {setup.station_code})" if shot is not None else "(reduced by the instrument)"),
                 "by": by.strip(), "at": now}, record="correction")
-            store.save_versioned(conn, shot, new=True)
+            if shot is not None:
+                store.save_versioned(conn, shot, new=True)
             store.save_versioned(conn, updated, new=False)
             store.save_versioned(conn, note, new=True)
     return {
         "site": s.code,
         "setup": {"station": setup.station_code, "method": setup.method, "orientation": setup.orientation,
-                  "angle_unit": setup.angle_unit, "new": bool(todo) and setup_new},
+                  "angle_unit": setup.angle_unit, "new": shots_todo and setup_new},
         "attached": [_match_json(m) for m in todo],
         "already": [_match_json(m) for m in plan.matches if m.same],
         "unmatched": [{"point": p.point, "line": p.line, "why": why} for p, why in plan.unmatched],

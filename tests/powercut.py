@@ -13,14 +13,24 @@ How it works:
 3. The crashed files are opened by a plain SQLite (the stdlib module), which runs WAL recovery, then checked:
    ``PRAGMA integrity_check`` must say ok, and every acknowledged find must be there with its field versions.
 
+Photos (``mobile.photos.keep_file``): ``record_trace`` also records the photo file's disk steps in their place
+among the SQL (written and flushed under a temporary name, renamed to its hash, the folder flushed), and an
+``ack`` for each photo ``save_photo`` returns. The replay runs them through the same model, on the same count of
+operations, so a cut can fall on any of them: a file's unflushed writes are kept sector by sector at random like
+the database's, and a rename is durable only once its folder is flushed (before that, a cut keeps it or not at
+random). ``check_photos`` then asks: does every photo record have its whole file (bytes hashing to its name)?
+
 Assumptions, stated: a created or deleted file's directory entry is durable at once (SQLite syncs the directory
-where it matters); the ``-shm`` index is not durable (SQLite rebuilds it from the WAL); sectors are 512 bytes.
+where it matters; a photo file is created under its temporary name); a rename is not durable until its folder is
+flushed; the ``-shm`` index is not durable (SQLite rebuilds it from the WAL); sectors are 512 bytes.
 The model of a disk that keeps some unsynced writes and tears sectors follows the SQLite documentation's
 "Atomic Commit In SQLite" section 2 (hardware assumptions) - from memory of that page.
 """
 
 from __future__ import annotations
 
+import hashlib
+import os
 import random
 import shutil
 import sqlite3
@@ -44,12 +54,55 @@ class Trace:
     steps: list[tuple[str, Any, Any]] = field(default_factory=list)  # (kind, sql or id, params)
 
     def acks(self) -> list[str]:
+        """The finds the recorder was told were saved, in order."""
         return [s[1] for s in self.steps if s[0] == "ack"]
 
+    def photo_acks(self) -> list[str]:
+        """The photos the recorder was told were kept, in order."""
+        return [s[1] for s in self.steps if s[0] == "ack_photo"]
 
-def record_trace(work: Callable[[Callable[[uuid.UUID], None]], None]) -> Trace:
+
+FILE_KINDS = ("pwrite", "psync", "prename", "pdirsync")  # a photo file's disk steps, in a trace
+
+
+def _record_file_steps(trace: Trace, root: Path) -> Callable[[], None]:
+    """Record ``mobile.photos.keep_file``'s disk steps (paths relative to ``root``, the tablet file's folder) while
+    they still run for real; returns the function that puts them back."""
+    import mobile.photos as photos
+
+    real = {name: getattr(photos, name) for name in photos.FILE_STEPS}
+
+    def rel(path: Path) -> str:
+        return Path(os.path.relpath(path, root)).as_posix()
+
+    def write_synced(path: Path, data: bytes) -> None:
+        real["_write_synced"](path, data)
+        trace.steps.append(("pwrite", rel(path), bytes(data)))
+        trace.steps.append(("psync", rel(path), None))
+
+    def rename(source: Path, target: Path) -> None:
+        real["_rename"](source, target)
+        trace.steps.append(("prename", rel(source), rel(target)))
+
+    def fsync_dir(path: Path) -> None:
+        real["_fsync_dir"](path)
+        trace.steps.append(("pdirsync", rel(path), None))
+
+    for name, fn in (("_write_synced", write_synced), ("_rename", rename), ("_fsync_dir", fsync_dir)):
+        setattr(photos, name, fn)
+
+    def restore() -> None:
+        for name, fn in real.items():
+            setattr(photos, name, fn)
+
+    return restore
+
+
+def record_trace(work: Callable[..., None], *, root: Path | None = None) -> Trace:
     """Record every statement, commit and rollback any SQLAlchemy engine sends while ``work(ack)`` runs;
-    ``work`` calls ``ack(find_id)`` after each save the recorder would be told about."""
+    ``work`` calls ``ack(find_id)`` after each save the recorder would be told about, and
+    ``ack(photo_id, kind="photo")`` after each photo kept. With ``root`` (the tablet file's folder), the photo
+    files' disk steps are recorded too, their paths relative to it."""
     trace = Trace()
 
     def on_execute(_conn: Any, _cursor: Any, statement: str, parameters: Any, _context: Any, executemany: bool) -> None:
@@ -66,12 +119,37 @@ def record_trace(work: Callable[[Callable[[uuid.UUID], None]], None]) -> Trace:
     listeners = [("before_cursor_execute", on_execute), ("commit", on_commit), ("rollback", on_rollback)]
     for name, fn in listeners:
         sa.event.listen(sa.engine.Engine, name, fn)
+    restore = _record_file_steps(trace, root) if root is not None else None
     try:
-        work(lambda find_id: trace.steps.append(("ack", find_id.hex, None)))
+        work(lambda record_id, kind="find": trace.steps.append(
+            ("ack" if kind == "find" else f"ack_{kind}", record_id.hex, None)))
     finally:
         for name, fn in listeners:
             sa.event.remove(sa.engine.Engine, name, fn)
+        if restore is not None:
+            restore()
     return trace
+
+
+def record_before_file(trace: Trace) -> Trace:
+    """A control: each photo's file steps moved after the next commit (the record's), as if the record were
+    written first."""
+    out: list[tuple[str, Any, Any]] = []
+    held: list[tuple[str, Any, Any]] = []
+    for step in trace.steps:
+        if step[0] in FILE_KINDS:
+            held.append(step)
+            continue
+        out.append(step)
+        if step[0] == "commit" and held:
+            out += held
+            held = []
+    return Trace(out + held)
+
+
+def without_flushes(trace: Trace) -> Trace:
+    """A control: the photo file written and renamed but never flushed (no fsync of the file or its folder)."""
+    return Trace([s for s in trace.steps if s[0] not in ("psync", "pdirsync")])
 
 
 # -- the VFS shim -----------------------------------------------------------------------------------------------
@@ -142,16 +220,49 @@ def _make_vfs_classes() -> tuple[type, type]:
             self.ops = 0
             self.dead = False
             self.files: dict[str, FileModel] = {}
+            # plain files (photos), outside SQLite: contents per file, and the names as the program and the disk see them
+            self.plain: list[FileModel] = []
+            self.names: dict[str, int] = {}  # path -> file, as the running program sees it
+            self.durable_names: dict[str, int] = {}  # path -> file, as the disk keeps it
+            self.pending_renames: list[tuple[str, str]] = []  # renames whose folder is not flushed yet
+            self.file_ops: list[int] = []  # the operation numbers of the photo file steps (the cut points they give)
 
-        def tick(self, model: FileModel, offset: int | None, length: int) -> None:
+        def tick(self, model: FileModel | None, offset: int | None, length: int) -> None:
             if self.dead:
                 raise PowerCut("no power")
             self.ops += 1
             if self.cut_at is not None and self.ops >= self.cut_at:
                 self.dead = True
-                if offset is not None:
+                if offset is not None and model is not None:
                     model.in_flight = (offset, length)
                 raise PowerCut("power cut")
+
+        # -- a photo file's steps (mobile.photos.keep_file), replayed on the model --
+        def plain_step(self, kind: str, path: str, other: Any) -> None:
+            self.file_ops.append(self.ops + 1)
+            if kind == "pwrite":  # created (its name durable at once) and written
+                model = FileModel(bytearray())
+                self.plain.append(model)
+                self.names[path] = self.durable_names[path] = len(self.plain) - 1
+                self.tick(model, 0, len(other))
+                model.pending.append(("w", 0, bytes(other)))
+            elif kind == "psync":
+                model = self.plain[self.names[path]]
+                self.tick(model, None, 0)
+                for op in model.pending:
+                    _apply(model.durable, op)
+                model.pending.clear()
+            elif kind == "prename":
+                self.tick(None, None, 0)
+                self.names[other] = self.names.pop(path)
+                self.pending_renames.append((path, other))
+            elif kind == "pdirsync":
+                self.tick(None, None, 0)
+                for source, target in [r for r in self.pending_renames if str(Path(r[1]).parent) == path]:
+                    self.durable_names[target] = self.durable_names.pop(source)
+                    self.pending_renames.remove((source, target))
+            else:
+                raise ValueError(f"not a file step: {kind}")
 
         def xOpen(self, name: Any, flags: Any) -> CutFile:
             if self.dead:
@@ -175,18 +286,28 @@ class Outcome:
     acked: list[str]
     integrity: str
     lost: list[str]
+    photos_acked: list[str] = field(default_factory=list)
+    broken_photos: list[str] = field(default_factory=list)  # photo records whose file is missing or not whole
+    orphan_files: int = 0  # whole photo files no record names (harmless: mobile.photos.orphans lists them)
+    file_ops: list[int] = field(default_factory=list)
 
     @property
     def corrupt(self) -> bool:
         return self.integrity != "ok"
 
 
-def _replay(conn: Any, trace: Trace, pragmas: list[tuple[str, str]], acked: list[str]) -> None:
+def _replay(conn: Any, trace: Trace, pragmas: list[tuple[str, str]], acked: list[str], vfs: Any = None,
+            photos_acked: list[str] | None = None) -> None:
     for name, value in pragmas:
         conn.execute(f"PRAGMA {name}={value}").fetchall()
     for kind, sql, params in trace.steps:
         if kind == "ack":
             acked.append(sql)
+        elif kind == "ack_photo":
+            if photos_acked is not None:
+                photos_acked.append(sql)
+        elif kind in FILE_KINDS:
+            vfs.plain_step(kind, sql, params)
         elif kind == "commit":
             conn.execute("COMMIT")
         elif kind == "rollback":
@@ -218,6 +339,56 @@ def crash_image(vfs: Any, out: Path, rng: random.Random) -> None:
                 image.extend(b"\0" * (end - len(image)))
             image[s:end] = rng.randbytes(end - s)
         (out / key).write_bytes(bytes(image))
+    names = dict(vfs.durable_names)
+    for source, target in vfs.pending_renames:  # a rename whose folder was not flushed: kept or not
+        if source in names and rng.random() < 0.5:
+            names[target] = names.pop(source)
+    for path, index in names.items():
+        (out / path).parent.mkdir(parents=True, exist_ok=True)
+        (out / path).write_bytes(_disk_image(vfs.plain[index], rng))
+
+
+def _disk_image(m: FileModel, rng: random.Random) -> bytes:
+    """A plain file as the disk keeps it: flushed bytes, a random part of the rest, garbage where the cut fell."""
+    image = bytearray(m.durable)
+    for op in m.pending:
+        _apply(image, op, keep=lambda: rng.random() < 0.5)
+    if m.in_flight is not None:
+        at, length = m.in_flight
+        s = at + SECTOR * rng.randrange(max(1, length // SECTOR))
+        end = min(s + SECTOR, at + length)
+        if len(image) < end:
+            image.extend(b"\0" * (end - len(image)))
+        image[s:end] = rng.randbytes(end - s)
+    return bytes(image)
+
+
+def check_photos(db: Path, photos_acked: list[str]) -> tuple[list[str], list[str], int]:
+    """After a restart: the photo records whose file is missing or not whole (its bytes do not hash to its name)
+    or whose find does not list its hash in ``photo_hashes``, the acknowledged photos with no record, and how many
+    whole files no record names."""
+    import json
+
+    folder = db.with_name(db.stem + "-photos")
+    try:
+        with sqlite3.connect(db) as raw:
+            rows = raw.execute("SELECT id, sha256 FROM photo").fetchall()
+            of_finds = raw.execute("SELECT photo.id, photo.sha256, find.photo_hashes FROM photo JOIN find "
+                                   "ON find.id = photo.subject_id WHERE photo.subject = 'find'").fetchall()
+    except sqlite3.DatabaseError:
+        return [], list(photos_acked), 0
+    unlinked = [f"{rid} ({sha[:12]}) not in its find's photo_hashes" for rid, sha, hashes in of_finds
+                if sha not in json.loads(hashes)]
+
+    def whole(sha: str) -> bool:
+        path = folder / sha[:2] / sha
+        return path.is_file() and hashlib.sha256(path.read_bytes()).hexdigest() == sha
+
+    broken = [f"{rid} ({sha[:12]}) without its whole file" for rid, sha in rows if not whole(sha)] + unlinked
+    have = {rid for rid, _sha in rows}
+    named = {sha for _rid, sha in rows}
+    orphans = sum(1 for p in folder.glob("??/*") if not p.name.startswith(".") and p.name not in named)
+    return broken, [a for a in photos_acked if a not in have], orphans
 
 
 def check_image(db: Path, acked: list[str]) -> tuple[str, list[str]]:
@@ -252,9 +423,10 @@ def run_trial(base: Path, trace: Trace, work: Path, *, seed: int, cut_range: tup
     name = f"cut{seed}-{uuid.uuid4().hex[:6]}"
     vfs = CutVFS(name, live, cut_at)
     acked: list[str] = []
+    photos_acked: list[str] = []
     conn = apsw.Connection(str(live / base.name), vfs=name)
     try:
-        _replay(conn, trace, pragmas, acked)
+        _replay(conn, trace, pragmas, acked, vfs, photos_acked)
     except Exception as exc:  # noqa: BLE001 - the cut surfaces as whatever error SQLite maps it to
         if not vfs.dead:
             raise
@@ -268,7 +440,12 @@ def run_trial(base: Path, trace: Trace, work: Path, *, seed: int, cut_range: tup
     ops = vfs.ops
     vfs.unregister()
     integrity, lost = check_image(after / base.name, acked)
-    return Outcome(cut_at, ops, acked, integrity, lost)
+    outcome = Outcome(cut_at, ops, acked, integrity, lost, photos_acked, file_ops=list(vfs.file_ops))
+    if any(step[0] in FILE_KINDS for step in trace.steps):
+        broken, lost_photos, outcome.orphan_files = check_photos(after / base.name, photos_acked)
+        outcome.broken_photos = broken
+        outcome.lost += lost_photos
+    return outcome
 
 
 def trials(base: Path, trace: Trace, work: Path, *, n: int, pragmas: list[tuple[str, str]],

@@ -18,12 +18,13 @@ from pydantic import TypeAdapter, ValidationError
 from schema.errors import FieldProblem, RecordInvalid, RecordNotFound, SetupNotReady
 from schema.records import ControlPoint, SafetyCheck, Season, Site, StationSetup, Trench, Unit
 from schema.fields import Initials
+from schema.survey.templates import Template
 from schema.tables import metadata
 
 from ..cautions import Caution, heat_caution, laser_caution
 from ..instruments import GnssMonitor, parse_shot_line
 from ..recording import setup_by_backsight, setup_by_resection
-from ..settings import GNSS_MAX_AGE_S
+from ..settings import GNSS_MAX_AGE_S, instrument_template
 from ..store import TabletStore
 
 __all__ = ["Day", "DayController", "GNSS_MAX_AGE_S", "SetupReview", "record_acknowledgement"]
@@ -62,8 +63,10 @@ class DayController:
     """Day start and the instruments; the other controllers read ``day``."""
 
     def __init__(self, store: TabletStore, *, laser_class: str = "see the instrument's label",
-                 gnss_max_age_s: float = GNSS_MAX_AGE_S):
+                 gnss_max_age_s: float = GNSS_MAX_AGE_S, template: Template | None = None):
         self.store = store
+        # the instrument line template: the one given (then remembered by the tablet file), else the remembered one
+        self.template = instrument_template(store, template)
         self.laser_class = laser_class
         self.gnss = GnssMonitor()
         self.gnss_max_age_s = gnss_max_age_s
@@ -161,7 +164,8 @@ class DayController:
     def set_up_on_point(self, *, station: str, backsights: list[tuple[str, str]], instrument_height_m: float) -> SetupReview:
         """Occupy a datum and orient on backsights, each given as (point code, BKS shot line)."""
         day = self.require_day()
-        readings = [(self._point(code), parse_shot_line(line)) for code, line in backsights]
+        readings = [(self._point(code), parse_shot_line(line, template=self.template))
+                    for code, line in backsights]
         unit = readings[0][1][1] if readings else "deg"
         setup, result = setup_by_backsight(
             self.store, site=day.site, station=self._point(station), backsights=[(cp, r) for cp, (r, _u) in readings],
@@ -176,7 +180,8 @@ class DayController:
                             tolerance_m: float = 0.01) -> SetupReview:
         """Free station on two or more control points, each given as (point code, BKS shot line)."""
         day = self.require_day()
-        readings = [(self._point(c), parse_shot_line(line)) for c, line in observations]
+        readings = [(self._point(c), parse_shot_line(line, template=self.template))
+                    for c, line in observations]
         unit = readings[0][1][1] if readings else "deg"
         setup, result = setup_by_resection(
             self.store, site=day.site, code=code, observations=[(cp, r) for cp, (r, _u) in readings],

@@ -1,5 +1,8 @@
 """The find list: search and filters (unit, category, day, unresolved checks), as one SQL query returning light
-rows ready for a recycled list (the widget draws only the rows on screen, so tens of thousands stay smooth)."""
+rows ready for a recycled list (the widget draws only the rows on screen, so tens of thousands stay smooth).
+
+Each row names the hash of its find's newest photo; the list asks for that photo's thumbnail only when the row is
+drawn (``thumbnail``: made once from the file, then read from the tablet's thumbnail folder)."""
 
 from __future__ import annotations
 
@@ -13,6 +16,7 @@ import sqlalchemy as sa
 
 from schema.tables import metadata
 
+from ..photos import photo_folder, thumbnail_if_kept
 from ..store import TabletStore
 from ..tables import live_check
 
@@ -36,6 +40,7 @@ class FindListController:
     def __init__(self, store: TabletStore, *, timezone: str = "UTC"):
         self.store = store
         self.tz = zoneinfo.ZoneInfo(timezone)
+        self.photos = photo_folder(store)
 
     def matching(self, f: FindFilter) -> sa.Select[Any]:
         """The ids and numbers of the finds the filter keeps, newest number first (the find table alone, so
@@ -78,18 +83,24 @@ class FindListController:
         material = sa.func.replace(find.c.material, "_", " ")  # words on screen, never a vocabulary's key
         text = (sa.cast(find.c.number, sa.String) + "  " + unit.c.code + "  " + find.c.category + " " + material
                 + "  " + find.c.recovery + "  " + sa.func.coalesce(when, ""))
+        photo = metadata.tables["photo"]
+        newest_photo = (sa.select(photo.c.sha256).where(photo.c.subject_id == find.c.id, photo.c.subject == "find",
+                                                        photo.c.voided.is_(False))
+                        .order_by(photo.c.taken_at.desc(), photo.c.number.desc()).limit(1).scalar_subquery())
         return (sa.select(sa.type_coerce(find.c.id, sa.String).label("id"), find.c.number, unit.c.code.label("unit"),
-                          find.c.category, find.c.voided, waiting.label("open_checks"), text.label("text"))
+                          find.c.category, find.c.voided, waiting.label("open_checks"), text.label("text"),
+                          newest_photo.label("photo"))
                 .select_from(page.join(find, find.c.id == page.c.id).join(unit, unit.c.id == find.c.unit_id))
                 .order_by(page.c.number.desc()))
 
     def rows(self, f: FindFilter = FindFilter(), *, limit: int | None = None, offset: int = 0) -> list[dict[str, Any]]:
-        """One dict per find, newest number first: the fields the list shows and a one-line ``text`` for the row.
+        """One dict per find, newest number first: the fields the list shows, a one-line ``text`` for the row and
+        ``photo``, the hash of the find's newest photo ("" when it has none).
         ``limit``/``offset`` give a page (the list opens on its first page and loads more as it is scrolled)."""
         with self.store.read() as conn:
             result = conn.execute(self.query(f, limit=limit, offset=offset)).all()
         return [{"id": r[0], "number": r[1], "unit": r[2], "category": r[3], "voided": bool(r[4]), "open_checks": r[5],
-                 "text": r[6] + ("  VOID" if r[4] else "") + (f"  {r[5]} {'check' if r[5] == 1 else 'checks'} open" if r[5] else "")}
+                 "photo": r[7] or "", "text": r[6] + ("  VOID" if r[4] else "") + (f"  {r[5]} {'check' if r[5] == 1 else 'checks'} open" if r[5] else "")}
                 for r in result]
 
     def count(self, f: FindFilter = FindFilter()) -> int:
@@ -97,6 +108,12 @@ class FindListController:
         with self.store.read() as conn:
             return int(conn.execute(sa.select(sa.func.count()).select_from(self.matching(f).order_by(None).subquery()))
                        .scalar_one())
+
+    def thumbnail(self, sha256: str) -> str:
+        """The path of a photo's thumbnail for a drawn row ("" when this tablet has neither the file nor a
+        thumbnail from camp)."""
+        path = thumbnail_if_kept(self.photos, sha256) if sha256 else None
+        return str(path) if path is not None else ""
 
     def units(self) -> list[str]:
         unit = metadata.tables["unit"]

@@ -195,7 +195,7 @@ class FindController:
             if not (position.shot_line or "").strip():
                 raise RecordInvalid("find", [FieldProblem("shot", "no shot was taken for this find",
                                                           "tap Take shot, or type the readings and tap Use")])
-            reading, _unit = parse_shot_line(position.shot_line or "", at=at)
+            reading, _unit = parse_shot_line(position.shot_line or "", at=at, template=self.days.template)
             shot, fields = plotted_fields(setup, reading)
             return shot, {**none, **fields, "recovery": "plotted"}
         if position.source == "gnss":

@@ -1,11 +1,18 @@
-"""The day's print queue: finds whose bag label has not been printed, printed as one PDF sheet and marked."""
+"""The day's print queue: finds whose bag label has not been printed, printed as one PDF sheet and marked.
+
+A sheet is made in three steps so that a screen can write the file off its own thread: ``prepare`` (reads the
+store: which finds, their label text, the file name), ``write`` (the PDF alone, with progress per page; safe on
+a worker thread), ``mark`` (the finds marked printed, in one transaction, after the file is complete).
+``print_queue`` does the three in turn."""
 
 from __future__ import annotations
 
 import datetime as dt
 import math
 import zoneinfo
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 from schema.errors import FieldProblem, RecordInvalid, RecordNotFound
 from schema.records import Find, Site, Trench, Unit
@@ -13,7 +20,26 @@ from schema.records import Find, Site, Trench, Unit
 from ..labels import COLS, ROWS, LabelData, write_label_sheet
 from ..store import TabletStore
 
-__all__ = ["LabelQueue", "sheet_sentence"]
+__all__ = ["LabelJob", "LabelQueue", "page_sentence", "sheet_sentence"]
+
+
+@dataclass(frozen=True)
+class LabelJob:
+    """One sheet to write: the finds, their labels, the file, and when they count as printed."""
+
+    finds: list[Find]
+    labels: list[LabelData]
+    path: Path
+    at: dt.datetime
+
+    @property
+    def pages(self) -> int:
+        return math.ceil(len(self.labels) / (COLS * ROWS))
+
+
+def page_sentence(done: int, pages: int, count: int) -> str:
+    """The progress line while a sheet is written, e.g. ``Writing 384 labels: page 3 of 19``."""
+    return f"Writing {count} {'label' if count == 1 else 'labels'}: page {done} of {pages}"
 
 
 def sheet_sentence(path: Path, count: int, *, again: bool = False) -> str:
@@ -62,15 +88,30 @@ class LabelQueue:
                 human_remains=f.human_remains))
         return out
 
-    def print_queue(self, folder: Path, *, finds: list[Find] | None = None) -> Path:
-        """Write the queue (or ``finds``) to a dated PDF in ``folder`` and mark those finds printed, the marks in
-        one transaction after the file is complete."""
+    def prepare(self, folder: Path | str, *, finds: list[Find] | None = None) -> LabelJob:
+        """The sheet for the queue (or ``finds``): its labels and a dated file name in ``folder``."""
         todo = self.queue() if finds is None else finds
         if not todo:
-            raise RecordNotFound("no labels are waiting; to print one again, give its numbers under Reprint")
+            raise RecordNotFound("no labels are waiting; to write one again, give its numbers under Write again")
         now = dt.datetime.now(dt.timezone.utc)
-        path = write_label_sheet(Path(folder) / f"labels-{now:%Y%m%d-%H%M%S}.pdf", self._labels(todo))
+        return LabelJob(todo, self._labels(todo), Path(folder) / f"labels-{now:%Y%m%d-%H%M%S}.pdf", now)
+
+    @staticmethod
+    def write(job: LabelJob, progress: Callable[[int, int], None] | None = None) -> Path:
+        """The PDF alone (no store access: safe on a worker thread); ``progress(pages done, pages)``."""
+        return write_label_sheet(job.path, job.labels, progress)
+
+    def mark(self, job: LabelJob) -> None:
+        """The job's finds marked printed, in one transaction (after its file is complete)."""
         with self.store.atomic():
-            for f in todo:
-                self.store.put(self.store.get(Find, f.id).model_copy(update={"label_printed_at": now}))
+            for f in job.finds:
+                self.store.put(self.store.get(Find, f.id).model_copy(update={"label_printed_at": job.at}))
+
+    def print_queue(self, folder: Path, *, finds: list[Find] | None = None,
+                    progress: Callable[[int, int], None] | None = None) -> Path:
+        """Write the queue (or ``finds``) to a dated PDF in ``folder`` and mark those finds printed, the marks in
+        one transaction after the file is complete."""
+        job = self.prepare(folder, finds=finds)
+        path = self.write(job, progress)
+        self.mark(job)
         return path

@@ -18,7 +18,7 @@ from schema.records import Device
 from ..bundles import ReturnRead, export_bundle, read_return_bundle
 from ..enrol import check_address, check_can_enrol, enrol, parse_enrol_line, pinned_context
 from ..store import TabletStore
-from ..sync import MAX_BATCH, MAX_PAGE, Progress, SyncClient, SyncReport, pending_count
+from ..sync import KEEPALIVE_S, MAX_BATCH, MAX_PAGE, Progress, SyncClient, SyncReport, pending_count
 
 __all__ = ["CampLink", "LinkStatus", "HTTP_TIMEOUT_S"]
 
@@ -28,7 +28,10 @@ ClientFactory = Callable[[str, Any], httpx.Client]
 
 
 def _client(server: str, verify: Any) -> httpx.Client:
-    return httpx.Client(base_url=server, timeout=HTTP_TIMEOUT_S, verify=verify if verify is not None else True)
+    # an idle connection is reused for KEEPALIVE_S at most, well under the camp server's keep-alive, so the
+    # tablet never sends on a connection the server is closing (that request would be reset)
+    return httpx.Client(base_url=server, timeout=HTTP_TIMEOUT_S, verify=verify if verify is not None else True,
+                        limits=httpx.Limits(keepalive_expiry=KEEPALIVE_S))
 
 
 @dataclass(frozen=True)
@@ -142,8 +145,11 @@ class CampLink:
             self.store.set_setting("link.last_error", str(exc))
             raise
         now = dt.datetime.now().astimezone()
+        rechecked = report.rechecked
+        changed = len(rechecked.now_failing) + len(rechecked.cleared) if rechecked is not None else 0
         self.store.set_setting("link.last_sync", f"{now:%d %b %H:%M}, sent {report.pushed_versions}, "
-                                                 f"received {report.applied_versions}")
+                                                 f"received {report.applied_versions}"
+                               + (f", checks changed on {changed} find{'' if changed == 1 else 's'}" if changed else ""))
         self.store.set_setting("link.last_error", None)
         return report
 

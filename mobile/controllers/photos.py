@@ -17,7 +17,7 @@ from schema.records import Photo
 from schema.records.photo import FACINGS
 from schema.errors import FieldProblem
 
-from ..photos import copy_from, free_space_line, photo_folder, photo_path, save_photo, thumbnail
+from ..photos import copy_from, free_space_line, photo_folder, photo_path, save_photo, thumbnail, thumbnail_if_kept
 from .day import DayController
 
 __all__ = ["PhotoController", "PhotoTarget"]
@@ -78,6 +78,15 @@ class PhotoController:
 
     def thumbnail(self, photo: Photo) -> Path:
         return thumbnail(self.folder, photo.sha256)
+
+    def newest(self, subject_id: uuid.UUID) -> tuple[Photo, Path | None] | None:
+        """The newest photo of a find or unit and its thumbnail (None when this tablet lacks the file: a photo
+        taken on another tablet); None when it has no photo."""
+        kept = self.photos_of(subject_id)
+        if not kept:
+            return None
+        photo = max(kept, key=lambda p: (p.taken_at, p.number))  # as the find list picks it
+        return photo, thumbnail_if_kept(self.folder, photo.sha256)
 
     def file(self, photo: Photo) -> Path:
         return photo_path(self.folder, photo.sha256)

@@ -1,12 +1,14 @@
 """Units on the tablet: the list and form (kind, description, Munsell colour, texture, status), relations to
-other units (checked against the matrix at once), and level points on a unit's top or bottom from shots."""
+other units (checked against the matrix at once; a wrong one is voided with a reason, never deleted), and level
+points on a unit's top or bottom from shots."""
 
 from __future__ import annotations
 
+import uuid
 from dataclasses import dataclass, field
 from typing import Any
 
-from schema.errors import RecordNotFound
+from schema.errors import FieldProblem, RecordInvalid, RecordNotFound
 from schema.forms import FormField, typed_values, unit_form
 from schema.records import LevelPoint, Relation, Unit
 from schema.strata import Issue
@@ -20,7 +22,7 @@ from ..store import TabletStore
 from .day import DayController
 from .finds import shoring_for
 
-__all__ = ["UnitsController"]
+__all__ = ["RelationLine", "UnitsController", "VoidedRelation"]
 
 
 @dataclass
@@ -30,6 +32,35 @@ class Related:
     relation: Relation
     issues: list[Issue] = field(default_factory=list)
     rechecked: Rechecked = field(default_factory=Rechecked)  # the two units' finds, checked again
+
+
+@dataclass(frozen=True)
+class RelationLine:
+    """One relation naming a unit, as the Units screen lists it."""
+
+    relation_id: uuid.UUID
+    upper: str  # unit codes ("?" for a unit this tablet does not hold)
+    kind: str
+    lower: str
+    void_reason: str | None = None  # None: the relation is in force
+
+    @property
+    def voided(self) -> bool:
+        return self.void_reason is not None
+
+    def words(self) -> str:
+        """``103 above 102``, or ``VOIDED 103 above 102 (why)`` for a voided one."""
+        text = f"{self.upper} {self.kind.replace('_', ' ')} {self.lower}"
+        return f"VOIDED {text} ({self.void_reason})" if self.voided else text
+
+
+@dataclass
+class VoidedRelation:
+    """A voided relation and what the matrix and the two units' finds say without it."""
+
+    line: RelationLine
+    issues: list[Issue] = field(default_factory=list)  # matrix problems still naming the two units
+    rechecked: Rechecked = field(default_factory=Rechecked)
 
 
 class UnitsController:
@@ -65,17 +96,34 @@ class UnitsController:
         current = self.unit(code)
         return self.store.put(check(Unit, {**current.model_dump(), **typed}))
 
-    def relations(self, code: str) -> list[tuple[str, str, str]]:
-        """(this unit's role, relation kind, other unit's code) for every relation naming the unit."""
+    def relations(self, code: str) -> list[RelationLine]:
+        """Every relation naming the unit, in force first, then voided ones (kept, never deleted)."""
         unit = self.unit(code)
         by_id = {u.id: u.code for u in self.store.list(Unit, site_id=unit.site_id)}
-        out = []
-        for r in self.store.list(Relation, site_id=unit.site_id):
-            if r.upper_unit_id == unit.id:
-                out.append(("upper", r.kind, by_id.get(r.lower_unit_id, "?")))
-            elif r.lower_unit_id == unit.id:
-                out.append(("lower", r.kind, by_id.get(r.upper_unit_id, "?")))
-        return sorted(out)
+        out = [_line(r, by_id) for r in self.store.list(Relation, site_id=unit.site_id)
+               if unit.id in (r.upper_unit_id, r.lower_unit_id)]
+        return sorted(out, key=lambda x: (x.voided, x.upper, x.kind, x.lower, str(x.relation_id)))
+
+    def void_relation(self, relation_id: uuid.UUID, reason: str) -> VoidedRelation:
+        """Void a wrong relation with the recorder's reason: a new version of the relation (it syncs like every
+        edit), left out of the matrix from now on; the matrix is checked again and the two units' finds too."""
+        if not reason.strip():
+            raise RecordInvalid("void of the relation", [FieldProblem(
+                "reason", "voiding a relation needs a reason", "say why the relation is wrong, e.g. 'recorded the "
+                "wrong way round'")])
+        current = self.store.get(Relation, relation_id)
+        if current.voided:
+            raise RecordInvalid("void of the relation", [FieldProblem(
+                "relation", f"it is already voided ({current.void_reason})", "nothing more to do")])
+        voided = self.store.put(check(Relation, {**current.model_dump(), "voided": True,
+                                                 "void_reason": reason.strip()}))
+        by_id = {u.id: u.code for u in self.store.list(Unit, site_id=voided.site_id)}
+        codes = {by_id.get(voided.upper_unit_id, "?"), by_id.get(voided.lower_unit_id, "?")}
+        mine = {str(voided.upper_unit_id), str(voided.lower_unit_id)}
+        issues = [i for i in check_matrix(self.store)
+                  if i.record_id in mine or codes & set(i.label.replace(",", " ").split())]
+        return VoidedRelation(_line(voided, by_id), issues,
+                              recheck_units(self.store, [voided.upper_unit_id, voided.lower_unit_id]))
 
     def relate(self, *, upper: str, lower: str, kind: str) -> Related:
         """Record that ``upper`` is above / cuts / fills / is the same as / contemporary with ``lower``; the matrix
@@ -95,7 +143,7 @@ class UnitsController:
         day = self.days.require_day()
         target = self.unit(unit)
         setup = self.days.require_setup()
-        reading, _ = parse_shot_line(shot_line, at=day.now())
+        reading, _ = parse_shot_line(shot_line, at=day.now(), template=self.days.template)
         shot, (e, n, z) = reduce_reading(setup, reading)
         with self.store.atomic():  # a bad surface is refused by the model, and the shot goes with it
             self.store.add(shot)
@@ -103,3 +151,8 @@ class UnitsController:
                                                       "shot_id": shot.id}))
         self.last_recheck = recheck_units(self.store, [target.id])
         return point, shoring_for(self.store, day, z)
+
+
+def _line(r: Relation, code_of: dict[uuid.UUID, str]) -> RelationLine:
+    return RelationLine(r.id, code_of.get(r.upper_unit_id, "?"), r.kind, code_of.get(r.lower_unit_id, "?"),
+                        r.void_reason if r.voided else None)

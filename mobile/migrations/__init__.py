@@ -21,7 +21,7 @@ from schema.errors import MigrationFailed, StoreTooNew
 from . import (
     m0001_initial, m0002_find_flags, m0003_site_grid_polynomial, m0004_gnss_plot_override,
     m0005_timezone_horizon_history, m0006_age_determinations, m0007_sync_tables, m0008_number_clashes_visible,
-    m0009_safety_checks, m0010_site_setup_and_corrections, m0011_pending_waits, m0012_photos,
+    m0009_safety_checks, m0010_site_setup_and_corrections, m0011_pending_waits, m0012_photos, m0013_relation_void,
 )
 
 __all__ = ["MIGRATIONS", "applied", "pending", "upgrade"]
@@ -29,7 +29,7 @@ __all__ = ["MIGRATIONS", "applied", "pending", "upgrade"]
 MIGRATIONS: tuple[ModuleType, ...] = (
     m0001_initial, m0002_find_flags, m0003_site_grid_polynomial, m0004_gnss_plot_override,
     m0005_timezone_horizon_history, m0006_age_determinations, m0007_sync_tables, m0008_number_clashes_visible,
-    m0009_safety_checks, m0010_site_setup_and_corrections, m0011_pending_waits, m0012_photos,
+    m0009_safety_checks, m0010_site_setup_and_corrections, m0011_pending_waits, m0012_photos, m0013_relation_void,
 )
 
 _TABLE = """CREATE TABLE IF NOT EXISTS baulk_migration (

@@ -11,8 +11,27 @@ import importlib
 from pathlib import Path
 from typing import Any
 
-from kivy.app import App
-from kivy.core.window import Window
+DESKTOP_SIZE = (1280, 800)  # a 10-inch tablet in landscape, for the desktop window
+
+
+def _desktop_size_before_the_window() -> None:
+    """On a desktop, ask for a tablet-sized first window instead of Kivy's 800 x 600 default. This must run before
+    Kivy makes its window (the import of ``kivy.core.window`` below): a window resized later keeps an 800 x 600
+    drawing surface on some systems (the offscreen EGL one the tests use). A size set in Kivy's own configuration
+    (config.ini, ``KCFG_GRAPHICS_WIDTH``), as the UI tests set a portrait window, is left alone."""
+    from kivy.config import Config
+    from kivy.utils import platform
+
+    if platform in ("linux", "win", "macosx") and (Config.getint("graphics", "width"),
+                                                    Config.getint("graphics", "height")) == (800, 600):
+        Config.set("graphics", "width", str(DESKTOP_SIZE[0]))
+        Config.set("graphics", "height", str(DESKTOP_SIZE[1]))
+
+
+_desktop_size_before_the_window()
+
+from kivy.app import App  # noqa: E402 - after the size is chosen
+from kivy.core.window import Window  # noqa: E402
 from kivy.properties import ListProperty, StringProperty
 from kivy.uix.boxlayout import BoxLayout
 from kivy.uix.screenmanager import ScreenManager
@@ -20,7 +39,7 @@ from kivy.uix.screenmanager import ScreenManager
 from schema.records import LevelPoint
 
 from .. import controllers as c
-from ..instruments import FieldSimulator, ShotFeed, TtyPort, record_ends, use_template
+from ..instruments import FieldSimulator, ShotFeed, TtyPort, record_ends
 from ..store import TabletStore
 from . import theme
 from .widgets import load_kv
@@ -39,9 +58,6 @@ SCREENS: dict[str, tuple[str, str, str]] = {
     "labels": ("Labels", "mobile.ui.screens.labels", "LabelsScreen"),
     "link": ("Camp", "mobile.ui.screens.link", "LinkScreen"),
 }
-
-
-DESKTOP_SIZE = (1280, 800)  # a 10-inch tablet in landscape, for the desktop window
 
 
 def _tablet_sized_window() -> None:
@@ -93,21 +109,23 @@ class TabletApp(App):
         super().__init__(**kw)
         self.store_path = Path(store_path)
         self.labels_dir = Path(labels_dir) if labels_dir else self.store_path.parent / "labels"
-        self.template = use_template(template)  # instrument lines are read through it (None: BKS)
-        self.shot_feed = ShotFeed(self.template)  # the last line read, raw and decoded, for the Day screen
-        self.simulator = FieldSimulator(template=self.template) if simulate else None
+        self._template = template  # --template: chosen now, remembered by the tablet file (see build)
+        self._simulate = simulate
         self._instrument_path, self._receiver_path = instrument, receiver
         self.laser_class = laser_class
 
     # -- life cycle ---------------------------------------------------------------------------------------
     def build(self) -> Shell:
         self.store = TabletStore.open(self.store_path)
-        self.instrument = TtyPort(self._instrument_path, ends=record_ends(self.template)) if self._instrument_path else None
-        self.receiver = TtyPort(self._receiver_path) if self._receiver_path else None
         from ..settings import TabletSettings
 
         self.days = c.DayController(self.store, laser_class=self.laser_class,
-                                    gnss_max_age_s=TabletSettings().gnss_max_age_s)
+                                    gnss_max_age_s=TabletSettings().gnss_max_age_s, template=self._template)
+        self.template = self.days.template  # the given one, else the one the tablet file remembers, else BKS
+        self.shot_feed = ShotFeed(self.template)  # the last line read, raw and decoded, for the Day screen
+        self.simulator = FieldSimulator(template=self.template) if self._simulate else None
+        self.instrument = TtyPort(self._instrument_path, ends=record_ends(self.template)) if self._instrument_path else None
+        self.receiver = TtyPort(self._receiver_path) if self._receiver_path else None
         self.finds = c.FindController(self.store, self.days)
         self.units = c.UnitsController(self.store, self.days)
         self.labels = c.LabelQueue(self.store)

@@ -1,6 +1,10 @@
-"""The photo dialog opened by the Photo buttons (Record, Units, Day): on Android the system camera, elsewhere a
-file chooser (or a typed path), then the register entry: caption, facing, scale and north arrow in frame. Keeping
-it calls ``PhotoController.keep``; what went wrong is shown in the dialog in the controller's words."""
+"""The photo dialog opened by the Photo buttons (Record, Units, Day): on Android the system camera; on a desktop or
+Linux tablet a connected camera through Kivy's camera provider when there is one (``camera_provider``), else a
+file chooser (or a typed path); then the register entry: caption, facing, scale and north arrow in frame. Keeping
+it calls ``PhotoController.keep``; what went wrong is shown in the dialog in the controller's words.
+
+The camera path is ``picture_from_camera``: the live view's current frame written as a JPEG, then kept by hash
+like a chosen file (the frame file itself is removed once kept)."""
 
 from __future__ import annotations
 
@@ -12,12 +16,12 @@ from kivy.uix.boxlayout import BoxLayout
 from kivy.uix.popup import Popup
 from kivy.utils import platform
 
-from schema.errors import BaulkError
+from schema.errors import BaulkError, PhotoError
 
 from ..controllers.photos import PhotoController, PhotoTarget
 from .widgets import Alarm, Big, Choice, Entry, Pick, Say
 
-__all__ = ["PhotoDialog", "photo_controller"]
+__all__ = ["PhotoDialog", "camera_provider", "photo_controller", "picture_from_camera", "usable_camera"]
 
 IMAGE_FILES = ["*.jpg", "*.jpeg", "*.JPG", "*.JPEG", "*.png", "*.PNG"]
 
@@ -36,6 +40,41 @@ def _start_folder() -> str:
     return "/"
 
 
+def usable_camera(provider: str | None, devices: Path = Path("/dev")) -> str | None:
+    """``provider`` when a camera can be used through it: on Linux a video device must be connected too (Kivy's
+    providers load without one, then show nothing)."""
+    if provider is None:
+        return None
+    if platform == "linux" and not any(devices.glob("video*")):
+        return None
+    return provider
+
+
+def camera_provider() -> str | None:
+    """The name of Kivy's camera provider class when one is installed and a camera is connected; None sends the
+    dialog to the file chooser."""
+    from kivy.core.camera import Camera as CoreCamera  # Kivy picks the first provider that imports (gi, opencv...)
+
+    return usable_camera(CoreCamera.__name__ if CoreCamera is not None else None)
+
+
+def picture_from_camera(texture: Any, folder: Path) -> Path:
+    """The camera's current frame (a Kivy texture) as a JPEG in ``folder``, upright; kept by hash afterwards."""
+    import uuid
+
+    from PIL import Image
+
+    if texture is None:
+        raise PhotoError("the camera has not shown a picture yet; wait for the live view, then take the picture")
+    frame = Image.frombytes("RGBA", texture.size, texture.pixels)  # Kivy gives RGBA rows from the bottom up
+    if texture.tex_coords[1] <= texture.tex_coords[5]:  # a camera texture drawn flipped holds its rows top down
+        frame = frame.transpose(Image.Transpose.FLIP_TOP_BOTTOM)
+    folder.mkdir(parents=True, exist_ok=True)
+    out = folder / f"camera-{uuid.uuid4().hex}.jpg"
+    frame.convert("RGB").save(out, format="JPEG", quality=92)
+    return out
+
+
 class PhotoDialog(Popup):
     """Take or choose one photo of ``target`` and keep it; ``on_kept(photo)`` is called after."""
 
@@ -45,9 +84,17 @@ class PhotoDialog(Popup):
         self.photos, self.target, self.on_kept = photos, target, on_kept
         box = BoxLayout(orientation="vertical", spacing=dp(8), padding=dp(8))
         self.chooser: Any = None
+        self.camera_view: Any = None
         self.problem = Alarm(text="", size_hint_y=None, height=dp(72))
         if platform == "android":  # pragma: no cover - no Android here
             box.add_widget(Big(text="Open the camera", on_release=lambda *_: self.camera()))
+        elif camera_provider() is not None:  # pragma: no cover - no camera on these machines
+            from kivy.uix.camera import Camera
+
+            self.camera_view = Camera(play=True, size_hint_y=1)
+            box.add_widget(self.camera_view)
+            box.add_widget(Big(text="Take picture", size_hint_y=None, height=dp(64), on_release=lambda *_: self.snap()))
+            self.bind(on_dismiss=lambda *_: setattr(self.camera_view, "play", False))
         else:
             from kivy.uix.filechooser import FileChooserListView
 
@@ -92,6 +139,12 @@ class PhotoDialog(Popup):
 
         android_camera(self.photos.folder / "camera", taken)
 
+    def snap(self) -> None:  # pragma: no cover - no camera on these machines
+        try:
+            self.path.text = str(picture_from_camera(self.camera_view.texture, self.photos.folder / "camera"))
+        except BaulkError as exc:
+            self.problem.text = f"PROBLEM: {exc}"
+
     def keep(self) -> None:
         if not self.path.text.strip():
             self.problem.text = "PROBLEM: choose the picture's file first (or take one with the camera)"
@@ -103,5 +156,8 @@ class PhotoDialog(Popup):
         except BaulkError as exc:
             self.problem.text = f"PROBLEM: {exc}"
             return
+        taken = Path(self.path.text.strip())
+        if taken.parent == self.photos.folder / "camera":  # a camera's frame: kept by hash now, the frame goes
+            taken.unlink(missing_ok=True)
         self.dismiss()
         self.on_kept(photo)

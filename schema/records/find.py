@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import uuid
-from typing import Annotated
+from typing import Annotated, Any
 
 from pydantic import Field, ValidationInfo, model_validator
 
@@ -64,6 +64,15 @@ class FindBase(Record):
     voided: bool = False
     void_reason: str | None = Field(default=None, max_length=500)
     label_printed_at: Timestamp | None = None
+
+    @classmethod
+    def allowed_values(cls, field: str, data: dict[str, Any]) -> tuple[str, ...] | None:
+        """The values a field may take given the rest of the record: a material from its category's list (used
+        by ``check`` when the material is missing, so a sample is never offered an artifact's material)."""
+        category = data.get("category")
+        if field == "material" and category in vocab.MATERIALS:
+            return vocab.materials_for(category)
+        return None
 
     @model_validator(mode="after")
     def _consistent(self, info: ValidationInfo) -> "FindBase":

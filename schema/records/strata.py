@@ -90,11 +90,16 @@ class RelationBase(Record):
     upper_unit_id: Annotated[uuid.UUID, Ref("unit")]
     lower_unit_id: Annotated[uuid.UUID, Ref("unit")]
     kind: vocab.RelationKind
+    voided: bool = Field(default=False, description="voided relations are kept but left out of the matrix")
+    void_reason: str | None = Field(default=None, max_length=500, description="why the relation was voided",
+                                    examples=["recorded the wrong way round; 102 lies under 103"])
 
     @model_validator(mode="after")
     def _not_self(self) -> "RelationBase":
         if self.upper_unit_id == self.lower_unit_id:
             raise FieldError("lower_unit_id", "a unit cannot be related to itself", "choose two different units")
+        if self.voided and not self.void_reason:
+            raise FieldError("void_reason", "a voided relation has no void_reason", "say why it was voided")
         return self
 
 

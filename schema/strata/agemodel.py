@@ -63,7 +63,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from ..records import AgeDetermination, Horizon, Unit
 from .data import SiteData
-from .dating import age_brackets, age_issues
+from .dating import age_brackets, age_issues, date_words
 from .geometry import Surface
 from .graph import reachability, strongly_connected, topological_order, transitive_reduction
 from .matrix import Matrix, build_matrix
@@ -355,7 +355,7 @@ def combine_dates(ages: Sequence[float], sigmas: Sequence[float]) -> tuple[float
 
 
 def _lab(a: AgeDetermination) -> str:
-    return a.lab_code or f"date {str(a.id)[:8]}"
+    return date_words(a)
 
 
 def _order_matrix(matrix: Matrix, horizons: list[Horizon], dated: set[uuid.UUID]) -> tuple[Matrix, list[str]]:
@@ -428,7 +428,7 @@ def _reconcile(matrix: Matrix, ages: list[AgeDetermination]) -> tuple[list[AgeDe
     kept = [a for a in ages if a.unit_id in matrix.group_of]
     for a in ages:
         if a.unit_id not in matrix.group_of:
-            out(a, f"{_lab(a)} names unit {a.unit_id}, which is not recorded; correct the date's unit")
+            out(a, f"{_lab(a)} names a unit that is not recorded; correct the date's unit")
     while True:
         found = [i for i in age_issues(matrix, kept) if i.code == "AGE_CONTRADICTION"]
         if not found:

@@ -32,7 +32,7 @@ from .graph import reachability, strongly_connected, topological_order
 from .matrix import Matrix
 
 __all__ = ["Bracket", "Brackets", "HorizonBracket", "age_brackets", "age_issues", "bracket_units",
-           "horizon_age_brackets", "horizon_brackets"]
+           "date_words", "horizon_age_brackets", "horizon_brackets"]
 
 K = 2.0  # sigmas: a two-sigma range, about 95 % for a normal error
 
@@ -205,15 +205,25 @@ def horizon_brackets(brackets: dict[uuid.UUID, Bracket], matrix: Matrix,
             for h, b in horizon_age_brackets(wrapped, matrix, horizons).items()}
 
 
+def date_words(a: AgeDetermination) -> str:
+    """A laboratory date as people name it: its lab code, or (with none) its method and age,
+    e.g. ``luminescence date 120 +- 8 ka``; never an internal id."""
+    return a.lab_code or f"{a.method.replace('_', '-')} date {a.age_ka:g} +- {a.sigma_ka:g} ka"
+
+
+def _date_label(a: AgeDetermination) -> str:
+    return f"date {a.lab_code}" if a.lab_code else date_words(a)
+
+
 def age_issues(matrix: Matrix, ages: list[AgeDetermination]) -> list[Issue]:
     """Dates that contradict the matrix beyond both two-sigma ranges, and dates on unknown units."""
     out: list[Issue] = []
     known = [a for a in ages if a.unit_id in matrix.group_of]
     for a in ages:
         if a.unit_id not in matrix.group_of:
-            out.append(issue("AGE_UNKNOWN_UNIT", "age_determination", a.id, f"date {a.lab_code or str(a.id)[:8]}",
-                             f"date {a.lab_code or a.id} ({a.age_ka:g} +- {a.sigma_ka:g} ka) names a unit that is not recorded",
-                             "correct the date's unit"))
+            out.append(issue("AGE_UNKNOWN_UNIT", "age_determination", a.id, _date_label(a),
+                             _date_label(a) + ("" if a.lab_code is None else f" ({a.age_ka:g} +- {a.sigma_ka:g} ka)")
+                             + " names a unit that is not recorded", "correct the date's unit", detail=str(a.unit_id)))
     if matrix.below is None:
         return out
     for upper in known:
@@ -223,7 +233,7 @@ def age_issues(matrix: Matrix, ages: list[AgeDetermination]) -> list[Issue]:
                 uu, ul = matrix.units[upper.unit_id], matrix.units[lower.unit_id]
                 out.append(issue(
                     "AGE_CONTRADICTION", "age_determination", upper.id,
-                    f"date {upper.lab_code or str(upper.id)[:8]} on unit {uu.code}",
+                    f"{_date_label(upper)} on unit {uu.code}",
                     f"unit {uu.code} is dated {upper.age_ka:g} +- {upper.sigma_ka:g} ka but lies above unit {ul.code}, "
                     f"dated {lower.age_ka:g} +- {lower.sigma_ka:g} ka: the upper date is older beyond both 2-sigma ranges",
                     "check for reworked material in the upper sample, a mislabelled sample, or the relations",

@@ -62,22 +62,26 @@ def _merge_same_as(units: dict[uuid.UUID, Unit], relations: list[Relation]) -> d
 
 
 def _rel_label(r: Relation, units: dict[uuid.UUID, Unit]) -> str:
-    name = lambda u: units[u].code if u in units else str(u)  # noqa: E731
+    name = lambda u: units[u].code if u in units else "(a unit not recorded)"  # noqa: E731
     return f"{name(r.upper_unit_id)} {r.kind.replace('_', ' ')} {name(r.lower_unit_id)}"
 
 
 def build_matrix(units: Iterable[Unit], relations: Iterable[Relation]) -> Matrix:
-    """Merge, check and reduce the matrix of one site; every problem becomes an issue, never an exception."""
+    """Merge, check and reduce the matrix of one site; every problem becomes an issue, never an exception.
+    Voided relations are left out (they are kept, and exported as voided, but no longer observed)."""
     units_by_id = {u.id: u for u in units}
     rels: list[Relation] = []
     issues: list[Issue] = []
     for r in relations:
+        if r.voided:
+            continue
         missing = [u for u in (r.upper_unit_id, r.lower_unit_id) if u not in units_by_id]
         if missing:
             issues.append(issue(
                 "MATRIX_UNKNOWN_UNIT", "relation", r.id, f"relation {_rel_label(r, units_by_id)}",
-                f"relation {_rel_label(r, units_by_id)} names unit {missing[0]}, which is not recorded",
-                "record that unit, or correct or void the relation", value=str(missing[0]),
+                f"relation {_rel_label(r, units_by_id)} names a unit that is not recorded at this site",
+                "record that unit (or sync the tablet that recorded it), or void the relation with a reason",
+                detail=str(missing[0]),
             ))
             continue
         rels.append(r)
@@ -133,7 +137,8 @@ def _cycles_and_reduction(m: Matrix, edge_relations: dict[tuple[uuid.UUID, uuid.
         m.issues.append(issue(
             "MATRIX_CYCLE", "unit", min(comp, key=m.label), "units " + ", ".join(labels),
             f"units {', '.join(labels)} go round in a circle: each is recorded both above and below another",
-            "check the relations between these units on site and correct the wrong one",
+            "check the relations between these units on site and void the wrong one with a reason "
+            "(Units screen: choose the unit, then Void beside the relation)",
             value=len(comp), detail=",".join(rel_ids),
         ))
         for (a, b), rs in edge_relations.items():

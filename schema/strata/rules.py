@@ -206,14 +206,33 @@ def _numbers(data: SiteData) -> list[Issue]:
     f = data.finds
     uniq, counts = np.unique(f.number, return_counts=True)
     out = []
+    codes = {u.id: u.code for u in data.units}
+    zone = _zone(data)
     for number in uniq[counts > 1]:
-        ids = [f.id[i] for i in np.flatnonzero(f.number == number)]
+        rows = list(np.flatnonzero(f.number == number))
+        ids = [f.id[i] for i in rows]
+        seen = "; ".join(_find_words(f, i, codes, zone) for i in rows)
         for other in ids[1:]:
             out.append(issue("NUMBER_DUPLICATE", "find", other, _label(int(number)),
-                             f"find number {number} is used by {len(ids)} finds ({', '.join(str(x)[:8] for x in ids)})",
+                             f"find number {number} is used by {len(ids)} finds ({seen})",
                              "keep the number on one find and give the others new numbers from their tablets' blocks "
                              "(a voided find keeps its number)", value=int(number), detail=str(ids[0])))
     return out
+
+
+def _zone(data: SiteData) -> dt.tzinfo:
+    try:
+        return zoneinfo.ZoneInfo(data.site.timezone)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        return dt.timezone.utc
+
+
+def _find_words(f: Any, i: int, codes: dict[uuid.UUID, str], zone: dt.tzinfo) -> str:
+    """One find as a recorder tells it apart from another of the same number: its unit and when it was found
+    (in the site's time zone), and whether it is voided."""
+    when = dt.datetime.fromtimestamp(float(f.found_epoch_s[i]), zone).strftime("%Y-%m-%d %H:%M")
+    words = f"in unit {codes.get(f.unit_id[i], 'not recorded')}, found {when}"
+    return words + (", voided" if f.voided[i] else "")
 
 
 def horizon_issues(data: SiteData, matrix: Matrix) -> list[Issue]:
@@ -256,9 +275,11 @@ def horizon_issues(data: SiteData, matrix: Matrix) -> list[Issue]:
 def level_issues(data: SiteData) -> list[Issue]:
     known = {u.id for u in data.units}
     return [
-        issue("LEVEL_UNKNOWN_UNIT", "level_point", lp.id, f"level point {str(lp.id)[:8]}",
-              f"a {lp.surface} level point at E {lp.e:.3f} N {lp.n:.3f} names unit {lp.unit_id}, which is not recorded",
-              "record the unit, or correct the level point's unit", value=str(lp.unit_id))
+        issue("LEVEL_UNKNOWN_UNIT", "level_point", lp.id, f"{lp.surface} level at E {lp.e:.3f} N {lp.n:.3f}",
+              f"a {lp.surface} level point at E {lp.e:.3f} N {lp.n:.3f} Z {lp.z:.3f} names a unit that is not "
+              "recorded at this site",
+              "record the unit (or sync the tablet that recorded it), or correct the level point's unit",
+              detail=str(lp.unit_id))
         for lp in data.level_points if lp.unit_id not in known
     ]
 

@@ -1,11 +1,16 @@
 """The day's download from the instrument's own data collector, matched to finds: pure functions over text and
-records (the command reads the files and writes the result, ``sync_server/survey_jobs.py``).
+records. The server's ``baulk survey attach`` (``sync_server/survey_jobs.py``) and the tablet's Day screen
+(``mobile/controllers/attach.py``) read the file, call these, and write the result through their own save paths.
 
 A download is a CSV with a header, or lines in an instrument line template. Each point is either raw (hz,
 zenith, slope distance: reduced here through the setup, like a shot on the tablet) or reduced (e, n, z: the
-instrument's own coordinates). A reduced point is kept as the shot the setup would have read on it
-(``readings_for``, the exact inverse of the reduction), so the find's position still comes from a kept shot and
-is recomputed with it when the setup is corrected; the point's own line is kept as the shot's raw line.
+instrument's own coordinates).
+
+A raw point becomes the find's shot (its line kept as the shot's raw line) and the find's position is what the
+setup reduces it to; a corrected setup moves it again. A reduced point is kept as what it is, a position the
+instrument computed: the find takes its E, N, Z exactly, with no shot (Baulk never saw the readings, and
+readings back-computed through a setup would pose as observations and move the point when a setup the
+instrument never used is corrected); ``reduced_note`` says so in the find's notes, with the point's line.
 
 A point matches the find whose number it carries (after an optional prefix, leading zeros ignored). A match that
 would move a find by more than ``max_move_m`` is held until confirmed; nothing is guessed.
@@ -22,10 +27,9 @@ from typing import Any, Iterable
 from ..errors import InputFileInvalid, InstrumentLineInvalid
 from . import templates as tpl
 from .polar import Station, reduce_shots
-from .simulate import readings_for
 
-__all__ = ["COLUMNS", "AttachPlan", "DownloadPoint", "Match", "plan_attach", "read_download_csv",
-           "read_download_lines"]
+__all__ = ["COLUMNS", "AttachPlan", "DownloadPoint", "Match", "find_number", "plan_attach", "read_download",
+           "read_download_csv", "read_download_lines", "reduced_note"]
 
 COLUMNS = ("point", "hz", "zenith", "slope_distance", "target_height", "prism_constant_mm", "e", "n", "z")
 """What a download column may hold (``--column WHAT=HEADER`` names the header of each)."""
@@ -177,14 +181,15 @@ def read_download_lines(text: str, *, source: str, template: tpl.Template, setup
 
 @dataclass(frozen=True)
 class Match:
-    """A point matched to a find: the readings to keep as its shot, where it puts the find, how far it moves it."""
+    """A point matched to a find: the readings to keep as its shot (None for a reduced point: it has none), where
+    it puts the find, how far it moves it."""
 
     point: DownloadPoint
     find_id: uuid.UUID
     number: int
-    hz: float
-    zenith: float
-    slope_distance_m: float
+    hz: float | None
+    zenith: float | None
+    slope_distance_m: float | None
     e: float
     n: float
     z: float
@@ -217,9 +222,10 @@ def plan_attach(
     points: Iterable[DownloadPoint], finds: Iterable[Any], station: Station, *, prefix: str = "",
     max_move_m: float = 0.10, confirm_moves: bool = False, held_lines: dict[uuid.UUID, str | None] | None = None,
 ) -> AttachPlan:
-    """Match points to finds (records with ``id, number, e, n, z, voided, recovery, position_source``) and reduce
-    them through ``station``. ``held_lines`` gives the raw line of each find's current shot (a point attached
-    again is then reported as the same, not written twice)."""
+    """Match points to finds (records with ``id, number, e, n, z, voided, recovery, position_source, shot_id``)
+    and reduce the raw points through ``station`` (a reduced point keeps the instrument's E, N, Z exactly).
+    ``held_lines`` gives the raw line of each find's current shot (a point attached again is then reported as the
+    same, not written twice)."""
     points = list(points)
     by_number: dict[int, list[Any]] = {}
     for f in finds:
@@ -240,29 +246,47 @@ def plan_attach(
             plan.unmatched.append((p, f"find number {number} is held by {len(live)} finds; settle the duplicate first"))
         else:
             raw_points.append((p, live[0]))
-    if raw_points:
-        readings = [_readings(p, station) for p, _f in raw_points]
-        r = reduce_shots(station, [x[0] for x in readings], [x[1] for x in readings], [x[2] for x in readings],
-                         [p.target_height_m for p, _f in raw_points], [p.prism_constant_mm for p, _f in raw_points])
-        for (p, f), (hz, zen, sd), e, n, z in zip(raw_points, readings, r.e, r.n, r.z):
-            was = (f.e, f.n, f.z) if f.e is not None and f.n is not None and f.z is not None else None
-            move = math.dist(was, (e, n, z)) if was else None
+    raw = [(p, f) for p, f in raw_points if p.kind == "raw"]
+    if raw:
+        r = reduce_shots(station, [p.hz for p, _f in raw], [p.zenith for p, _f in raw],
+                         [p.slope_distance_m for p, _f in raw], [p.target_height_m for p, _f in raw],
+                         [p.prism_constant_mm for p, _f in raw])
+        at = {id(p): (float(e), float(n), float(z)) for (p, _f), e, n, z in zip(raw, r.e, r.n, r.z)}
+    for p, f in raw_points:
+        was = (f.e, f.n, f.z) if f.e is not None and f.n is not None and f.z is not None else None
+        if p.kind == "raw":
+            (e, n, z), readings = at[id(p)], (p.hz, p.zenith, p.slope_distance_m)
+        else:  # the instrument's own coordinates, taken as they are
+            (e, n, z), readings = (p.e, p.n, p.z), (None, None, None)  # type: ignore[assignment]
+        move = math.dist(was, (e, n, z)) if was else None
+        if p.kind == "raw":
             same = held_lines.get(f.id) == p.raw_line and move is not None and move < 1e-6
-            m = Match(p, f.id, f.number, hz, zen, sd, float(e), float(n), float(z), was, move, same)
-            matched.add(f.id)
-            if move is not None and move > max_move_m and not confirm_moves:
-                plan.held.append(m)
-            else:
-                plan.matches.append(m)
+        else:
+            same = move == 0.0 and f.position_source == "total_station" and getattr(f, "shot_id", None) is None
+        m = Match(p, f.id, f.number, *readings, e, n, z, was, move, same)
+        matched.add(f.id)
+        if move is not None and move > max_move_m and not confirm_moves:
+            plan.held.append(m)
+        else:
+            plan.matches.append(m)
     plan.finds_without_point = sorted(
         f.number for fs in by_number.values() for f in fs
         if not f.voided and f.recovery == "plotted" and f.position_source == "none" and f.id not in matched)
     return plan
 
 
-def _readings(p: DownloadPoint, station: Station) -> tuple[float, float, float]:
-    """The raw readings of a point: as read, or (reduced point) those the setup would read on its coordinates."""
-    if p.kind == "raw":
-        return p.hz, p.zenith, p.slope_distance_m
-    hz, zen, sd = readings_for(station, p.e, p.n, p.z, p.target_height_m)  # type: ignore[arg-type]
-    return float(hz[0]), float(zen[0]), float(sd[0])
+def reduced_note(point: DownloadPoint, source: str) -> str:
+    """What a find's notes keep of a reduced point: that the instrument computed the position, and its line."""
+    line = point.raw_line if len(point.raw_line) <= 300 else point.raw_line[:300] + "..."
+    return f"[position reduced by the instrument: point {point.point}, line {point.line} of {source}: {line}]"
+
+
+def read_download(
+    text: str, *, source: str, setup_unit: str, template: tpl.Template | None = None,
+    columns: dict[str, str] | None = None, angle_unit: str | None = None, target_height_m: float | None = None,
+) -> list[DownloadPoint]:
+    """The points of a download: instrument lines through ``template`` when given, else a CSV with a header."""
+    if template is not None:
+        return read_download_lines(text, source=source, template=template, setup_unit=setup_unit)
+    return read_download_csv(text, source=source, setup_unit=setup_unit, columns=columns, angle_unit=angle_unit,
+                             target_height_m=target_height_m)

@@ -41,7 +41,7 @@ from ..errors import InstrumentLineInvalid, TemplateInvalid
 __all__ = [
     "ANGLE_UNITS", "BUILT_IN", "DISTANCE_UNITS", "Decoded", "Field", "Observation", "Template", "angle_from_text",
     "angle_text", "checksum", "decode", "encode", "from_degrees", "load_template", "parse_template", "places",
-    "template_named", "to_degrees", "wire",
+    "template_document", "template_named", "to_degrees", "wire",
 ]
 
 # Angle units and their full circle. deg: 360; gon: 400 (ISO 80000-3, "gon"); mil: 6400 (the NATO mil,
@@ -670,6 +670,22 @@ def _check_fields(t: Template) -> None:
             for g in others:
                 if f.start < g.start + g.width and g.start < f.start + f.width:  # type: ignore[operator]
                     raise _fail(src, where, f"its characters overlap those of the {LABEL[g.what]}; check start and width")
+
+
+def template_document(t: Template) -> dict[str, Any]:
+    """The document (a TOML file's tables as a dict) that ``parse_template`` reads back into ``t``: what the
+    tablet keeps of the template it was started with, so the file itself may move or go."""
+    doc: dict[str, Any] = {
+        "name": t.name, "style": t.style, "separator": t.separator, "terminator": t.terminator,
+        "angle_unit": t.angle_unit, "distance_unit": t.distance_unit, "code_width": t.code_width, "gap": t.gap,
+        "implied_decimals": t.implied_decimals, "prism_constant_mm": t.prism_constant_mm,
+        "checksum": {"kind": t.checksum, "from": t.checksum_from,
+                     **({"mark": t.checksum_mark} if t.checksum_mark is not None else {})},
+        "field": [{k: v for k, v in f.__dict__.items() if v is not None} for f in t.fields],
+    }
+    if t.target_height_m is not None:
+        doc["target_height_m"] = t.target_height_m
+    return doc
 
 
 def template_named(name: str) -> Template:

@@ -28,5 +28,6 @@ def download(request: Request, _device: Reader, background: BackgroundTasks,
     manifest) and download it as ``baulk-export.zip``."""
     work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
     background.add_task(shutil.rmtree, work, True)  # removed once sent
-    archive = export_zip(request.app.state.store, work, seasons=seasons or None, strict=strict)
+    archive = export_zip(request.app.state.store, work, seasons=seasons or None, strict=strict,
+                         photos_dir=request.app.state.photos.root)  # the running server's photo folder
     return FileResponse(archive, media_type="application/zip", filename="baulk-export.zip")

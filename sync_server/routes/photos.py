@@ -6,7 +6,9 @@ where the upload stands; 415 for another content type). Every request and answer
 ``Tus-Resumable: 1.0.0``; another version is answered 412 with ``Tus-Version``. The upload's URL is the photo's
 hash, so a tablet that lost everything but the file can resume. When the last byte is in, the file is hashed:
 bytes that do not hash to their name are discarded and answered 460 (the status the tus "Checksum" extension
-gives a checksum mismatch).
+gives a checksum mismatch). The creation request may carry the first chunk (the tus "Creation With Upload"
+extension), so a photo that fits in one chunk takes one request; ``/missing`` says which uploads were begun
+already, so a tablet resumes those with PATCH from where they stand and sends nothing twice.
 """
 
 from __future__ import annotations
@@ -42,6 +44,7 @@ _TUS_PARAM = {"parameters": [{"name": "Tus-Resumable", "in": "header", "required
                                                                                        "enum": [TUS_VERSION]}}]}
 _CHUNK_BODY = {**_TUS_PARAM, "requestBody": {"required": True, "content": {"application/offset+octet-stream": {
     "schema": {"type": "string", "format": "binary"}}}}}
+_CHUNK_BODY_OPTIONAL = {**_CHUNK_BODY, "requestBody": {**_CHUNK_BODY["requestBody"], "required": False}}
 
 _TUS = {"Tus-Resumable": {"description": "the tus protocol version: 1.0.0", "schema": {"type": "string"}}}
 _OFFSET = {**_TUS, "Upload-Offset": {"description": "bytes of the photo the server holds", "schema": {"type": "integer"}}}
@@ -58,6 +61,9 @@ class MissingAsk(BaseModel):
 
 class MissingAnswer(BaseModel):
     missing: list[str] = Field(description="the hashes of those photos whose files this server does not hold")
+    begun: dict[str, int] = Field(default_factory=dict, description="of those, the uploads already begun: hash -> "
+                                  "bytes held (resume them with PATCH from there; the others may send their first "
+                                  "chunk with the creation request)")
     max_chunk_bytes: int = Field(description="the largest chunk (PATCH body) this server takes")
 
 
@@ -100,30 +106,81 @@ def _has_record(request: Request, sha: str) -> bool:
 @router.post("/missing", response_model=MissingAnswer)
 def missing(request: Request, body: MissingAsk, _device: Uploader) -> MissingAnswer:
     """Which of these photo files the camp server lacks (the tablet uploads those, after its versions)."""
-    return MissingAnswer(missing=_vault(request).missing(body.hashes),
-                         max_chunk_bytes=request.app.state.max_body_bytes)
+    vault = _vault(request)
+    lacking = vault.missing(body.hashes)
+    return MissingAnswer(missing=lacking, begun=vault.begun(lacking), max_chunk_bytes=request.app.state.max_body_bytes)
 
 
 @router.post("/uploads", status_code=201, responses={
-    201: {"description": "the upload exists; its URL is in Location", "headers": {**_OFFSET, "Location": {
-        "description": "the upload's URL", "schema": {"type": "string"}}}},
+    201: {"description": "the upload exists (with the first chunk written when one was sent and it stood at 0); "
+          "its URL is in Location", "headers": {**_OFFSET, "Location": {
+              "description": "the upload's URL", "schema": {"type": "string"}}}},
     404: {"description": "no photo record names this hash: push the versions first", **_ERR},
-    412: {"description": "another tus version", **_ERR}}, openapi_extra=_TUS_PARAM)
-def create_upload(request: Request, _device: Uploader,
-                  upload_length: Annotated[int, Header(alias="Upload-Length", ge=1, le=MAX_PHOTO_BYTES)],
-                  upload_metadata: Annotated[str, Header(alias="Upload-Metadata", pattern=r"^sha256 [A-Za-z0-9+/]{86}==$",
-                                                         description="sha256 <base64 of the photo's 64-digit hash>")],
-                  ) -> Response:
+    412: {"description": "another tus version", **_ERR},
+    415: {"description": "a first chunk that is not application/offset+octet-stream", **_ERR},
+    422: {"description": "the complete file is not a whole image (discarded)", **_ERR},
+    460: {"description": "the complete file does not hash to the photo's SHA-256 (discarded: start again)", **_ERR}},
+    openapi_extra=_CHUNK_BODY_OPTIONAL)
+async def create_upload(request: Request, _device: Uploader,
+                        upload_length: Annotated[int, Header(alias="Upload-Length", ge=1, le=MAX_PHOTO_BYTES)],
+                        upload_metadata: Annotated[str, Header(alias="Upload-Metadata", pattern=r"^sha256 [A-Za-z0-9+/]{86}==$",
+                                                               description="sha256 <base64 of the photo's 64-digit hash>")],
+                        ) -> Response:
     """Begin (or find again) the upload of one photo file: ``Upload-Length`` its size, ``Upload-Metadata``
-    ``sha256 <base64 of the hash>``."""
+    ``sha256 <base64 of the hash>``; the body may carry the first chunk (tus "Creation With Upload"), written
+    only when the upload stands at byte 0 (``Upload-Offset`` in the answer says what was kept)."""
     if (refused := _version_refused(request)) is not None:
         return refused
     sha = _metadata_hash(upload_metadata)
-    if sha is None or not _has_record(request, sha):
-        raise RecordNotFound(f"no photo record names the file {sha}; push the tablet's versions before its photos")
-    state = _vault(request).begin(sha, upload_length)
+    vault = _vault(request)
+    try:  # an upload whose every byte is in but which was not kept (a power cut lost the rename) is finished here
+        state = await run_in_threadpool(_begin, request, vault, sha, upload_length)
+    except PhotoError as exc:
+        return _refusal(exc)
+    if _sends_body(request) and state.offset == 0 and not state.complete:
+        answer = await _receive(request, vault, sha, 0)
+        if not isinstance(answer, UploadState):
+            return answer
+        state = answer
     answer = Response(status_code=201, headers={"Location": f"/v1/photos/uploads/{sha}"})
     return _tus(answer, state)
+
+
+def _begin(request: Request, vault: PhotoVault, sha: str | None, length: int) -> UploadState:
+    if sha is None or not _has_record(request, sha):
+        raise RecordNotFound(f"no photo record names the file {sha}; push the tablet's versions before its photos")
+    return vault.finish(sha, vault.begin(sha, length))
+
+
+def _sends_body(request: Request) -> bool:
+    length = request.headers.get("content-length")
+    return (length is not None and length != "0") or "chunked" in request.headers.get("transfer-encoding", "")
+
+
+async def _receive(request: Request, vault: PhotoVault, sha: str, offset: int) -> UploadState | JSONResponse:
+    """Write the request's body at ``offset`` as it streams in (hashed on the way), then finish the upload when it
+    is complete; the new state, or the refusal to answer."""
+    content_type = request.headers.get("content-type", "")
+    if content_type.split(";")[0].strip().lower() != "application/offset+octet-stream":
+        return _refused(415, "UnsupportedMediaType", "send the chunk as 'Content-Type: application/offset+octet-stream'")
+    try:
+        with vault.receiving(sha, offset) as chunk:
+            async for piece in request.stream():
+                chunk.write(piece)
+        return await run_in_threadpool(vault.finish, sha, chunk.state())
+    except (PhotoError, RecordNotFound) as exc:
+        return _refusal(exc)
+
+
+def _refusal(exc: PhotoError | RecordNotFound) -> JSONResponse:
+    """The tus answer to an upload refused: 409 wrong offset, 404 none begun, 460 wrong hash, 422 not an image."""
+    if isinstance(exc, OffsetMismatch):
+        return _refused(409, "OffsetMismatch", str(exc))
+    if isinstance(exc, RecordNotFound):
+        return _refused(404, "RecordNotFound", str(exc))
+    if isinstance(exc, UploadMismatch):
+        return _refused(460, "UploadMismatch", str(exc))
+    return _refused(422, type(exc).__name__, str(exc))
 
 
 def _metadata_hash(text: str) -> str | None:
@@ -168,23 +225,9 @@ async def append_chunk(request: Request, sha256: Sha, _device: Uploader,
     """Append one chunk of the photo's bytes at ``Upload-Offset``; the file is checked and kept after the last."""
     if (refused := _version_refused(request)) is not None:
         return refused
-    content_type = request.headers.get("content-type", "")
-    if content_type.split(";")[0].strip().lower() != "application/offset+octet-stream":
-        return _refused(415, "UnsupportedMediaType", "send the chunk as 'Content-Type: application/offset+octet-stream'")
-    vault = _vault(request)
-    try:
-        with vault.receiving(sha256, upload_offset) as chunk:
-            async for piece in request.stream():
-                chunk.write(piece)
-        state = await run_in_threadpool(vault.finish, sha256, chunk.state())
-    except OffsetMismatch as exc:
-        return _refused(409, "OffsetMismatch", str(exc))
-    except RecordNotFound as exc:
-        return _refused(404, "RecordNotFound", str(exc))
-    except UploadMismatch as exc:
-        return _refused(460, "UploadMismatch", str(exc))
-    except PhotoError as exc:
-        return _refused(422, type(exc).__name__, str(exc))
+    state = await _receive(request, _vault(request), sha256, upload_offset)
+    if not isinstance(state, UploadState):
+        return state
     return _tus(Response(status_code=204), state)
 
 

@@ -4,8 +4,8 @@ laboratory dates; add one, import a CSV by upload), **corrections** of a find (a
 or a unit (its own page: fields, horizon history, corrections), and **Site** (the site set-up: settings, seasons,
 control points with their grid residuals, trenches drawn on a small plan).
 
-Every change calls one function of ``sync_server.curation`` (or nothing), then validation re-runs in a
-background task (``app.state.revalidate``). Managers write; analysts see the same pages without forms. A refused
+Every change calls one function of ``sync_server.curation`` (or nothing); its versioned save counts the change,
+so validation re-runs after the answer (``validation.RevalidateAfterAnswer``) without the page asking. Managers write; analysts see the same pages without forms. A refused
 form is shown again with the error naming the field, status 400, nothing written. Sessions, CSRF and page
 rendering are those of ``pages.py`` (imported, not copied); the find page's correction panel is filled by the
 template global ``find_corrections`` registered here on the shared templates.
@@ -22,7 +22,6 @@ from urllib.parse import parse_qs
 
 from fastapi import APIRouter, HTTPException, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
-from starlette.background import BackgroundTask
 
 from schema.errors import BaulkError, FieldProblem, RecordInvalid, RecordNotFound
 from schema.records import Find, Horizon, Trench, Unit
@@ -96,9 +95,9 @@ async def _manager_post(request: Request, action: str) -> tuple[Session, dict[st
 
 
 def _done(request: Request, where: str, note: str) -> Response:
-    """Back to the page with what was written; validation runs again once the answer is sent."""
-    return RedirectResponse(f"{where}?message={_q(note)}", status_code=303,
-                            background=BackgroundTask(request.app.state.revalidate))
+    """Back to the page with what was written; validation runs again once the answer is sent (the write counted
+    as a change: ``validation.RevalidateAfterAnswer``)."""
+    return RedirectResponse(f"{where}?message={_q(note)}", status_code=303)
 
 
 def _optional_int(name: str, text: str, fix: str) -> int | None:
@@ -311,8 +310,7 @@ async def find_correct(request: Request, find_id: str) -> Response:
                    "panel": _panel(request, session, "find", fid, f"/camp/finds/{fid}/correct", form=form,
                                    error=str(exc))}
         return templates.TemplateResponse(request, "find.html", context, status_code=400)
-    return RedirectResponse(f"/camp/finds/{fid}?corrected={_q(_summary(done))}", status_code=303,
-                            background=BackgroundTask(request.app.state.revalidate))
+    return RedirectResponse(f"/camp/finds/{fid}?corrected={_q(_summary(done))}", status_code=303)
 
 
 def _unit_page(request: Request, session: Session, unit_id: str, *, status: int = 200,
@@ -350,8 +348,7 @@ async def unit_correct(request: Request, unit_id: str) -> Response:
         done = _correct(request, session, "unit", found[0].code, form)
     except BaulkError as exc:
         return _unit_page(request, session, unit_id, status=400, form=form, error=str(exc))
-    return RedirectResponse(f"/camp/units/{found[0].id}?corrected={_q(_summary(done))}", status_code=303,
-                            background=BackgroundTask(request.app.state.revalidate))
+    return RedirectResponse(f"/camp/units/{found[0].id}?corrected={_q(_summary(done))}", status_code=303)
 
 
 # -- site -----------------------------------------------------------------------------------------------------

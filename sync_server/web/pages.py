@@ -589,7 +589,7 @@ def exports_download(request: Request, strict: bool = False) -> Response:
 
     _signed_in(request)
     work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
-    archive = export_zip(request.app.state.store, work, strict=strict)
+    archive = export_zip(request.app.state.store, work, strict=strict, photos_dir=request.app.state.photos.root)
 
     return FileResponse(archive, media_type="application/zip", filename="baulk-export.zip",
                         background=BackgroundTask(shutil.rmtree, work, True))

@@ -234,7 +234,7 @@ def test_units_relations_and_matrix_checks(field):  # type: ignore[no-untyped-de
                             "texture": "loamy_sand"})
     ok = units.relate(upper="106", lower="105", kind="fills")
     assert ok.issues == []
-    assert units.relations("105") == [("lower", "fills", "106")]
+    assert [(r.upper, r.kind, r.lower, r.voided) for r in units.relations("105")] == [("106", "fills", "105", False)]
     # 101 over 106 over ... 101: a cycle is shown at once, not refused
     units.relate(upper="105", lower="101", kind="cuts")
     cyc = units.relate(upper="101", lower="106", kind="above")
@@ -243,6 +243,38 @@ def test_units_relations_and_matrix_checks(field):  # type: ignore[no-untyped-de
     closed = units.save_unit({"status": "closed"}, code=fill.code)
     assert closed.status == "closed" and closed.closed_on == days.day.now().date()
     assert store.list(Unit, code="106")[0].status == "closed"
+
+
+def test_a_wrong_relation_is_voided_with_a_reason(field):  # type: ignore[no-untyped-def]
+    """Issue 18 item 12: the cycle's fix points at Void; voiding the wrong relation ends the cycle, the relation is
+    kept (voided, with its reason, as a new version that syncs) and listed as voided."""
+    from schema.sync.tables import field_version
+    import sqlalchemy as sa
+
+    store, _demo, days, _sim = field
+    units = UnitsController(store, days)
+    units.save_unit({"code": "150", "kind": "deposit"})
+    units.relate(upper="150", lower="101", kind="above")
+    cyc = units.relate(upper="101", lower="150", kind="above")
+    (cycle,) = [i for i in cyc.issues if i.code == "MATRIX_CYCLE"]
+    assert "void the wrong one with a reason (Units screen: choose the unit, then Void beside the relation)" in cycle.fix
+    with pytest.raises(RecordInvalid) as exc:
+        units.void_relation(cyc.relation.id, "  ")
+    assert str(exc.value) == ("void of the relation refused, nothing was saved. reason: voiding a relation needs a "
+                              "reason. Fix: say why the relation is wrong, e.g. 'recorded the wrong way round'")
+    done = units.void_relation(cyc.relation.id, "101 is under 150: recorded the wrong way round")
+    assert "MATRIX_CYCLE" not in [i.code for i in done.issues]
+    assert done.line.words() == "VOIDED 101 above 150 (101 is under 150: recorded the wrong way round)"
+    kept = store.get(Relation, cyc.relation.id)
+    assert (kept.voided, kept.void_reason) == (True, "101 is under 150: recorded the wrong way round")
+    with store.read() as conn:  # the void is a field version like every edit, so it reaches the camp
+        fields = {r.field for r in conn.execute(sa.select(field_version.c.field)
+                                                 .where(field_version.c.record_id == cyc.relation.id))}
+    assert {"voided", "void_reason"} <= fields, fields
+    assert [(r.words(), r.voided) for r in units.relations("150")] == [
+        ("150 above 101", False), ("VOIDED 101 above 150 (101 is under 150: recorded the wrong way round)", True)]
+    with pytest.raises(RecordInvalid, match="it is already voided"):
+        units.void_relation(cyc.relation.id, "again")
 
 
 def test_find_list_filters(field):  # type: ignore[no-untyped-def]
@@ -474,3 +506,18 @@ def test_a_refused_void_or_confirmation_is_not_called_a_refused_find(field):  # 
     assert str(confirm.value).startswith("confirmation refused, nothing was saved. reason: a confirmation needs a reason")
     with pytest.raises(RecordInvalid, match="shot: no shot was taken for this find. Fix: tap Take shot"):
         finds.record(category="artifact", values={"material": "chert"}, position=Position("shot", shot_line=""))
+
+
+def test_a_sample_without_material_is_offered_only_sample_materials(field):  # type: ignore[no-untyped-def]
+    """Issue 18 item 11: the fix lists the sample materials from schema.vocab, never an artifact's material."""
+    from schema import vocab
+
+    store, _demo, days, sim = field
+    finds = FindController(store, days)
+    with pytest.raises(RecordInvalid) as exc:
+        finds.record(category="sample", values={"count": "1"},
+                     position=Position("shot", shot_line=sim.shot_line(1001, 2001, 99.8)))
+    (problem,) = exc.value.problems
+    assert problem.field == "material"
+    assert problem.fix == "add it: use one of: " + ", ".join(vocab.MATERIALS["sample"])
+    assert "obsidian" not in str(exc.value)

@@ -149,42 +149,40 @@ def test_the_simulator_writes_through_every_template_and_the_tablet_reads_it_bac
         assert (r.e[0], r.n[0], r.z[0]) == pytest.approx((e, n, z), abs=0.001), line
 
 
-def test_the_active_template_reads_instrument_lines_and_typed_lines_stay_bks() -> None:
-    from mobile.instruments import ShotFeed, active_template, typed_shot_line, use_template
+def test_the_tablets_template_reads_instrument_lines_and_typed_lines_stay_bks() -> None:
+    from mobile.instruments import ShotFeed, typed_shot_line
     from schema.survey import templates as tp
 
     fixed = tp.load_template(EXAMPLE_TEMPLATES / "fixed.toml")
     body = "    1012  123.4567   91.2345   123456  1300"
     line = body + tp.checksum("xor", body)
-    try:
-        use_template(fixed)
-        reading, unit = parse_shot_line(line)
-        assert (reading.hz, reading.zenith, reading.slope_distance_m, unit) == (123.4567, 91.2345, 12.3456, "gon")
-        assert reading.raw_line == line  # kept as received, leading spaces and checksum included
-        typed, _ = parse_shot_line(typed_shot_line("1", "90", "5", "1.3", angle_unit="deg"))
-        assert typed.slope_distance_m == 5.0
-        with pytest.raises(InstrumentLineInvalid, match="fixed-gon: the line"):
-            parse_shot_line("1012,45,90,5,1.3")
-        feed = ShotFeed()
-        assert feed.status() == ("Instrument template: fixed-gon (fixed, " + str(EXAMPLE_TEMPLATES / "fixed.toml")
-                                 + ")\nNo line read from the instrument yet.")
-        with pytest.raises(InstrumentLineInvalid, match="fixed-gon: the line 'garbage' has a wrong checksum"):
-            feed.take([line, "garbage"])  # the newest line is the one that counts
-        assert feed.status().splitlines()[1:] == [
-            "Last line: garbage",
-            f"NOT READ: fixed-gon: the line 'garbage' has a wrong checksum ('ge', expected {_xor('garba')}); the line "
-            "was garbled on the way: take the shot again",
-        ]
-        assert feed.take(["garbage", line]) == line
-        assert feed.take([]) is None
-        assert feed.status().splitlines()[1:] == [
-            f"Last line: {line}",
-            "Read as: point 1012, hz 123.4567 gon, zenith 91.2345 gon, slope distance 12.3456 m, target height "
-            "1.300 m, prism constant 0 mm",
-        ]
-    finally:
-        use_template(None)
-    assert active_template() is tp.BKS
+    reading, unit = parse_shot_line(line, template=fixed)
+    assert (reading.hz, reading.zenith, reading.slope_distance_m, unit) == (123.4567, 91.2345, 12.3456, "gon")
+    assert reading.raw_line == line  # kept as received, leading spaces and checksum included
+    typed, _ = parse_shot_line(typed_shot_line("1", "90", "5", "1.3", angle_unit="deg"), template=fixed)
+    assert typed.slope_distance_m == 5.0
+    with pytest.raises(InstrumentLineInvalid, match="fixed-gon: the line"):
+        parse_shot_line("1012,45,90,5,1.3", template=fixed)
+    assert ShotFeed().template is tp.BKS
+    feed = ShotFeed(fixed)
+    assert feed.status() == ("Instrument template: fixed-gon (fixed, " + str(EXAMPLE_TEMPLATES / "fixed.toml")
+                             + ")\nNo line read from the instrument yet.")
+    with pytest.raises(InstrumentLineInvalid, match="fixed-gon: the line 'garbage' has a wrong checksum"):
+        feed.take([line, "garbage"])  # the newest line is the one that counts
+    assert feed.status().splitlines()[1:] == [
+        "Last line: garbage",
+        f"NOT READ: fixed-gon: the line 'garbage' has a wrong checksum ('ge', expected {_xor('garba')}); the line "
+        "was garbled on the way: take the shot again",
+    ]
+    assert feed.take(["garbage", line]) == line
+    assert feed.take([]) is None
+    assert feed.status().splitlines()[1:] == [
+        f"Last line: {line}",
+        "Read as: point 1012, hz 123.4567 gon, zenith 91.2345 gon, slope distance 12.3456 m, target height "
+        "1.300 m, prism constant 0 mm",
+    ]
+    with pytest.raises(InstrumentLineInvalid, match="bks: "):  # no template given: BKS, never another's
+        parse_shot_line(line)
 
 
 def _xor(text: str) -> str:
@@ -215,3 +213,44 @@ def test_baulk_tablet_refuses_a_bad_template_before_the_app_opens(tmp_path: Path
     result = CliRunner().invoke(cli, ["tablet", "--store", str(tmp_path / "t.sqlite"), "--template", "nosuch"])
     assert result.exit_code == 1 and result.output.startswith("Error: nosuch: no such file; check the path")
     assert not (tmp_path / "t.sqlite").exists()  # nothing opened
+
+
+def test_the_tablet_file_remembers_its_template_and_the_controllers_read_through_it(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """``--template`` is remembered by the tablet file (the whole template: the file may go), a later start
+    without it reads with the same one, and the day's controller parses backsights through it."""
+    import shutil
+
+    from mobile.controllers import DayController
+    from mobile.settings import TEMPLATE_SETTING, instrument_template
+    from mobile.store import TabletStore
+    from schema.errors import TemplateInvalid
+    from schema.survey import templates as tp
+
+    own = tmp_path / "mine.toml"
+    shutil.copy(EXAMPLE_TEMPLATES / "words.toml", own)
+    words = tp.load_template(own)
+    with TabletStore.open(tmp_path / "t.sqlite") as store:
+        assert instrument_template(store) is tp.BKS  # nothing chosen yet
+        assert DayController(store, template=words).template == words
+    own.unlink()  # the file is gone; the tablet file kept the template itself
+    with TabletStore.open(tmp_path / "t.sqlite") as store:
+        days = DayController(store)
+        assert days.template == words and days.template.source == str(own)
+        line = tp.encode(words, tp.Observation(123.4567, 91.2345, 12.3456, 1.3, 0.0, "gon", "1012"))
+        reading, unit = parse_shot_line(line, template=days.template)
+        assert (reading.hz, reading.zenith, unit) == (123.4567, 91.2345, "gon")
+        assert instrument_template(store, tp.CSV) is tp.CSV  # a built-in is kept by its name
+        assert store.setting(TEMPLATE_SETTING) == '{"built_in": "csv"}'
+        assert DayController(store).template is tp.CSV
+        store.set_setting(TEMPLATE_SETTING, '{"source": "x.toml", "template": {"name": "x"}}')
+        with pytest.raises(TemplateInvalid, match="the instrument template this tablet file remembers cannot be "
+                                                   "read .*; start the tablet with --template FILE"):
+            DayController(store)
+
+
+@pytest.mark.parametrize("name", ["bks", "csv", "delimited", "fixed", "words"])
+def test_a_template_document_reads_back_as_the_same_template(name: str) -> None:
+    from schema.survey import templates as tp
+
+    t = tp.BUILT_IN[name] if name in tp.BUILT_IN else tp.load_template(EXAMPLE_TEMPLATES / f"{name}.toml")
+    assert tp.parse_template(tp.template_document(t), source=t.source) == t

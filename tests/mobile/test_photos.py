@@ -4,6 +4,7 @@ location tags gone from photos of possible human remains (EXIF read back by Pill
 from __future__ import annotations
 
 import hashlib
+import uuid
 import random
 from pathlib import Path
 from typing import Any
@@ -15,7 +16,7 @@ from mobile.controllers.photos import PhotoController
 from mobile.photos import photo_folder, photo_path
 from schema.demo_site import build_site
 from schema.errors import ImageTooLarge, RecordInvalid
-from schema.records import Photo
+from schema.records import Find, Photo
 from tests.helpers import demo_tablet, find_data, start_field_day
 
 GPS_IFD = 0x8825  # EXIF 2.32, table 4: the pointer to the GPS directory (from memory)
@@ -127,3 +128,86 @@ def test_a_failure_between_file_and_record_leaves_a_whole_file_and_no_record(day
     assert [p.read_bytes() for p in orphans(store)] == [source.read_bytes()]
     again = photos.keep(photos.of_unit(), source)  # taking it again reuses the file and numbers it 1
     assert again.number == 1 and orphans(store) == []
+
+
+def test_the_find_list_names_each_finds_newest_kept_photo_and_its_thumbnail(day: Any, tmp_path: Path) -> None:
+    """A row carries the hash of its find's newest photo that is not voided; its thumbnail is made from the file
+    the first time it is asked for and read back after; a photo whose file is on another tablet has none."""
+    import datetime as dt
+
+    from mobile.controllers.find_list import FindListController
+    from mobile.photos import THUMB_PIXELS
+
+    demo, store, _days, photos = day
+    listing = FindListController(store)
+    plain = store.save_find(find=find_data(demo, number=1))
+    shot = store.save_find(find=find_data(demo, number=2))
+    older = photos.keep(photos.of_find(shot.id, 2), picture(tmp_path, "a.jpg", seed=21))
+    newer = photos.keep(photos.of_find(shot.id, 2), picture(tmp_path, "b.jpg", seed=22, size=(200, 300)))
+    assert newer.taken_at >= older.taken_at
+    rows = {r["number"]: r for r in listing.rows()}
+    assert (rows[1]["photo"], rows[2]["photo"]) == ("", newer.sha256)
+    assert photos.newest(shot.id) == (newer, photo_folder(store) / "thumbs" / f"{newer.sha256}-{THUMB_PIXELS}.png")
+    assert photos.newest(plain.id) is None
+
+    thumb = Path(listing.thumbnail(newer.sha256))
+    with Image.open(thumb) as small:  # Pillow decodes the thumbnail: the picture's shape, no side over 256
+        assert small.format == "PNG" and small.size == (171, 256)  # 200 x 300 scaled by 256/300, 170.7 rounded
+    made = thumb.stat().st_mtime_ns
+    assert listing.thumbnail(newer.sha256) == str(thumb) and thumb.stat().st_mtime_ns == made  # made once
+    assert listing.thumbnail("") == ""
+
+    with store.atomic() as conn:  # the newer photo voided (blurred): the list falls back to the older one
+        store.save_versioned(conn, newer.model_copy(update={"voided": True, "void_reason": "blurred"}), new=False)
+    assert {r["number"]: r["photo"] for r in listing.rows()}[2] == older.sha256
+
+    # a photo record that came from another tablet: its file is not here, so no thumbnail (and no error)
+    elsewhere = Photo.model_validate({**older.model_dump(), "id": uuid.uuid4(), "sha256": "ab" * 32, "number": 7,
+                                      "taken_at": older.taken_at + dt.timedelta(minutes=5)})
+    with store.atomic() as conn:
+        store.save_versioned(conn, elsewhere, new=True)
+    assert {r["number"]: r["photo"] for r in listing.rows()}[2] == "ab" * 32
+    assert listing.thumbnail("ab" * 32) == ""
+    assert photos.newest(shot.id) == (elsewhere, None)
+
+
+def test_a_thumbnail_is_upright_by_the_exif_orientation(day: Any, tmp_path: Path) -> None:
+    """Pillow's ``ImageOps.exif_transpose`` is the reference for what upright means (EXIF 2.32, Orientation tag)."""
+    from PIL import ImageOps
+
+    _demo, store, _days, photos = day
+    img = Image.new("RGB", (400, 100), (240, 240, 240))
+    img.paste((200, 20, 20), (0, 0, 100, 100))  # a red square at the left end
+    exif = Image.Exif()
+    exif[0x0112] = 8  # rotate 90 degrees counter-clockwise to view
+    source = tmp_path / "turned.jpg"
+    img.save(source, format="JPEG", quality=95, exif=exif)
+    kept = photos.keep(photos.of_unit(), source)
+    with Image.open(source) as original:
+        upright = ImageOps.exif_transpose(original).convert("RGB")
+    with Image.open(photos.thumbnail(kept)) as small:
+        small = small.convert("RGB")
+        assert small.size == (64, 256) and upright.size == (100, 400)
+        ours = small.resize((1, 4), Image.Resampling.BOX).get_flattened_data()
+        reference = upright.resize((1, 4), Image.Resampling.BOX).get_flattened_data()
+        assert max(abs(a - b) for pa, pb in zip(ours, reference) for a, b in zip(pa, pb)) < 12
+        assert ours[3][0] > 150 and ours[3][1] < 80  # orientation 8: the left end comes to the bottom
+
+
+def test_a_photo_of_a_find_adds_its_hash_to_the_finds_photo_hashes_once(day: Any, tmp_path: Path) -> None:
+    """``Find.photo_hashes`` (read by exports and sync) follows the photo records: each new hash is one 'add'
+    version of the set field, written in the photo record's transaction; the same picture again adds nothing."""
+    from schema.sync.replica import record_versions
+
+    demo, store, _days, photos = day
+    found = store.save_find(find=find_data(demo, number=1))
+    first = photos.keep(photos.of_find(found.id, 1), picture(tmp_path, "a.jpg", seed=31))
+    second = photos.keep(photos.of_find(found.id, 1), picture(tmp_path, "b.jpg", seed=32))
+    again = photos.keep(photos.of_find(found.id, 1), picture(tmp_path, "a.jpg", seed=31))  # the same file twice
+    assert again.sha256 == first.sha256 and again.number == 3
+    assert store.get(Find, found.id).photo_hashes == [first.sha256, second.sha256]
+    with store.read() as conn:
+        adds = [v.value for v in record_versions(conn, [found.id]) if v.field == "photo_hashes"]
+    assert adds == [{"op": "add", "item": first.sha256}, {"op": "add", "item": second.sha256}]
+    photos.keep(photos.of_unit(), picture(tmp_path, "c.jpg", seed=33))  # a unit's photo touches no find
+    assert store.get(Find, found.id).photo_hashes == [first.sha256, second.sha256]

@@ -63,6 +63,6 @@ def test_vocabulary_is_checked_by_the_database_too(tmp_path) -> None:  # type: i
     with pytest.raises(sa.exc.IntegrityError, match="CHECK constraint failed"):
         with engine.begin() as conn:
             conn.execute(sa.text(
-                "INSERT INTO relation (id, site_id, upper_unit_id, lower_unit_id, kind) "
-                "VALUES ('a', 'b', 'c', 'd', 'overlaps')"))
+                "INSERT INTO relation (id, site_id, upper_unit_id, lower_unit_id, kind, voided) "
+                "VALUES ('a', 'b', 'c', 'd', 'overlaps', 0)"))
     engine.dispose()

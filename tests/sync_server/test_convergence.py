@@ -23,7 +23,7 @@ from hypothesis.stateful import RuleBasedStateMachine, initialize, invariant, pr
 
 from mobile import outbox
 from mobile.store import TabletStore
-from mobile.sync import SyncClient
+from mobile.sync import ATTEMPTS, SyncClient
 from schema.errors import SyncError
 from schema.records import Find, Season, Site, Trench, Unit
 from schema.sync.replica import state_set
@@ -37,13 +37,19 @@ TZ = dt.timezone.utc
 
 
 class Faults(httpx.BaseTransport):
-    """Wraps the app's transport: may drop the request, or lose the response after the server committed."""
+    """Wraps the app's transport: may drop the request, or lose the response after the server committed. A fault
+    lasts for every attempt the client makes at one request (``mobile.sync.ATTEMPTS``: the link is down for that
+    sync), so a sync with a fault fails as it did before the client sent dropped requests again."""
 
     def __init__(self, inner: httpx.BaseTransport):
-        self.inner, self.mode = inner, "ok"
+        self.inner, self.mode, self.left = inner, "ok", 0
 
     def handle_request(self, request: httpx.Request) -> httpx.Response:
-        mode, self.mode = self.mode, "ok"
+        mode = self.mode
+        if mode != "ok":
+            self.left -= 1
+            if self.left <= 0:
+                self.mode = "ok"
         if mode == "drop_request":
             raise httpx.ConnectError("dropped before sending")
         inner = self.inner.handle_request(request)
@@ -137,10 +143,10 @@ class Camp(RuleBasedStateMachine):
                 state_set(conn, "clock_offset_ms", skew)  # a tablet whose clock is off by up to a day
             faults = Faults(self.http._transport)  # noqa: SLF001
             http = httpx.Client(transport=faults, base_url="http://camp")
-            SyncClient(t, http, token, batch_size=7).sync()  # enrolment at camp, before any fault
+            SyncClient(t, http, token, batch_size=7, retry_wait_s=0).sync()  # enrolment at camp, before any fault
             kind = BROKEN[self.broken] if self.broken and i in (0, 1) else SyncClient
             self.tablets.append(t)
-            self.clients.append(kind(t, http, token, batch_size=7))
+            self.clients.append(kind(t, http, token, batch_size=7, retry_wait_s=0))
             self.faults.append(faults)
         self.units = [r for r in self.templates["records"] if isinstance(r, Unit)]
         self.site = self.templates["records"][0]
@@ -178,7 +184,7 @@ class Camp(RuleBasedStateMachine):
 
     @rule(i=st.integers(0, 4), mode=st.sampled_from(["ok", "ok", "drop_request", "drop_response"]))
     def sync(self, i: int, mode: str) -> None:
-        self.faults[i].mode = mode
+        self.faults[i].mode, self.faults[i].left = mode, ATTEMPTS
         try:
             self.clients[i].sync()
         except SyncError:

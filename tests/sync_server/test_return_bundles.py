@@ -153,7 +153,8 @@ def test_the_tablet_reads_it_on_the_camp_screen_once(camp: Camp) -> None:
     assert read.applied == read.changes  # the bundle carries none of the tablet's own changes back
     assert read.sentence() == (
         f"Read {path.name}: {read.applied} new changes on this tablet. New find numbers: 201-700. The camp "
-        f"confirmed {sent} changes this tablet sent. Find numbers left: 540.")
+        f"confirmed {sent} changes this tablet sent. Checks run again on 61 finds of this tablet: CHECK: 1 find now "
+        "fails a check (4; see Finds, Open checks). Find numbers left: 540.")  # find 4, moved to 102 at camp
     _assert_received(camp)
     status = "\n".join(link.status().lines())
     assert "Waiting to be sent: 0 changes" in status and "Last bundle from camp: " in status
@@ -176,7 +177,8 @@ def test_baulk_bundle_read_applies_it_once(camp: Camp) -> None:
     r = CliRunner().invoke(cli, ["bundle", "read", str(path), "--store", str(store_path)])
     assert r.exit_code == 0, r.output
     assert r.output.startswith(f"Read {path.name}: ") and r.output.endswith(
-        f"New find numbers: 201-700. The camp confirmed {sent} changes this tablet sent. Find numbers left: 540.\n")
+        f"New find numbers: 201-700. The camp confirmed {sent} changes this tablet sent. Checks run again on 61 "
+        "finds of this tablet: CHECK: 1 find now fails a check (4; see Finds, Open checks). Find numbers left: 540.\n")
     before = _dump(store_path)
     r = CliRunner().invoke(cli, ["bundle", "read", str(path), "--store", str(store_path)])
     assert r.exit_code == 0 and r.output.startswith(f"{path.name} was read before: ")

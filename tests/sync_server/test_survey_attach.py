@@ -125,10 +125,24 @@ def test_attach_instrument_lines_through_a_template_and_reduced_points(db, tmp_p
     code, out = run(db, str(csv_file), "--setup", str(SETUP), "--by", "DM", "--column", "point=PtID",
                     "--column", "e=East", "--column", "n=North", "--column", "z=Height")
     assert code == 0, out
-    assert (_finds(db)[4].e, _finds(db)[4].n, _finds(db)[4].z) == pytest.approx((1001.5, 2001.25, 99.8), abs=1e-9)
+    four = _finds(db)[4]
+    # the instrument's own coordinates, exactly (no trip through readings), and no shot posing as observed
+    assert (four.e, four.n, four.z, four.shot_id, four.position_source) == (1001.5, 2001.25, 99.8, None,
+                                                                            "total_station")
+    assert four.notes.endswith("[position reduced by the instrument: point 4, line 2 of coords.csv: "
+                               "4,1001.5,2001.25,99.8]")
+    from sync_server.store import ServerStore
+
+    with ServerStore.open(db) as store:
+        assert [(c.fields, c.reason) for c in store.list(Correction, record_id=four.id)] == [
+            ("e,n,z,position_source,notes", "point 4 of coords.csv (reduced by the instrument)")]
     assert "  point 4 -> find 4: E 1001.5000  N 2001.2500  Z 99.8000  (reduced; no position before)" in out
     assert "  line 3 point 77: no find 77" in out
     assert "plotted finds without a position: none" in out
+    code, out = run(db, str(csv_file), "--setup", str(SETUP), "--by", "DM", "--column", "point=PtID",
+                    "--column", "e=East", "--column", "n=North", "--column", "z=Height")
+    assert code == 0 and "already attached: find 4" in out, out  # the same reduced point again writes nothing
+    assert _finds(db)[4].notes == four.notes
 
 
 @pytest.mark.parametrize(("content", "extra", "message"), [

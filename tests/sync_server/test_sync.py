@@ -125,7 +125,8 @@ def test_a_cut_connection_is_a_plain_error_and_the_retry_resends_the_same_batch(
     def dead(_request: httpx.Request) -> httpx.Response:
         raise httpx.ConnectError("no route to host")
 
-    offline = SyncClient(t1, httpx.Client(transport=httpx.MockTransport(dead), base_url="http://camp"), "x")
+    offline = SyncClient(t1, httpx.Client(transport=httpx.MockTransport(dead), base_url="http://camp"), "x",
+                         retry_wait_s=0)
     with pytest.raises(SyncError, match="the camp server did not answer"):
         offline.sync()
     before = offline.pending_count()

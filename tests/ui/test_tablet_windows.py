@@ -138,9 +138,11 @@ def test_a_recorded_day_reaches_the_camp_server(tmp_path, run_app, shots) -> Non
         labels = d.nav("labels")
         assert labels.waiting == "3 labels of this tablet's finds waiting: 1, 2, 3"
         d.tap(labels.ids.print_labels)
+        d.until(lambda: not labels.busy, what="the label sheet")  # written off the UI thread
         assert labels.printed.startswith("Label sheet written: 3 labels on 1 page, in "), labels.problem
         d.type(labels.ids.first, "2")
         d.tap(labels.ids.reprint)  # a torn label: find 2 again, alone
+        d.until(lambda: not labels.busy, what="the label sheet written again")
         assert labels.printed.startswith("Label sheet written again: 1 label on 1 page, in "), labels.problem
         d.screenshot(shots, "labels-printed")
 

@@ -1,5 +1,6 @@
 """Day start: site, season, trench, initials; the instrument setup with its residuals, accepted before shots are
-taken (the laser caution acknowledged with it); the GNSS receiver's status; the theme."""
+taken (the laser caution acknowledged with it); the instrument's template and last line; attaching the
+instrument's own download (``mobile/ui/attach.py``); the GNSS receiver's status; the theme."""
 
 from __future__ import annotations
 
@@ -25,6 +26,7 @@ class DayScreen(BaulkScreen):
     setup_state = StringProperty("No instrument setup accepted today.")
     heat_state = StringProperty("")
     instrument_line = StringProperty("")  # the active line template and the last line read, raw and decoded
+    download_state = StringProperty("")  # what the last attached download wrote
 
     def refresh(self) -> None:
         self.instrument_line = self.app.shot_feed.status()
@@ -112,6 +114,21 @@ class DayScreen(BaulkScreen):
         setup = self.guard(self.app.days.accept_setup, laser_acknowledged_by=self.ids.laser_by.text)
         if setup is not None:
             self.setup_state = f"Setup accepted: station {setup.station_code}. Shots can be taken."
+
+    def attach_download(self) -> None:
+        """The dialog that attaches the instrument's own download to this tablet's finds (today's setup first)."""
+        from ..attach import AttachDialog, attach_controller
+
+        if self.guard(self.app.days.require_setup) is None:
+            return
+        self.dialog = AttachDialog(attach_controller(self.app), self.app.template, self._attached)
+        self.dialog.open()
+
+    def _attached(self, saved: list[Any]) -> None:
+        open_checks = sorted({i.code for s in saved for i in s.issues if i.severity != "info"})
+        self.download_state = (f"Attached {len(saved)} point{'' if len(saved) == 1 else 's'} to finds "
+                        f"{', '.join(str(s.find.number) for s in saved)}."
+                        + (f" Checks now open: {', '.join(open_checks)} (see Finds)." if open_checks else ""))
 
     def take_photo(self, what: str) -> None:
         """The photo dialog for today's trench or the day's work (``what``: trench or day)."""

@@ -1,19 +1,36 @@
 """The find list: search (number, material, taxon, notes) and filters (unit, category, today, open checks) over a
-recycled list that draws only the rows on screen; tap a row to correct it on Record or to void it."""
+recycled list that draws only the rows on screen; tap a row to correct it on Record or to void it.
+
+A row shows its find's newest photo as a thumbnail. The recycled list binds only the rows on screen to their data,
+so a thumbnail is asked for (and made, the first time, from the photo's file) only when its row is drawn."""
 
 from __future__ import annotations
 
 import uuid
 
-from kivy.properties import ListProperty, StringProperty
+from kivy.app import App
+from kivy.properties import BooleanProperty, ListProperty, StringProperty
+from kivy.uix.button import Button
 
 from ...controllers import FindFilter
 from . import BaulkScreen
 
-__all__ = ["FindsScreen"]
+__all__ = ["FindRow", "FindsScreen"]
 
 ANY_UNIT, ANY_KIND = "any unit", "any category"
 PAGE = 500  # rows fetched at a time: the list opens on the newest 500 and loads more as it is scrolled
+
+
+class FindRow(Button):
+    """One find in the list; ``photo`` (a hash) becomes ``thumb`` (a thumbnail's path) when the row is drawn."""
+
+    find_id = StringProperty("")
+    selected = BooleanProperty(False)
+    photo = StringProperty("")
+    thumb = StringProperty("")
+
+    def on_photo(self, _row: object, sha256: str) -> None:
+        self.thumb = App.get_running_app().listing.thumbnail(sha256) if sha256 else ""
 
 
 class FindsScreen(BaulkScreen):
@@ -45,7 +62,8 @@ class FindsScreen(BaulkScreen):
 
     def _page(self, offset: int) -> list[dict[str, str]]:
         rows = self.app.listing.rows(self._filter, limit=PAGE, offset=offset)
-        return [{"text": r["text"], "find_id": r["id"], "selected": r["id"] == self.chosen} for r in rows]
+        return [{"text": r["text"], "find_id": r["id"], "selected": r["id"] == self.chosen, "photo": r["photo"]}
+                for r in rows]
 
     def more(self, scroll_y: float) -> None:
         loaded = len(self.ids.rv.data)

@@ -39,6 +39,8 @@ class RecordScreen(BaulkScreen):
     now_at = StringProperty("")  # where the find being corrected is now
     summary = StringProperty("")  # one line above the buttons: what the last save wrote, or the problem
     summary_alarm = BooleanProperty(False)  # the line is a problem or open checks: drawn as an alarm
+    photo_thumb = StringProperty("")  # the thumbnail of the shown find's newest photo ("" for none)
+    photo_line = StringProperty("")  # that photo's register line, and how many the find has
 
     def on_summary(self, _screen: object, text: str) -> None:
         self.summary_alarm = text.startswith(("CHECKS", "PROBLEM"))
@@ -223,6 +225,7 @@ class RecordScreen(BaulkScreen):
         else:
             lines.append(f"Tap Correct find {f.number} to fix it, or confirm it as recorded with a reason.")
         self.checks = "\n".join(lines)
+        self._show_photo()
         n_open = len(self._open)
         self.summary = head if not n_open else (
             f"CHECKS: {n_open} {'check is' if n_open == 1 else 'checks are'} open on find {f.number} "
@@ -265,14 +268,35 @@ class RecordScreen(BaulkScreen):
             return
         photos = photo_controller(self.app)
         target = photos.of_find(uuid.UUID(find_id), int(number))
-        self.dialog = PhotoDialog(photos, target, lambda photo: setattr(
-            self, "summary", f"Photo P{photo.number} of {target.label} kept."))
+        def kept(photo: object) -> None:
+            self.summary = f"Photo P{photo.number} of {target.label} kept."  # type: ignore[attr-defined]
+            self._show_photo()
+
+        self.dialog = PhotoDialog(photos, target, kept)
         self.dialog.open()
+
+    def _show_photo(self) -> None:
+        """The newest photo of the find whose checks are shown (the one just saved, or being corrected)."""
+        from ..photo import photo_controller
+
+        self.photo_thumb, self.photo_line = "", ""
+        if not self.checked or self.app.days.day is None:
+            return
+        photos = photo_controller(self.app)
+        newest = photos.newest(uuid.UUID(self.checked))
+        if newest is None:
+            return
+        photo, thumb = newest
+        count = len(photos.photos_of(photo.subject_id)) if photo.subject_id else 1
+        self.photo_thumb = str(thumb) if thumb is not None else ""
+        self.photo_line = (photos.line(photo) + ("" if thumb is not None else " (file at camp, not on this tablet)")
+                           + (f"\n{count} photos of find {self.checked_number}" if count > 1 else ""))
 
     def new_find(self) -> None:
         """Leave a correction (nothing written) or clear the form: the next new find."""
         self._open, self.has_open = [], False
         self.checks, self.checked, self.checked_number, self.summary = "", "", "", ""
+        self.photo_thumb, self.photo_line = "", ""
         self._ready_for_next()
 
     def correct_checked(self) -> None:
@@ -304,3 +328,4 @@ class RecordScreen(BaulkScreen):
         self.summary = f"Correcting find {find.number}: change what is wrong, then Save correction."
         self.checks = f"Correcting find {find.number}." + "".join(
             f"\n{c['severity'].upper()} {c['code']}: {c['message']}. Fix: {c['fix']}" for c in checks)
+        self._show_photo()

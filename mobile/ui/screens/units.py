@@ -1,18 +1,20 @@
 """Units of today's trench: choose one to edit or start a new one (fields from the model: kind, description,
-Munsell colour, condition, texture, status), relate it to another unit (matrix problems shown at once), and
-shoot levels on its top or bottom surface."""
+Munsell colour, condition, texture, status), relate it to another unit (matrix problems shown at once), void a
+wrong relation with a reason (a row per relation, each with its Void button), and shoot levels on its top or
+bottom surface."""
 
 from __future__ import annotations
 
 from typing import Any
 
-from kivy.properties import ListProperty, StringProperty
+from kivy.factory import Factory
+from kivy.properties import DictProperty, ListProperty, StringProperty
 
 from schema import vocab
 from schema.munsell import parse_munsell
 
 from ..caution import CautionDialog
-from ..widgets import shown_words
+from ..widgets import Big, Caption, Say, shown_words
 from . import BaulkScreen
 
 __all__ = ["UnitsScreen"]
@@ -24,6 +26,8 @@ class UnitsScreen(BaulkScreen):
     relations = StringProperty("")
     editing = StringProperty("")
     munsell_note = StringProperty("")
+    relation_note = StringProperty("")  # what the last void did, shown under the relations
+    void_buttons = DictProperty({})  # relation id -> its Void button (the rows are rebuilt on every change)
 
     def refresh(self) -> None:
         if self.app.days.day is None:
@@ -53,12 +57,14 @@ class UnitsScreen(BaulkScreen):
         if unit is not None:
             self.editing = code
             self.ids.form.set_values(unit.model_dump())
+            self.relation_note = ""
             self.show_relations()
 
     def new_unit(self) -> None:
         self.editing = ""
         self.ids.form.set_values({})
-        self.relations = ""
+        self.relations = self.relation_note = ""
+        self._relation_rows([])
 
     def save(self) -> None:
         unit = self.guard(self.app.units.save_unit, self.ids.form.values(), code=self.editing or None)
@@ -72,9 +78,36 @@ class UnitsScreen(BaulkScreen):
         if not self.editing:
             return
         rows = self.guard(self.app.units.relations, self.editing) or []
-        self.relations = "\n".join(f"{self.editing} {shown_words(kind)} {other}" if role == "upper"
-                                   else f"{other} {shown_words(kind)} {self.editing}"
-                                   for role, kind, other in rows) or "No relations yet."
+        self.relations = "" if rows else f"No relations of unit {self.editing} yet."
+        self._relation_rows(rows)
+
+    def _relation_rows(self, rows: list[Any]) -> None:
+        """One row per relation: its words, and a Void button while it is in force."""
+        box = self.ids.relation_rows
+        box.clear_widgets()
+        buttons = {}
+        for line in rows:
+            row = Factory.Row()
+            row.add_widget(Say(text=line.words()) if line.voided else Caption(text=line.words()))
+            if not line.voided:
+                button = Big(text="Void", size_hint_x=0.3)
+                button.bind(on_release=lambda _b, rid=line.relation_id, words=line.words(): self.void_relation(rid, words))
+                row.add_widget(button)
+                buttons[str(line.relation_id)] = button
+            box.add_widget(row)
+        self.void_buttons = buttons
+
+    def void_relation(self, relation_id: Any, words: str) -> None:
+        """Void one relation with the reason typed under the list."""
+        done = self.guard(self.app.units.void_relation, relation_id, self.ids.relation_void_reason.text)
+        if done is None:
+            return
+        self.ids.relation_void_reason.text = ""
+        lines = [f"Relation {words} voided ({done.line.void_reason}); it no longer counts in the matrix."]
+        lines += [f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}" for i in done.issues]
+        lines.append(done.rechecked.sentence(f"units {done.line.upper} and {done.line.lower}"))
+        self.message, self.relation_note = "", "\n".join(lines)  # shown under the relations, where the tap was
+        self.show_relations()
 
     def relate(self) -> None:
         ids = self.ids
@@ -85,7 +118,7 @@ class UnitsScreen(BaulkScreen):
         lines = [f"Relation saved: {ids.upper.text} {ids.kind.text} {ids.lower.text}."]
         lines += [f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}" for i in done.issues]
         lines.append(done.rechecked.sentence(f"units {ids.upper.text} and {ids.lower.text}"))
-        self.message = "\n".join(lines)
+        self.message, self.relation_note = "", "\n".join(lines)  # shown under the relations, where the tap was
         self.show_relations()
 
     def take_photo(self) -> None:

@@ -66,3 +66,17 @@ def test_horizon_bracket_spans_its_units(demo_site) -> None:  # type: ignore[no-
     # 104 carries its own date (1950 +- 10): its bracket is that date's two-sigma range
     assert (b[u["104"].id].youngest, b[u["104"].id].oldest) == (1930.0, 1970.0)
     assert hb[demo_site.horizons["H4"].id].dated
+
+
+def test_a_date_without_a_lab_code_is_named_by_method_and_age() -> None:
+    """Issue 18: no id prefixes in messages; a date with no lab code is named by its method and age."""
+    u = units("1", "2")
+    m = build_matrix(u.values(), [rel(u, "1", "above", "2")])
+    upper = date(u, "1", 300.0, 10.0).model_copy(update={"lab_code": None})
+    (i,) = age_issues(m, [upper, date(u, "2", 200.0, 10.0)])
+    assert i.label == "argon-argon date 300 +- 10 ka on unit 1"
+    stray = AgeDetermination(site_id=SITE, unit_id=u["1"].id.__class__(int=77), method="luminescence", age_ka=120.0,
+                             sigma_ka=8.0)
+    (lost,) = age_issues(m, [stray])
+    assert (lost.code, lost.message) == ("AGE_UNKNOWN_UNIT",
+                                         "luminescence date 120 +- 8 ka names a unit that is not recorded")

@@ -95,5 +95,6 @@ def test_relation_to_an_unknown_unit_is_an_issue_not_a_crash() -> None:
     ghost = Relation(site_id=SITE, upper_unit_id=u["1"].id, lower_unit_id=uuid.UUID(int=99), kind="above")
     m = build_matrix(u.values(), [ghost])
     assert codes(m) == ["MATRIX_UNKNOWN_UNIT"]
-    assert m.issues[0].message == (f"relation 1 above {uuid.UUID(int=99)} names unit {uuid.UUID(int=99)}, "
-                                   "which is not recorded")
+    assert m.issues[0].message == ("relation 1 above (a unit not recorded) names a unit that is not recorded at "
+                                   "this site")  # words, never an internal id (issue 18)
+    assert m.issues[0].detail == str(uuid.UUID(int=99))

@@ -98,6 +98,18 @@ def test_duplicate_numbers_even_when_voided(demo_site: DemoSite) -> None:
     assert codes(validate(site_data(demo_site, finds))) == ["NUMBER_DUPLICATE"]
 
 
+def test_duplicate_numbers_speak_in_units_and_times(demo_site: DemoSite) -> None:
+    """Issue 18: the message tells the two finds apart by unit and time found (site's zone), not by id prefixes."""
+    demo_site.site = demo_site.site.model_copy(update={"timezone": "Africa/Nairobi"})
+    other = demo_site.units["102"]
+    finds = [find(demo_site, number=5),
+             find(demo_site, number=5, unit_id=other.id, voided=True, void_reason="dup",
+                  found_at=dt.datetime(2026, 7, 4, 7, 5, tzinfo=dt.timezone.utc))]
+    (dup,) = validate(site_data(demo_site, finds)).issues
+    assert dup.message == ("find number 5 is used by 2 finds (in unit 101, found 2026-07-03 09:30; "
+                           "in unit 102, found 2026-07-04 10:05, voided)")  # 07:05 UTC is 10:05 in Nairobi (UTC+3)
+
+
 def test_horizon_order_against_the_matrix(demo_site: DemoSite) -> None:
     # put 101 (top of TR1) into the lowest horizon H4: it now lies above units of H2 and H3 in the matrix
     demo_site.units["101"] = demo_site.units["101"].model_copy(update={"horizon_id": demo_site.horizons["H4"].id})
@@ -119,6 +131,9 @@ def test_missing_surface_and_unknown_level_point_unit(demo_site: DemoSite) -> No
     stray = LevelPoint(unit_id=uuid.UUID(int=5), surface="top", e=1000.0, n=2000.0, z=100.0)
     report = validate(site_data(demo_site, [find(demo_site)], level_points=[stray]))
     assert codes(report) == ["LEVEL_UNKNOWN_UNIT", "SURFACE_MISSING"]
+    (lost,) = [i for i in report.issues if i.code == "LEVEL_UNKNOWN_UNIT"]
+    assert (lost.label, lost.message) == ("top level at E 1000.000 N 2000.000", "a top level point at E 1000.000 N "
+                                          "2000.000 Z 100.000 names a unit that is not recorded at this site")
 
 
 def test_gnss_float_and_setup_residual(demo_site: DemoSite) -> None:

@@ -1,5 +1,5 @@
 """The day's download matched to finds, as pure functions: numbers, voided and duplicated finds, reduced points
-kept as the readings the setup would take, the move bound."""
+kept as the instrument's own coordinates, the move bound."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ from dataclasses import dataclass
 import pytest
 
 from schema.errors import InputFileInvalid
-from schema.survey.download import DownloadPoint, find_number, plan_attach, read_download_csv
-from schema.survey.polar import Station, reduce_shots
+from schema.survey.download import DownloadPoint, find_number, plan_attach, read_download_csv, reduced_note
+from schema.survey.polar import Station
 
 STATION = Station(100.0, 200.0, 50.0, 1.5, 0.0)
 
@@ -25,6 +25,7 @@ class F:  # the fields of a find that matching reads
     voided: bool = False
     recovery: str = "plotted"
     position_source: str = "none"
+    shot_id: uuid.UUID | None = None
     id: uuid.UUID = None  # type: ignore[assignment]
 
     def __post_init__(self) -> None:
@@ -56,20 +57,35 @@ def test_matching_names_what_matched_nothing() -> None:
     assert plan.finds_without_point == [9, 9, 11]
 
 
-def test_reduced_points_come_back_through_the_reduction_and_moves_are_held() -> None:
-    p = DownloadPoint("7", 2, "7,103,204,50", "reduced", target_height_m=1.3, e=103.0, n=204.0, z=50.0)
-    far = F(7, 103.3, 204.0, 50.0, position_source="tape")
-    plan = plan_attach([p], [far], STATION, max_move_m=0.25)
-    assert plan.matches == [] and len(plan.held) == 1
+def test_reduced_points_keep_the_instruments_coordinates_exactly_and_moves_are_held() -> None:
+    # the 3-4-5 worked example of tests/schema/survey/test_polar.py (test_345_triangle_level_shot): from a station
+    # at (100, 200, 50), hz atan(3/4), level, 5 m gives (103, 204, 50). The instrument sends that point reduced;
+    # a raw point of the same readings goes through the reduction.
+    hz = math.degrees(math.atan2(3, 4))
+    reduced = DownloadPoint("7", 2, "7,103,204,50", "reduced", target_height_m=1.3, e=103.0, n=204.0, z=50.0)
+    raw = DownloadPoint("8", 3, "8,...", "raw", hz, 90.0, 5.0, 1.5)
+    far, plain = F(7, 103.3, 204.0, 50.0, position_source="tape"), F(8)
+    plan = plan_attach([reduced, raw], [far, plain], STATION, max_move_m=0.25)
+    assert [m.number for m in plan.matches] == [8] and [m.number for m in plan.held] == [7]
     m = plan.held[0]
-    assert m.move_m == pytest.approx(0.3, abs=1e-9)
-    r = reduce_shots(STATION, m.hz, m.zenith, m.slope_distance_m, 1.3)  # the kept readings give the point back
-    assert (r.e[0], r.n[0], r.z[0]) == pytest.approx((103.0, 204.0, 50.0), abs=1e-9)
-    assert plan_attach([p], [far], STATION, max_move_m=0.25, confirm_moves=True).matches[0].number == 7
-    # attached before with the same line: the same, nothing to write
+    assert m.move_m == pytest.approx(0.3, abs=1e-12)
+    assert (m.e, m.n, m.z) == (103.0, 204.0, 50.0)  # exactly the instrument's, not a round trip through readings
+    assert (m.hz, m.zenith, m.slope_distance_m) == (None, None, None)  # no readings are made up for it
+    (r,) = plan.matches
+    assert (r.e, r.n, r.z) == pytest.approx((103.0, 204.0, 50.0), abs=1e-9)
+    assert (r.hz, r.zenith, r.slope_distance_m) == (hz, 90.0, 5.0)  # a raw point's shot keeps its readings
+    assert plan_attach([reduced], [far], STATION, max_move_m=0.25, confirm_moves=True).matches[0].number == 7
+    # attached before (the same coordinates from the instrument, no shot): the same, nothing to write
     near = F(7, 103.0, 204.0, 50.0, position_source="total_station")
-    again = plan_attach([p], [near], STATION, held_lines={near.id: "7,103,204,50"})
-    assert again.matches[0].same
+    assert plan_attach([reduced], [near], STATION).matches[0].same
+    # a find at the point by a shot of its own is not "the same": the instrument's reduction replaces the shot
+    shot = F(7, 103.0, 204.0, 50.0, position_source="total_station", shot_id=uuid.uuid4())
+    assert not plan_attach([reduced], [shot], STATION).matches[0].same
+    note = reduced_note(reduced, "day.csv")
+    assert note == "[position reduced by the instrument: point 7, line 2 of day.csv: 7,103,204,50]"
+    # a raw point attached before with the same line: the same
+    raw_again = F(8, r.e, r.n, r.z, position_source="total_station")
+    assert plan_attach([raw], [raw_again], STATION, held_lines={raw_again.id: "8,..."}).matches[0].same
 
 
 def test_csv_download_in_gon_with_named_columns() -> None:
