@@ -66,11 +66,15 @@ class BodyLimit:
                 await self._refuse(send)
 
     async def _refuse(self, send: Callable[[Message], Awaitable[None]]) -> None:
-        body = json.dumps({"code": "BodyTooLarge", "message": f"a request body is at most {self.limit} bytes; "
-                           "send smaller batches"}).encode()
-        await send({"type": "http.response.start", "status": 413,
-                    "headers": [(b"content-type", b"application/json"), (b"content-length", str(len(body)).encode())]})
-        await send({"type": "http.response.body", "body": body})
+        await _answer_json(send, 413, {"code": "BodyTooLarge", "message": f"a request body is at most {self.limit} "
+                                       "bytes; send smaller batches"})
+
+
+async def _answer_json(send: Callable[[Message], Awaitable[None]], status: int, payload: dict[str, str]) -> None:
+    body = json.dumps(payload).encode()
+    await send({"type": "http.response.start", "status": status,
+                "headers": [(b"content-type", b"application/json"), (b"content-length", str(len(body)).encode())]})
+    await send({"type": "http.response.body", "body": body})
 
 
 class AnswerErrors:
@@ -109,12 +113,8 @@ class AnswerErrors:
             logging.getLogger("baulk.server").exception("%s %s failed", scope.get("method"), scope.get("path"))
             if not body_done and not await _drain(receive, self.limit):
                 raise  # the body is larger than any request may be: let the connection close
-            body = json.dumps({"code": "ServerError", "message": "the camp server hit an unexpected problem with "
-                               "this request (its log has the details); try again"}).encode()
-            await send({"type": "http.response.start", "status": 500,
-                        "headers": [(b"content-type", b"application/json"),
-                                    (b"content-length", str(len(body)).encode())]})
-            await send({"type": "http.response.body", "body": body})
+            await _answer_json(send, 500, {"code": "ServerError", "message": "the camp server hit an unexpected "
+                                           "problem with this request (its log has the details); try again"})
 
 
 async def _drain(receive: Callable[[], Awaitable[Message]], limit: int) -> bool:

@@ -188,18 +188,17 @@ def attach_job(
         find_by_id = {f.id: f for f in finds}
         for m in todo:
             current = find_by_id[m.find_id]
-            changes = {"e": m.e, "n": m.n, "z": m.z, "position_source": "total_station", "gnss_fix_id": None,
-                       "position_sigma_m": current.position_sigma_m or 0.005}
             shot = None
             if m.point.kind == "raw":
                 shot = check(Shot, {"setup_id": setup.id, "hz": m.hz, "zenith": m.zenith, "slope_distance_m":
                                     m.slope_distance_m, "target_height_m": m.point.target_height_m,
                                     "prism_constant_mm": m.point.prism_constant_mm, "shot_at": now,
                                     "raw_line": m.point.raw_line[:1000]}, record=f"point {m.point.point}")
-                changes["shot_id"] = shot.id
+                changes = {"e": m.e, "n": m.n, "z": m.z, "position_source": "total_station", "shot_id": shot.id,
+                           "gnss_fix_id": None, "position_sigma_m": current.position_sigma_m or dl.REDUCED_SIGMA_M}
             else:  # the instrument's own E, N, Z: no shot to keep, the line goes into the notes (download.py)
-                changes["shot_id"] = None
-                changes["notes"] = f"{current.notes}\n{dl.reduced_note(m.point, download.name)}".strip()
+                changes = dl.reduced_changes(m.point, m.e, m.n, m.z, notes=current.notes,  # type: ignore[arg-type]
+                                             source=download.name)
             try:
                 updated = check(Find, {**current.model_dump(), **changes}, record=f"find {m.number}")
             except RecordInvalid as exc:

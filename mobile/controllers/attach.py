@@ -127,9 +127,8 @@ class AttachController:
                     shot, fields = plotted_fields(setup, reading)
                     self.store.add(shot)
                 else:  # the instrument's own coordinates, exactly; no shot poses as observed (download.py)
-                    fields = {"e": m.e, "n": m.n, "z": m.z, "position_source": "total_station", "shot_id": None,
-                              "gnss_fix_id": None, "position_sigma_m": 0.005,
-                              "notes": f"{current.notes}\n{dl.reduced_note(m.point, review.path.name)}".strip()}
+                    fields = dl.reduced_changes(m.point, m.e, m.n, m.z, notes=current.notes,  # type: ignore[arg-type]
+                                                source=review.path.name)
                 after = self.store.update_find(find={**current.model_dump(), **fields})
                 saved.append((current, after))
         return [Saved(after, self.finds._check(after), written=self.finds._written(before, after))

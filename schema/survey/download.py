@@ -29,7 +29,7 @@ from . import templates as tpl
 from .polar import Station, reduce_shots
 
 __all__ = ["COLUMNS", "AttachPlan", "DownloadPoint", "Match", "find_number", "plan_attach", "read_download",
-           "read_download_csv", "read_download_lines", "reduced_note"]
+           "read_download_csv", "read_download_lines", "reduced_changes", "reduced_note", "REDUCED_SIGMA_M"]
 
 COLUMNS = ("point", "hz", "zenith", "slope_distance", "target_height", "prism_constant_mm", "e", "n", "z")
 """What a download column may hold (``--column WHAT=HEADER`` names the header of each)."""
@@ -279,6 +279,16 @@ def reduced_note(point: DownloadPoint, source: str) -> str:
     """What a find's notes keep of a reduced point: that the instrument computed the position, and its line."""
     line = point.raw_line if len(point.raw_line) <= 300 else point.raw_line[:300] + "..."
     return f"[position reduced by the instrument: point {point.point}, line {point.line} of {source}: {line}]"
+
+
+REDUCED_SIGMA_M = 0.005  # a total-station position's usual standard error (common practice, no source)
+
+
+def reduced_changes(point: DownloadPoint, e: float, n: float, z: float, *, notes: str, source: str) -> dict[str, Any]:
+    """The find fields a point the instrument reduced sets: its E, N, Z exactly, no shot (readings back-computed
+    through a setup would pose as observations), and the point's line kept in the notes (``reduced_note``)."""
+    return {"e": e, "n": n, "z": z, "position_source": "total_station", "shot_id": None, "gnss_fix_id": None,
+            "position_sigma_m": REDUCED_SIGMA_M, "notes": f"{notes}\n{reduced_note(point, source)}".strip()}
 
 
 def read_download(

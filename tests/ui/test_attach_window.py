@@ -8,25 +8,11 @@ from pathlib import Path
 
 import pytest
 
+from tests.ui.test_tablet_windows import _set_up_instrument, _start_day
+
 pytestmark = pytest.mark.ui
 
 NONE = dict(e=None, n=None, z=None, position_source="none", position_sigma_m=None)
-
-
-def _set_up(d) -> None:  # type: ignore[no-untyped-def]
-    day = d.nav("day")
-    d.choose(day.ids.trench, "TR1")
-    d.type(day.ids.recorder, "AK")
-    d.tap(day.ids.start)
-    d.choose(day.ids.station, "CP1")
-    d.choose(day.ids.bs1_point, "CP2")
-    d.tap(day.ids.bs1_read)
-    d.choose(day.ids.bs2_point, "CP3")
-    d.tap(day.ids.bs2_read)
-    d.tap(day.ids.compute)
-    d.type(day.ids.laser_by, "AK")
-    d.tap(day.ids.accept)
-    assert day.setup_state.startswith("Setup accepted: station CP1"), day.problem
 
 
 def test_attach_a_download_on_the_day_screen(tablet, demo_site, run_app, shots, tmp_path: Path) -> None:  # type: ignore[no-untyped-def]
@@ -42,7 +28,8 @@ def test_attach_a_download_on_the_day_screen(tablet, demo_site, run_app, shots, 
     day = d.screen("day")
     d.tap(day.ids.attach_download)
     assert "the day has not been started" in day.problem, day.problem  # a download needs the day's setup
-    _set_up(d)
+    _start_day(d)
+    _set_up_instrument(d)
 
     station = station_of(d.app.days.require_setup())
     rows = ["point,hz,zenith,slope_distance,target_height"]
