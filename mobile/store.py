@@ -271,7 +271,6 @@ class TabletStore(RecordStore):
             return {name: conn.exec_driver_sql(f"PRAGMA {name}").scalar() for name, _ in db.SQLITE_PRAGMAS}
 
 
-_SQLITE_MAGIC = b"SQLite format 3\x00"
 _TABLET_TABLE = "baulk_migration"  # every tablet file has it from its first upgrade step on
 
 
@@ -284,10 +283,9 @@ def _not_a_tablet_file(path: Path, tables: set[str]) -> NotABaulkStore:
 
 
 def _not_sqlite(path: Path) -> NotABaulkStore | None:
-    """The refusal for a file that is not a SQLite database at all (empty files are for the caller to judge)."""
-    with path.open("rb") as fh:
-        head = fh.read(len(_SQLITE_MAGIC))
-    if head and head != _SQLITE_MAGIC:
+    """The refusal for a file that is not a SQLite database at all (empty files are for the caller to judge); the
+    header is read by SQLite, never by Python (``schema.db.not_sqlite`` says why)."""
+    if db.not_sqlite(path):
         return NotABaulkStore(f"{path} is not a tablet file (it is not a SQLite database); check the path and give "
                               "the tablet's own .sqlite file")
     return None

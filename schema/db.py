@@ -20,6 +20,7 @@ from .records import REGISTRY, Record, RecordSpec, spec_for
 from .tables import metadata
 
 __all__ = [
+    "not_sqlite",
     "SQLITE_PRAGMAS", "count", "from_row", "get", "insert", "select", "sqlite_engine", "to_row", "update",
 ]
 
@@ -32,6 +33,29 @@ SQLITE_PRAGMAS = (
     ("foreign_keys", "ON"),
     ("busy_timeout", "10000"),
 )
+
+
+def not_sqlite(path: Path | str) -> bool:
+    """Whether SQLite itself calls the file at ``path`` not a database (an empty file is an empty database).
+
+    SQLite reads the header (a read-only, immutable connection), never Python: closing any descriptor on a file
+    drops every POSIX lock the process holds on it, so an ``open()``/``close()`` of a store while another
+    connection of the same process has it open releases that connection's locks; the next connection to close
+    then takes itself for the last, copies its write-ahead log back and deletes it under a living writer. SQLite's
+    own file layer keeps such a descriptor open until the process's last lock is gone. Source: "How To Corrupt An
+    SQLite Database File", section 2.2, sqlite.org/howtocorrupt.html."""
+    import sqlite3
+    from urllib.parse import quote
+
+    try:
+        conn = sqlite3.connect(f"file:{quote(str(Path(path).absolute()))}?mode=ro&immutable=1", uri=True)
+        try:
+            conn.execute("PRAGMA schema_version").fetchone()
+        finally:
+            conn.close()
+    except sqlite3.DatabaseError as exc:
+        return getattr(exc, "sqlite_errorname", "") == "SQLITE_NOTADB"
+    return False
 
 
 def sqlite_engine(path: Path | str, *, pragmas: tuple[tuple[str, str], ...] = (), **kwargs: Any) -> Engine:

@@ -52,7 +52,6 @@ __all__ = ["TabletFile", "read_tablet", "recover_store"]
 
 Progress = Callable[[str], None]
 _PAGE = 5000
-_SQLITE_MAGIC = b"SQLite format 3\x00"
 _TABLET_TABLES = {"baulk_migration", "field_version", "sync_state"}  # a tablet file has them from its first sync
 
 
@@ -106,10 +105,9 @@ def _reading(path: Path) -> Iterator[sa.Connection]:
 def read_tablet(path: Path) -> TabletFile:
     """Check a tablet file whole (a tablet file, integrity, its versions' shapes and ids) and say what it holds."""
     path = Path(path)
-    with path.open("rb") as fh:
-        head = fh.read(len(_SQLITE_MAGIC))
-    if not head.startswith(_SQLITE_MAGIC):
-        what = "it is empty" if not head else "it is not a SQLite database"
+    empty = path.stat().st_size == 0
+    if empty or db.not_sqlite(path):  # read by SQLite, never by Python (schema.db.not_sqlite says why)
+        what = "it is empty" if empty else "it is not a SQLite database"
         raise NotABaulkStore(f"{path} is not a tablet file ({what}); give the tablets' own .sqlite files to "
                              "--from-tablet")
     with _reading(path) as conn:

@@ -110,7 +110,6 @@ def known_revisions() -> set[str]:
 
 # what a Baulk store holds from its first revision on: Alembic's table and the device and find tables
 _BAULK_TABLES = frozenset({"alembic_version", "device", "find"})
-_SQLITE_MAGIC = b"SQLite format 3\x00"
 
 
 def check_existing(url: str) -> None:
@@ -149,23 +148,21 @@ def _check_sqlite_file(path: Path) -> None:
         raise StoreMissing(f"no Baulk store at {where}; check the path, or {create}")
     if not where.is_file():
         raise StoreMissing(f"no Baulk store at {where} (it is a folder); give the store file inside it, or {create}")
-    with where.open("rb") as fh:
-        head = fh.read(100)
-    if head and not head.startswith(_SQLITE_MAGIC):
+    if db.not_sqlite(where):  # read by SQLite, never by Python (schema.db.not_sqlite says why)
         raise NotABaulkStore(f"{where} is not a Baulk store (it is not a SQLite database); check --db")
-    tables, revision = _sqlite_tables(where, wal=len(head) > 18 and head[18] == 2) if head else (set(), None)
+    tables, revision = _sqlite_tables(where) if where.stat().st_size else (set(), None)
     if not _BAULK_TABLES <= tables:
         raise NotABaulkStore(f"{where} is not a Baulk store (it has no Baulk tables); check --db")
     _check_revision(str(where), tables, revision)
 
 
-def _sqlite_tables(path: Path, *, wal: bool) -> tuple[set[str], str | None]:
-    """The file's table names and Alembic revision, read without writing a byte: read-only, and a WAL file whose
-    log is gone (nobody has it open) is read as immutable so that SQLite makes no -wal or -shm file beside it."""
+def _sqlite_tables(path: Path) -> tuple[set[str], str | None]:
+    """The file's table names and Alembic revision, read without writing a byte: read-only, and a file without a
+    log beside it (nobody has it open) is read as immutable so that SQLite makes no -wal or -shm file beside it."""
     import sqlite3
     from urllib.parse import quote
 
-    mode = "immutable=1" if wal and not path.with_name(path.name + "-wal").exists() else "mode=ro"
+    mode = "mode=ro" if path.with_name(path.name + "-wal").exists() else "mode=ro&immutable=1"
     try:
         conn = sqlite3.connect(f"file:{quote(str(path))}?{mode}", uri=True)
     except sqlite3.Error as exc:

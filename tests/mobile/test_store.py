@@ -163,3 +163,35 @@ def test_the_log_is_copied_back_when_the_app_is_idle(tablet, demo_site) -> None:
     assert other.execute("SELECT count(*) FROM find").fetchone()[0] == 5
     assert other.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     other.close()
+
+
+@pytest.mark.parametrize("kind", ["tablet", "camp"])
+def test_opening_a_store_again_keeps_this_processs_locks_on_it(tmp_path, kind: str) -> None:  # type: ignore[no-untyped-def]
+    """Opening a store checks what the file is; that look must go through SQLite, never a Python open()/close():
+    closing any descriptor on a file drops every POSIX lock the process holds on it, so another process would take
+    itself for the file's last user and fold the write-ahead log back and delete it under a living connection
+    (sqlite.org, "How To Corrupt An SQLite Database File", section 2.2). Seen as a damaged tablet file and a push
+    batch whose content changed after a tablet was killed mid-sync (tests/sync_server/test_crash.py)."""
+    import subprocess
+    import sys
+
+    from sync_server.store import ServerStore
+
+    path = tmp_path / "store.sqlite"
+
+    def open_store():  # type: ignore[no-untyped-def]
+        return TabletStore.open(path) if kind == "tablet" else ServerStore.open(f"sqlite:///{path}", create=False)
+
+    (TabletStore.open(path) if kind == "tablet" else ServerStore.open(f"sqlite:///{path}")).close()  # made
+    held = sqlite3.connect(path)  # another connection of this process, left open (WAL: it holds a shared lock)
+    try:
+        held.execute("SELECT count(*) FROM sqlite_master").fetchone()
+        open_store().close()
+        # another process writes and closes: it folds the log back and deletes it only if it is the last user
+        subprocess.run([sys.executable, "-c", "import sqlite3, sys; c = sqlite3.connect(sys.argv[1]); "
+                        "c.execute('CREATE TABLE IF NOT EXISTS other_process (x)'); c.commit(); c.close()", str(path)],
+                       check=True)
+        assert path.with_name(path.name + "-wal").exists(), "the other process took itself for the file's last user"
+        assert held.execute("PRAGMA integrity_check").fetchone() == ("ok",)
+    finally:
+        held.close()
