@@ -5,7 +5,8 @@
 - ``read_return_bundle``: a return bundle the camp server wrote for this tablet (``baulk bundle for-tablet``),
   checked whole, then applied exactly as pull pages (``mobile.sync.apply_page``) in one transaction, once: a
   bundle read again, or one whose changes arrived by a sync meanwhile, changes nothing. The batches it says
-  the camp holds are marked acknowledged, so the next bundle leaves them out.
+  the camp holds are marked acknowledged, so the next bundle leaves them out. The thumbnail pack beside it is
+  under its seal (``sealed_pack``): one that was changed is refused before anything is read; none is fine.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from typing import Any
 
 import sqlalchemy as sa
 
-from schema.errors import BundleLeavesGap, StoreError
+from schema.errors import BundleInvalid, BundleLeavesGap, StoreError
 from schema.records import Device
 from schema.sync.bundle import write_bundle
 from schema.sync.replica import state_get
@@ -28,7 +29,8 @@ from . import outbox
 from .store import TabletStore
 from .sync import apply_page, cursor_of, pending_count
 
-__all__ = ["ReturnRead", "export_bundle", "find_return_bundle", "keep_return_thumbnails", "read_return_bundle"]
+__all__ = ["ReturnRead", "export_bundle", "find_return_bundle", "keep_return_thumbnails", "read_return_bundle",
+           "sealed_pack"]
 
 
 def _enrolled(store: TabletStore) -> tuple[Any, str, str]:
@@ -123,6 +125,7 @@ def read_return_bundle(store: TabletStore, path: Path) -> ReturnRead:
                 "copy); nothing was read. Read the older return bundle first, or write a bundle on this tablet (it "
                 "tells the camp where this tablet stands), have it imported, and ask for a new return bundle for "
                 f"{label}")
+        sealed = sealed_pack(path, bundle.manifest.get("thumbnails"), label)  # before anything is applied
         blocks, unsent = {(b.first, b.last) for b in store.number_blocks()}, pending_count(store)
         with store.atomic() as conn:
             open_before = _open_conflicts(conn)
@@ -139,18 +142,62 @@ def read_return_bundle(store: TabletStore, path: Path) -> ReturnRead:
     return ReturnRead(path, bundle.versions, applied, reached, already=False, new_blocks=new_blocks,
                       conflicts_settled=settled, confirmed=unsent - pending_count(store),
                       numbers_left=store.numbers_left(), rechecked=rechecked,
-                      thumbnails=keep_return_thumbnails(store, path))
+                      thumbnails=keep_return_thumbnails(store, path, sealed=sealed))
 
 
 def _open_conflicts(conn: sa.Connection) -> int:
     return int(conn.execute(sa.select(sa.func.count()).select_from(open_conflict)).scalar_one())
 
 
-def keep_return_thumbnails(store: TabletStore, bundle: Path) -> int:
+def _pack_path(bundle: Path) -> Path:
+    return bundle.with_name(bundle.name + ".thumbs.zip")
+
+
+def _file_sha256(path: Path) -> str:
+    import hashlib
+
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def sealed_pack(bundle: Path, named: Any, label: str) -> dict[str, Any] | None:
+    """Check the thumbnail pack beside a return bundle (``<bundle>.thumbs.zip``) against what the bundle's sealed
+    manifest names (``thumbnails``: file, SHA-256, size). A missing pack is allowed (thumbnails are optional:
+    None); a pack whose size or hash differs, or one the bundle does not name, is refused (``BundleInvalid``,
+    naming the file and the fix) before anything is read."""
+    pack = _pack_path(bundle)
+    if not pack.is_file():
+        return None
+    fix = (f"Nothing was read. Copy {pack.name} again together with {bundle.name} from the camp computer (or ask "
+           f"the data manager to write both again: baulk bundle for-tablet {label}), or delete {pack.name} to read "
+           "the bundle without its photo thumbnails")
+    if named is None:
+        raise BundleInvalid(f"{pack.name} lies beside {bundle.name}, but the bundle's seal names no thumbnail pack: "
+                            f"it belongs to another bundle or was put there by hand. {fix}")
+    if not (isinstance(named, dict) and isinstance(named.get("sha256"), str) and isinstance(named.get("bytes"), int)
+            and named.get("file") == pack.name):
+        raise BundleInvalid(f"{bundle.name}: its manifest names the thumbnail pack in a way Baulk does not write "
+                            f"(file, sha256, bytes). {fix}")
+    size = pack.stat().st_size
+    if size != named["bytes"]:
+        differs = f"it has {size} bytes; the seal names {named['bytes']}"
+    elif _file_sha256(pack) != named["sha256"]:
+        differs = "its SHA-256 is not the one the seal names"
+    else:
+        return dict(named)
+    raise BundleInvalid(f"{pack.name} is not the thumbnail pack the camp server sealed with {bundle.name} "
+                        f"({differs}): it was changed, cut short or swapped after it was written. {fix}")
+
+
+def keep_return_thumbnails(store: TabletStore, bundle: Path, *, sealed: dict[str, Any] | None) -> int:
     """Keep the thumbnails in the pack beside a return bundle (``<bundle>.thumbs.zip``, written by the camp's
     ``sync_server.bundles.write_thumbnail_pack``) where this tablet's photo lists look for them
     (``mobile.photos.thumbnail``'s files): only of photo records it holds and whose files it does not, each a
-    PNG Pillow reads, written to a temporary name, flushed and renamed. The number kept; 0 without a pack."""
+    PNG Pillow reads, written to a temporary name, flushed and renamed. ``sealed`` is what ``sealed_pack``
+    returned (None: no pack to keep); the pack is checked against it again as it is opened. The number kept."""
     import io
     import os
     import uuid
@@ -162,9 +209,11 @@ def keep_return_thumbnails(store: TabletStore, bundle: Path) -> int:
 
     from .photos import THUMB_PIXELS, photo_folder, photo_path
 
-    pack = bundle.with_name(bundle.name + ".thumbs.zip")
-    if not pack.is_file():
+    pack = _pack_path(bundle)
+    if sealed is None or not pack.is_file():
         return 0
+    if pack.stat().st_size != sealed["bytes"] or _file_sha256(pack) != sealed["sha256"]:
+        return 0  # changed since the check a moment ago: none kept (the bundle itself was read)
     folder = photo_folder(store)
     wanted = {p.sha256 for p in store.list(Photo)}
     kept = 0

@@ -6,11 +6,15 @@ relation changes what the finds of its units are checked against: ``recheck_unit
 those finds, keeps the result beside each find, and says how many changed. Changes that arrive from the camp (a
 pull, a return bundle: corrections, resolutions, other tablets' finds and levels) can open or close a check on
 any find: ``recheck_arrived`` runs the checks over the tablet's whole site and rewrites the kept checks of the
-finds whose result changed.
+finds whose result changed. Told what arrived, it does nothing when no arrived version touches a record or field
+the checks read (``reads_checks``: a new number block, a photo, a sample, a find's notes), which spares the
+tablet a whole-site validation (about a second at 100k finds) after such a sync.
 """
 
 from __future__ import annotations
 
+import functools
+import typing
 import uuid
 from dataclasses import dataclass, field
 from typing import Iterable
@@ -24,7 +28,8 @@ from schema.tables import metadata
 from .store import TabletStore
 from .tables import live_check
 
-__all__ = ["Rechecked", "check_find", "check_matrix", "keep_checks", "recheck_arrived", "recheck_units"]
+__all__ = ["Rechecked", "check_find", "check_matrix", "keep_checks", "reads_checks", "recheck_arrived",
+           "recheck_units"]
 
 
 def check_find(store: TabletStore, find: Find) -> list[Issue]:
@@ -120,11 +125,44 @@ def _surface_issues(issues: Iterable[Issue]) -> dict[str, list[Issue]]:
     return out
 
 
-def recheck_arrived(store: TabletStore) -> Rechecked:
+@functools.cache
+def _checked() -> dict[str, frozenset[str] | None]:
+    """Record name -> the fields the checks read (None: every field), from what validation is given
+    (``schema.strata.SiteData``: whole records, and the finds' ``FIND_COLUMNS``, chosen by site)."""
+    from schema.records import Record
+    from schema.strata.data import FIND_COLUMNS, FindColumns, SiteData
+
+    out: dict[str, frozenset[str] | None] = {}
+    for hint in typing.get_type_hints(SiteData).values():
+        cls = (typing.get_args(hint) or (hint,))[0]
+        if cls is FindColumns:
+            out[Find.record_name] = frozenset((*FIND_COLUMNS, "site_id"))
+        elif isinstance(cls, type) and issubclass(cls, Record):
+            out[cls.record_name] = None
+        else:
+            raise TypeError(f"SiteData holds {hint}: say in mobile.checks._checked which versions change it")
+    return out
+
+
+def reads_checks(record: str, field_name: str) -> bool:
+    """Whether a version of this record's field can change what the checks find (validation reads it)."""
+    checked = _checked()
+    if record not in checked:
+        return False
+    fields = checked[record]
+    return fields is None or field_name in fields
+
+
+def recheck_arrived(store: TabletStore, arrived: Iterable[tuple[str, str]] | None = None) -> Rechecked | None:
     """After changes arrived from the camp (``mobile.sync`` pull, ``mobile.bundles`` return bundle): the checks
     of every find (not voided) run again over the site as the tablet now holds it, as ``check_find`` runs them
     after a save; a find whose open checks changed has them rewritten (confirmations of codes that still apply
-    kept), the rest are left alone (a voided find's are too). One validation per site, one transaction."""
+    kept), the rest are left alone (a voided find's are too). One validation per site, one transaction.
+
+    ``arrived``: the (record, field) of each version that arrived; when none of them is read by the checks
+    (``reads_checks``), nothing runs and None is returned. Not given: the checks run."""
+    if arrived is not None and not any(reads_checks(record, name) for record, name in arrived):
+        return None
     t = metadata.tables["find"]
     with store.read() as conn:
         finds = conn.execute(sa.select(t.c.id, t.c.number, t.c.site_id, t.c.unit_id)

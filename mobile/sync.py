@@ -5,12 +5,18 @@ the app in process). Unsent versions are cut into numbered batches once and stor
 connection re-sends the very same batch (the server then answers with its stored acknowledgement); so a request
 whose connection dropped (reset, refused, cut) is sent again at once, up to ``ATTEMPTS`` times, and counted in
 ``SyncReport.retries``: a push again is applied once, a pull again moves nothing until its page is applied. A pulled
-page and the new cursor are applied in one local transaction. Every reply carries the server's clock; the
-tablet keeps the offset and its own stamps follow it.
+page and the new cursor are applied in one local transaction. Camp Wi-Fi is slow, so both directions travel
+gzip-compressed: a push body is sent with ``Content-Encoding: gzip`` (sent again plain, and plain from then on
+when the server refuses that, 415, or cannot read it, 422: a server older than this), and the server gzips its
+answers since httpx asks for that by itself; ``SyncReport.sent_bytes`` and ``received_bytes`` count the bodies as
+they went on the wire. Every reply carries the server's clock; the tablet keeps the offset and its own stamps
+follow it.
 """
 
 from __future__ import annotations
 
+import gzip
+import json
 import time
 from dataclasses import dataclass, field
 from typing import Any, Callable
@@ -34,6 +40,7 @@ Progress = Callable[[str, int, int], None]
 MAX_BATCH = 5000  # the largest push batch the camp server takes (sync_server.sync.MAX_BATCH)
 MAX_PAGE = 2000  # the largest pull page it serves (sync_server.sync.MAX_PAGE)
 ATTEMPTS = 3  # a request whose connection dropped is sent this many times in all before the sync gives up
+GZIP_LEVEL = 5  # as the camp server's answers (sync_server.limits.COMPRESS_ANSWERS): a 500-version batch ~13x smaller
 KEEPALIVE_S = 5.0  # how long an idle connection is reused: well under the camp server's (sync_server.app.KEEP_ALIVE_S)
 
 
@@ -51,7 +58,10 @@ class SyncReport:
     # server's reason; acknowledged with their batch, so they are never sent again
     refused: list[dict[str, Any]] = field(default_factory=list)
     retries: int = 0  # requests sent again after their connection dropped
-    # the live checks run again once a pull brought changes (mobile.checks.recheck_arrived); None: nothing came
+    sent_bytes: int = 0  # request bodies as sent on the wire (push bodies gzip-compressed)
+    received_bytes: int = 0  # answer bodies as they came over the wire (gzip-compressed by the server)
+    # the live checks run again once a pull brought changes they read (mobile.checks.recheck_arrived); None: no
+    # such change came (nothing, or only number blocks, photos, a find's notes, ...)
     rechecked: Any = None
 
 
@@ -96,6 +106,7 @@ class SyncClient:
         self.headers = {"Authorization": f"Bearer {token}"}
         self.progress = progress or (lambda _stage, _done, _total: None)
         self._offset: int | None = None
+        self.gzip_push = True  # False once the server has refused a compressed push (an older server)
 
     # -- batches ------------------------------------------------------------------------------------------
     def pending_count(self) -> int:
@@ -109,9 +120,14 @@ class SyncClient:
     def _send(self, method: str, url: str, report: SyncReport | None, **kw: Any) -> httpx.Response:
         """The request, sent again when its connection dropped (both kinds are safe to repeat: a push is
         answered once per batch, a pull reads without changing anything)."""
+        headers = {**self.headers, **kw.pop("headers", {})}
         for attempt in range(1, ATTEMPTS + 1):
             try:
-                return self.http.request(method, url, headers=self.headers, **kw)
+                r = self.http.request(method, url, headers=headers, **kw)
+                if report is not None:
+                    report.sent_bytes += len(r.request.content)
+                    report.received_bytes += r.num_bytes_downloaded
+                return r
             except httpx.TransportError as exc:
                 if attempt == ATTEMPTS:
                     raise SyncError(f"the camp server did not answer ({type(exc).__name__}, tried {ATTEMPTS} times); "
@@ -123,7 +139,24 @@ class SyncClient:
 
     def _call(self, method: str, url: str, report: SyncReport | None = None, **kw: Any) -> dict[str, Any]:
         sent = time.time_ns() // 1_000_000
-        r = self._send(method, url, report, **kw)
+        return self._answer(self._send(method, url, report, **kw), sent)
+
+    def _push_call(self, body: dict[str, Any], report: SyncReport) -> dict[str, Any]:
+        """POST one batch, gzip-compressed unless this server could not take that."""
+        data = json.dumps(body, separators=(",", ":"), ensure_ascii=False).encode()
+        plain = {"content-type": "application/json"}
+        sent = time.time_ns() // 1_000_000
+        if self.gzip_push:
+            r = self._send("POST", "/v1/sync/push", report, content=gzip.compress(data, GZIP_LEVEL),
+                           headers={**plain, "content-encoding": "gzip"})
+            if r.status_code not in (415, 422):
+                return self._answer(r, sent)
+        r = self._send("POST", "/v1/sync/push", report, content=data, headers=plain)
+        if r.status_code < 400:  # taken plain, not compressed (415 refused; 422 read as broken JSON): an older server
+            self.gzip_push = False
+        return self._answer(r, sent)
+
+    def _answer(self, r: httpx.Response, sent: int) -> dict[str, Any]:
         if r.status_code >= 400:
             try:
                 body = r.json()
@@ -144,7 +177,7 @@ class SyncClient:
         for k, number in enumerate(todo, start=1):
             versions = self._batch(number)
             body = {"batch": number, "hash": batch_hash(versions), "versions": [v.model_dump(mode="json") for v in versions]}
-            ack = self._call("POST", "/v1/sync/push", report, json=body)
+            ack = self._push_call(body, report)
             outbox.mark_acked(self.store, number)
             report.pushed_batches += 1
             report.pushed_versions += len(versions)
@@ -155,6 +188,7 @@ class SyncClient:
             self.progress("push", k, len(todo))
 
     def pull(self, report: SyncReport) -> None:
+        touched: set[tuple[str, str]] = set()  # (record, field) of every version new here
         while True:
             with self.store.read() as conn:
                 cursor = cursor_of(conn)
@@ -167,13 +201,14 @@ class SyncClient:
                 new = apply_page(conn, versions, page["next"])
             report.pulled_versions += len(versions)
             report.applied_versions += len(new)
+            touched.update((v.record, v.field) for v in new)
             self.progress("pull", report.pulled_versions, report.pulled_versions + (self.page_size if page["more"] else 0))
             if not page["more"]:
                 break
         if report.applied_versions:  # a correction, a resolution, another tablet's levels may open or close checks
             from .checks import recheck_arrived
 
-            report.rechecked = recheck_arrived(self.store)
+            report.rechecked = recheck_arrived(self.store, touched)  # None: nothing the checks read came
 
     def sync(self) -> SyncReport:
         """Push everything unsent, then pull everything new; keeps the server clock offset."""

@@ -17,7 +17,8 @@ from pydantic import BaseModel
 from . import vocab
 from .records import Find, Sample, Unit
 
-__all__ = ["FIND_FIELDS", "SAMPLE_FIELDS", "UNIT_FIELDS", "FormField", "coerce", "find_form", "form_fields", "typed_values", "unit_form"]
+__all__ = ["FIND_FIELDS", "SAMPLE_FIELDS", "UNIT_FIELDS", "FormField", "coerce", "field_label", "find_form", "form_fields",
+           "typed_values", "unit_form"]
 
 Kind = Literal["text", "number", "integer", "choice", "flag"]
 
@@ -64,6 +65,12 @@ def _label(name: str) -> str:
         words = stem if unit != "z" else name
         return f"{words.replace('_', ' ').capitalize()} ({_UNITS[unit]})"
     return name.replace("_", " ").removesuffix(" id").capitalize()
+
+
+def field_label(name: str) -> str:
+    """A record field's label on a form and in messages (``void_reason`` -> ``Void reason``, ``weight_g`` ->
+    ``Weight (g)``), from its name in the record model."""
+    return _label(name)
 
 
 def _bounds(metadata: list[Any]) -> tuple[float | None, float | None]:

@@ -20,6 +20,7 @@ __all__ = [
     "UnitKind",
     "materials_for",
     "values",
+    "words",
 ]
 
 Category = Literal["artifact", "fossil", "sample"]
@@ -64,3 +65,9 @@ def values(vocabulary: object) -> tuple[str, ...]:
 def materials_for(category: str) -> tuple[str, ...]:
     """The materials allowed for a category (empty for an unknown category)."""
     return MATERIALS.get(category, ())
+
+
+def words(value: str) -> str:
+    """A vocabulary code as the words a person reads and picks (``tooth_enamel`` -> ``tooth enamel``); the code
+    is what is stored. Every screen and page shows codes through this one function."""
+    return str(value).replace("_", " ")

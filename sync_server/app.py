@@ -12,6 +12,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, RedirectResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.middleware.gzip import GZipMiddleware
 
 from schema import SCHEMA_VERSION, __version__
 from schema.errors import (
@@ -23,7 +24,7 @@ from .settings import ServerSettings
 from .store import ServerStore
 from .devices import EnrolRateLimit
 from .headers import SecurityHeaders
-from .limits import AnswerErrors, BodyLimit
+from .limits import COMPRESS_ANSWERS, AnswerErrors, BodyLimit
 from .photos import PhotoVault, default_photo_dir
 from .tls import cert_fingerprint
 from .validation import RevalidateAfterAnswer, Revalidator
@@ -191,6 +192,7 @@ def create_app(settings: ServerSettings | None = None, *, store: ServerStore | N
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     app.add_middleware(AnswerErrors, limit=settings.max_body_bytes)  # an error is answered, never a reset
     app.add_middleware(SecurityHeaders)
+    app.add_middleware(GZipMiddleware, **COMPRESS_ANSWERS)  # answers gzipped when asked for (limits.py)
     return app
 
 

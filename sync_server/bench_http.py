@@ -6,10 +6,13 @@ would cut (500 versions each, the tablet's default) and after each one pulls a p
 tablet's pushes are in (the timed part ends there), each pulls on until caught up. As a tablet does, a request
 whose connection dropped is sent again (a push again is answered from its stored acknowledgement); every retry is
 counted (``retries``). The run fails on any answer other than 200, on a tablet thread that stops, on a pull that
-serves a version twice, and when the server ends up with other than every version sent. Body bytes each way
-are counted per tablet: ``tablet_sent_mb``, ``tablet_received_mb`` (medians), and
-``tablet_received_before_mb``, what the tablet would have received had the pulls sent its own versions back
-too, as they did before issue 16 (the versions left out, ``own_left_out``, at their mean JSON size).
+serves a version twice, and when the server ends up with other than every version sent. As a tablet's
+(``mobile.sync``), push bodies go gzip-compressed and the server gzips its answers. Body bytes each way are
+counted per tablet as they went on the wire: ``tablet_sent_mb``, ``tablet_received_mb`` (medians); the same
+bodies as plain JSON, as they went before compression: ``tablet_sent_plain_mb``, ``tablet_received_plain_mb``;
+and ``tablet_received_before_mb``, what the tablet would have received as plain JSON had the pulls sent its own
+versions back too, as they did before issue 16 (the versions left out, ``own_left_out``, at their mean JSON
+size).
 ``server_tracebacks`` counts the errors in the server's log (a retry with none beside it is a dropped connection);
 ``client_gc_max_ms`` is the longest garbage collection of this process (it stops every tablet thread at once).
 The server runs in its own process, so its
@@ -22,6 +25,7 @@ full time over the half time (goal <= 2.2). Request latencies give ``push_p50_ms
 
 from __future__ import annotations
 
+import gzip
 import json
 import os
 import shutil
@@ -38,6 +42,7 @@ from schema.demo_site import build_site
 from schema.sync import batch_hash
 from schema.sync.tables import field_version
 
+from .limits import COMPRESS_ANSWERS
 from .loopback import free_port
 from .store import ServerStore
 
@@ -64,12 +69,15 @@ def _workload(demo: Any, devices: list[tuple[Any, str, int]], per_tablet: int) -
     tablets = []
     for device, token, first in devices:
         versions = _versions(demo, per_tablet, device.id, first_number=first)
-        bodies = []
+        bodies, plain, counts = [], [], []
         for n, i in enumerate(range(0, len(versions), BATCH), start=1):
             chunk = versions[i:i + BATCH]
-            bodies.append(json.dumps({"batch": n, "hash": batch_hash(chunk),
-                                      "versions": [json.loads(v.canonical()) for v in chunk]}).encode())
-        tablets.append({"token": token, "bodies": bodies, "versions": versions})
+            body = json.dumps({"batch": n, "hash": batch_hash(chunk),
+                               "versions": [json.loads(v.canonical()) for v in chunk]}).encode()
+            bodies.append(gzip.compress(body, COMPRESS_ANSWERS["compresslevel"]))  # as mobile.sync sends it
+            plain.append(len(body))
+            counts.append(len(chunk))
+        tablets.append({"token": token, "bodies": bodies, "plain": plain, "counts": counts, "versions": versions})
     return tablets
 
 
@@ -86,7 +94,8 @@ def _setup(size: int, work: Path) -> dict[str, Any]:
             block = server.issue_number_block(device_id=device.id, size=size)
             devices.append((device, token, block.first))
     full = _workload(demo, devices, size)
-    half = [{**t, "bodies": t["bodies"][: max(1, len(t["bodies"]) // 2)]} for t in full]
+    half = [{"token": t["token"], **{k: t[k][: max(1, len(t["bodies"]) // 2)] for k in ("bodies", "plain", "counts")}}
+            for t in full]
     rows = [{**json.loads(v.canonical()), "record_id": v.record_id, "device": v.device, "batch": 1, "log_seq": None}
             for t in full for v in t["versions"]]
     version_bytes = statistics.mean(len(v.canonical()) for t in full for v in t["versions"])
@@ -164,13 +173,15 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
                         raise
                     time.sleep(0.2 * (attempt + 1))
 
-        def pushes(http: Any, bodies: list[bytes], pull: Any, counts: dict[str, int]) -> None:
+        def pushes(http: Any, t: dict[str, Any], pull: Any, counts: dict[str, int]) -> None:
             """Push each batch, then pull one page after this tablet's cursor, as a syncing tablet does."""
-            for body in bodies:
+            for body, plain in zip(t["bodies"], t["plain"]):
                 t0 = time.perf_counter()
-                r = call(http, "POST", "/v1/sync/push", content=body)
+                r = call(http, "POST", "/v1/sync/push", content=body, headers={"content-encoding": "gzip"})
                 counts["sent"] += len(body)
-                counts["received"] += len(r.content)
+                counts["sent_plain"] += plain
+                counts["received"] += r.num_bytes_downloaded
+                counts["received_plain"] += len(r.content)
                 t1 = time.perf_counter()
                 page = pull()
                 t2 = time.perf_counter()
@@ -185,12 +196,13 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
             """The pushes (timed), then, once every tablet's are in, pull on until caught up (not timed). Counts
             the body bytes each way and the caller's own versions the pulls left out."""
             cursor, seen = 0, set()
-            counts = {"sent": 0, "received": 0, "own_left_out": 0, "pulled": 0}
+            counts = {"sent": 0, "received": 0, "sent_plain": 0, "received_plain": 0, "own_left_out": 0, "pulled": 0}
 
             def pull() -> Any:
                 nonlocal cursor
                 page = call(http, "GET", "/v1/sync/pull", params={"after": cursor, "limit": PAGE})
-                counts["received"] += len(page.content)
+                counts["received"] += page.num_bytes_downloaded  # gzip-compressed by the server
+                counts["received_plain"] += len(page.content)
                 if page.status_code != 200:
                     return page
                 got = page.json()
@@ -209,7 +221,7 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
                               limits=httpx.Limits(keepalive_expiry=KEEPALIVE_S)) as http:
                 try:
                     try:
-                        pushes(http, t["bodies"], pull, counts)
+                        pushes(http, t, pull, counts)
                     finally:
                         with pushing:
                             pushing_left[0] -= 1
@@ -252,7 +264,7 @@ def run_e2e(state: dict[str, Any], work: Path, tag: str, tablets: list[dict[str,
                            f"server log ends: {log[-3000:]}")
     import sqlalchemy as sa
 
-    expected = sum(len(json.loads(b)["versions"]) for t in tablets for b in t["bodies"])
+    expected = sum(n for t in tablets for n in t["counts"])
     with ServerStore.open(f"sqlite:///{db}", upgrade=False) as check:
         with check.read() as conn:
             held = int(conn.execute(sa.select(sa.func.count()).select_from(field_version)
@@ -288,11 +300,14 @@ def _after(state: dict[str, Any], work: Path) -> None:
     mb = 1024 * 1024
     own_bytes = state["version_bytes"]  # a version as JSON, on average: what each left-out one would have cost
     state["report"].update({
-        "tablet_sent_mb": round(statistics.median(w["sent"] for w in wire) / mb, 2),
-        "tablet_received_mb": round(statistics.median(w["received"] for w in wire) / mb, 2),
-        # before issue 16 the pull sent the tablet's own versions back too (estimate: their JSON size)
-        "tablet_received_before_mb": round(statistics.median(w["received"] + w["own_left_out"] * own_bytes
-                                                             for w in wire) / mb, 2),
+        "tablet_sent_mb": round(statistics.median(w["sent"] for w in wire) / mb, 3),
+        "tablet_received_mb": round(statistics.median(w["received"] for w in wire) / mb, 3),
+        # the same bodies as plain JSON (before they were gzip-compressed for the wire)
+        "tablet_sent_plain_mb": round(statistics.median(w["sent_plain"] for w in wire) / mb, 3),
+        "tablet_received_plain_mb": round(statistics.median(w["received_plain"] for w in wire) / mb, 3),
+        # before issue 16: plain JSON, and the pull sent the tablet's own versions back too (estimate: their size)
+        "tablet_received_before_mb": round(statistics.median(w["received_plain"] + w["own_left_out"] * own_bytes
+                                                             for w in wire) / mb, 3),
         "tablet_pulled_versions": int(statistics.median(w["pulled"] for w in wire)),
         "retries": sum(len(r["retries"]) for r in runs + half_runs),
         # errors the server logged (each answered 500 by limits.AnswerErrors, or a connection it had to close)

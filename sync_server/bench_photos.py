@@ -1,9 +1,15 @@
-"""photos.upload: n photos of about 4 MB from one tablet to a real server on loopback, with the tus-style upload
+"""photos.upload: n photos of about 4 MB from one tablet to a camp server on loopback, with the tus-style upload
 (``mobile.photos.upload_photos``: which are missing, create with the first chunk, PATCH chunks of up to 8 MiB,
 hash taken while streaming and an image-header check at the end), against the same bytes sent as one plain HTTP
 PUT each to a route on the same app, behind the same device check, that streams them to a file and flushes it
 (goal ratio <= 1.3). Also reports ``resume_sent_share``: the share of a photo sent again after an upload cut at
 90 % (goal: at most the missing 10 % plus one chunk).
+
+In both arms the camp server runs in its own process (uvicorn, the same app with the baseline's route added) and
+the tablet's side in the benchmark's: a tablet and a camp server are different machines, and in one process the
+client and the server would take turns on one interpreter lock, which charges each arm for the other side's
+Python work. Both arms start from the same server, the same connection and an empty folder (the last run's
+files removed, untimed).
 
 photos.memory: one photo of about 50 MB to a camp server in its own process: its peak resident memory over idle
 while receiving (goal: under idle + 30 MB, the photo streamed, never held whole), against a plain PUT of the same
@@ -63,61 +69,34 @@ def _plain_router(folder: Path) -> Any:
 
 
 def _setup(size: int, work: Path) -> dict[str, Any]:
-    import contextlib
-
-    import httpx
-
-    save_photo, SyncClient = _TABLET["photos"].save_photo, _TABLET["sync"].SyncClient
-    from schema.demo_site import build_site
-    from sync_server.app import create_app
-    from sync_server.loopback import serve_in_thread
-    from sync_server.store import ServerStore
-
-    server = ServerStore.open(f"sqlite:///{work / 'camp.sqlite'}")
-    demo = build_site()
-    with server.atomic():
-        for record in demo.setup_records():
-            server.add(record)
-    app = create_app(store=server)
-
-    app.include_router(_plain_router(work / "plain"))
-    stack = contextlib.ExitStack()
-    base = stack.enter_context(serve_in_thread(app))
-    http = stack.enter_context(httpx.Client(base_url=base, timeout=120))
-    TabletStore = _TABLET["store"].TabletStore
-
-    device, token = server.add_device(label="TAB-B", role="recorder")
-    server.issue_number_block(device_id=device.id, size=100)
-    tablet = TabletStore.open(work / "tab.sqlite")
-    tablet.set_identity(device=device)
-    tablet.set_token(token)
-    SyncClient(tablet, http, token).sync()
+    """A camp server in its own process (``_camp_server``), a tablet synced to it holding ``size`` photos of
+    about 4 MB whose records the server holds (the files not yet)."""
+    save_photo = _TABLET["photos"].save_photo
+    state = _camp_server(work, label="TAB-B")
+    tablet, demo = state["tablet"], state["demo"]
     unit = demo.units["101"]
     files = []
     for k in range(size):
-        data = _photo(k)
-        photo = save_photo(tablet, data=data, subject="unit", subject_id=unit.id, site_id=demo.site.id, by="AK",
-                           trench_id=unit.trench_id)
+        photo = save_photo(tablet, data=_photo(k), subject="unit", subject_id=unit.id, site_id=demo.site.id,
+                           by="AK", trench_id=unit.trench_id)
         files.append(photo.sha256)
-    SyncClient(tablet, http, token).sync()
-    return {"app": app, "http": http, "tablet": tablet, "token": token, "files": files, "stack": stack,
-            "report": {}}
+    _TABLET["sync"].SyncClient(tablet, state["http"], state["token"]).sync()
+    return {**state, "files": files}
 
 
-def _fresh_vault(state: dict[str, Any], work: Path, i: int, what: str) -> None:
-    """A new, empty photo folder for the server (the last run's removed first, untimed: the disk holds one run)."""
+def _fresh_vault(state: dict[str, Any]) -> Path:
+    """The server's photo folder emptied (untimed: the disk holds one run); its path."""
     import shutil
 
-    from sync_server.photos import PhotoVault
-
-    shutil.rmtree(state["app"].state.photos.root, ignore_errors=True)
-    state["app"].state.photos = PhotoVault(work / f"{what}-{i}")
+    vault = state["work"] / "vault"
+    shutil.rmtree(vault, ignore_errors=True)
+    return vault
 
 
 def _subject(state: dict[str, Any], work: Path, i: int) -> float:
     upload_photos = _TABLET["photos"].upload_photos
 
-    _fresh_vault(state, work, i, "vault")
+    _fresh_vault(state)
     start = time.perf_counter()
     report = upload_photos(state["tablet"], state["http"], state["token"])
     took = time.perf_counter() - start
@@ -145,28 +124,31 @@ def _after(state: dict[str, Any], work: Path) -> None:
     tab = _TABLET["photos"]
     CHUNK_BYTES, photo_folder, photo_path, upload_photos = (tab.CHUNK_BYTES, tab.photo_folder, tab.photo_path,
                                                             tab.upload_photos)
+    try:
+        vault = _fresh_vault(state)
+        sha, http, token = state["files"][0], state["http"], state["token"]
+        data = photo_path(photo_folder(state["tablet"]), sha).read_bytes()
+        tus = {"Authorization": f"Bearer {token}", "Tus-Resumable": "1.0.0"}
+        import base64
 
-    _fresh_vault(state, work, 99, "resume")
-    sha, http, token = state["files"][0], state["http"], state["token"]
-    data = photo_path(photo_folder(state["tablet"]), sha).read_bytes()
-    tus = {"Authorization": f"Bearer {token}", "Tus-Resumable": "1.0.0"}
-    import base64
-
-    http.post("/v1/photos/uploads", headers={**tus, "Upload-Length": str(len(data)),
-                                             "Upload-Metadata": f"sha256 {base64.b64encode(sha.encode()).decode()}"})
-    cut = len(data) * 9 // 10
-    http.patch(f"/v1/photos/uploads/{sha}", content=data[:cut], headers={
-        **tus, "Upload-Offset": "0", "Content-Type": "application/offset+octet-stream"})
-    for other in state["files"][1:]:  # only the cut one is missing in this vault
-        state["app"].state.photos.root.joinpath(other[:2]).mkdir(parents=True, exist_ok=True)
-        os.link(photo_path(photo_folder(state["tablet"]), other), state["app"].state.photos.path(other))
-    report = upload_photos(state["tablet"], http, token)
-    state["report"].update({
-        "photo_mb": round(len(data) / 1e6, 2),
-        "resume_sent_share": round(report.bytes_sent / len(data), 3),
-        "resume_goal_share": round(min(1.0, (len(data) - cut + CHUNK_BYTES) / len(data)), 3),
-    })
-    state["stack"].close()
+        r = http.post("/v1/photos/uploads", headers={**tus, "Upload-Length": str(len(data)), "Upload-Metadata":
+                                                     f"sha256 {base64.b64encode(sha.encode()).decode()}"})
+        assert r.status_code == 201, r.text
+        cut = len(data) * 9 // 10
+        r = http.patch(f"/v1/photos/uploads/{sha}", content=data[:cut], headers={
+            **tus, "Upload-Offset": "0", "Content-Type": "application/offset+octet-stream"})
+        assert r.status_code == 204, r.text
+        for other in state["files"][1:]:  # only the cut one is missing in this vault
+            (vault / other[:2]).mkdir(parents=True, exist_ok=True)
+            os.link(photo_path(photo_folder(state["tablet"]), other), vault / other[:2] / other)
+        report = upload_photos(state["tablet"], http, token)
+        state["report"].update({
+            "photo_mb": round(len(data) / 1e6, 2),
+            "resume_sent_share": round(report.bytes_sent / len(data), 3),
+            "resume_goal_share": round(min(1.0, (len(data) - cut + CHUNK_BYTES) / len(data)), 3),
+        })
+    finally:
+        _stop(state)
 
 
 # -- photos.memory: a 50 MB photo received by a camp server in its own process -----------------------------------
@@ -184,14 +166,13 @@ def _watch(parent=os.getppid()):  # the benchmark that started this server is go
 
 threading.Thread(target=_watch, daemon=True).start()
 import uvicorn
-from sync_server.app import create_app
+from sync_server.app import KEEP_ALIVE_S, create_app
 from sync_server.bench_photos import _plain_router
 from sync_server.settings import ServerSettings
-# the plain PUT sends the whole photo in one body: let it through the body limit (the tablet's chunks stay 8 MiB)
-app = create_app(ServerSettings(database_url=sys.argv[1], photos_dir=Path(sys.argv[2]),
-                                max_body_bytes=80 * 1024 * 1024))
+limit = {"max_body_bytes": int(sys.argv[5])} if int(sys.argv[5]) else {}  # 0: the default body limit
+app = create_app(ServerSettings(database_url=sys.argv[1], photos_dir=Path(sys.argv[2]), **limit))
 app.include_router(_plain_router(Path(sys.argv[3])))
-uvicorn.run(app, host="127.0.0.1", port=int(sys.argv[4]), log_level="warning")
+uvicorn.run(app, host="127.0.0.1", port=int(sys.argv[4]), log_level="warning", timeout_keep_alive=KEEP_ALIVE_S)
 """
 
 
@@ -241,9 +222,10 @@ def _big_photo(seed: int) -> bytes:
     return out.getvalue()
 
 
-def _setup_memory(size: int, work: Path) -> dict[str, Any]:
-    """A camp server in its own process, a tablet synced to it that has sent one small photo (the server warmed
-    up: Pillow and the routes loaded), then the record of a photo of about ``size`` MB (50: its side is fixed)."""
+def _camp_server(work: Path, *, label: str, max_body_bytes: int | None = None) -> dict[str, Any]:
+    """A camp server in its own process (``_SERVER``: the app with the baseline's route, its photo folder
+    ``work/vault``) with the demo site's set-up, and a tablet (a recorder, ``label``) synced to it; stopped by
+    ``_stop`` (or when the benchmark's process ends)."""
     import subprocess
     import sys
 
@@ -253,20 +235,19 @@ def _setup_memory(size: int, work: Path) -> dict[str, Any]:
     from sync_server.loopback import free_port
     from sync_server.store import ServerStore
 
-    save_photo, SyncClient = _TABLET["photos"].save_photo, _TABLET["sync"].SyncClient
     url = f"sqlite:///{work / 'camp.sqlite'}"
     server = ServerStore.open(url)
     demo = build_site()
     with server.atomic():
         for record in demo.setup_records():
             server.add(record)
-    device, token = server.add_device(label="TAB-M", role="recorder")
+    device, token = server.add_device(label=label, role="recorder")
     server.issue_number_block(device_id=device.id, size=100)
     server.close()
     port = free_port()
     log = open(work / "server.log", "w")
     proc = subprocess.Popen([sys.executable, "-c", _SERVER, url, str(work / "vault"), str(work / "plain"),
-                             str(port)], stdout=log, stderr=log)
+                             str(port), str(max_body_bytes or 0)], stdout=log, stderr=log)
     http = httpx.Client(base_url=f"http://127.0.0.1:{port}", timeout=300)
     deadline = time.monotonic() + 60
     while True:
@@ -282,7 +263,25 @@ def _setup_memory(size: int, work: Path) -> dict[str, Any]:
     tablet = _TABLET["store"].TabletStore.open(work / "tab.sqlite")
     tablet.set_identity(device=device)
     tablet.set_token(token)
-    SyncClient(tablet, http, token).sync()  # the site's set-up
+    _TABLET["sync"].SyncClient(tablet, http, token).sync()  # the site's set-up
+    return {"proc": proc, "http": http, "tablet": tablet, "token": token, "demo": demo, "work": work,
+            "report": {}}
+
+
+def _stop(state: dict[str, Any]) -> None:
+    state["http"].close()
+    state["tablet"].close()
+    state["proc"].terminate()
+    state["proc"].wait(timeout=30)
+
+
+def _setup_memory(size: int, work: Path) -> dict[str, Any]:
+    """A camp server in its own process, a tablet synced to it that has sent one small photo (the server warmed
+    up: Pillow and the routes loaded), then the record of a photo of about ``size`` MB (50: its side is fixed)."""
+    save_photo, SyncClient = _TABLET["photos"].save_photo, _TABLET["sync"].SyncClient
+    # the plain PUT sends the whole photo in one body: let it through the body limit (the tablet's chunks stay 8 MiB)
+    state = _camp_server(work, label="TAB-M", max_body_bytes=80 * 1024 * 1024)
+    tablet, http, token, demo = state["tablet"], state["http"], state["token"], state["demo"]
     unit = demo.units["101"]
     keep = dict(subject="unit", subject_id=unit.id, site_id=demo.site.id, by="AK", trench_id=unit.trench_id)
     save_photo(tablet, data=_photo(0), **keep)
@@ -291,9 +290,8 @@ def _setup_memory(size: int, work: Path) -> dict[str, Any]:
     big = save_photo(tablet, data=_big_photo(size), **keep)
     SyncClient(tablet, http, token).sync()
     time.sleep(0.5)
-    return {"proc": proc, "http": http, "tablet": tablet, "token": token, "sha": big.sha256, "bytes": big.bytes,
-            "work": work, "idle_kb": _rss_kb(proc.pid, "VmRSS"), "peaks": {"subject": [], "baseline": []},
-            "report": {}}
+    return {**state, "sha": big.sha256, "bytes": big.bytes, "idle_kb": _rss_kb(state["proc"].pid, "VmRSS"),
+            "peaks": {"subject": [], "baseline": []}}
 
 
 def _forget_big(state: dict[str, Any]) -> None:
@@ -361,10 +359,7 @@ def _memory_after(state: dict[str, Any], work: Path) -> None:
         report["resume_sent_mb"] = round(resumed.bytes_sent / 1e6, 2)
         report["resume_goal_mb"] = round((length - cut + tab.CHUNK_BYTES) / 1e6, 2)
     finally:
-        state["http"].close()
-        state["tablet"].close()
-        state["proc"].terminate()
-        state["proc"].wait(timeout=30)
+        _stop(state)
 
 
 def register(*, photos: Any, store: Any, sync: Any) -> None:

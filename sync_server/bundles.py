@@ -9,7 +9,9 @@
   devices' work) and which of its batches the camp holds, sealed for that device
   (``schema.sync.return_bundle``). Beside it, ``<bundle>.thumbs.zip`` carries thumbnails only (never the photo
   files) of the photos whose records it brings and which that tablet did not take, as the device may see them
-  (``photos.withheld_photo``); the tablet keeps them for its photo lists.
+  (``photos.withheld_photo``); the tablet keeps them for its photo lists. The pack is written before the
+  bundle's manifest is sealed, and the manifest names its SHA-256 and size (``pack_facts``), so the pack is
+  under the bundle's seal: the tablet refuses a pack that was changed or swapped (a missing one is allowed).
 """
 
 from __future__ import annotations
@@ -32,7 +34,8 @@ from .store import ServerStore
 from .sync import MAX_PAGE, _top_up, apply_push, pull_page
 from .tables import push_batch
 
-__all__ = ["RETURN_THUMB_PIXELS", "device_cursor", "import_bundle", "thumbnail_pack_path", "write_for_tablet",
+__all__ = ["RETURN_THUMB_PIXELS", "device_cursor", "import_bundle", "pack_facts", "thumbnail_pack_path",
+           "write_for_tablet",
            "write_thumbnail_pack"]
 
 
@@ -139,11 +142,19 @@ def write_for_tablet(store: ServerStore, *, label: str, out: Path, now: dt.datet
             if not page["more"]:
                 return
 
-    manifest = write_return_bundle(path, device=device.id, label=device.label, token_hash=str(device.token_hash),
-                                   after=after, pages=pages(), acked=acked)
     from .photos import vault_for
 
-    counts["thumbnails"] = write_thumbnail_pack(store, vault_for(store, photos_dir), device, path, photo_ids)
+    def pack() -> dict[str, Any] | None:  # after the pages (they name the photos), before the seal
+        counts["thumbnails"] = write_thumbnail_pack(store, vault_for(store, photos_dir), device, path, photo_ids)
+        return pack_facts(thumbnail_pack_path(path), counts["thumbnails"]) if counts["thumbnails"] else None
+
+    try:
+        manifest = write_return_bundle(path, device=device.id, label=device.label,
+                                       token_hash=str(device.token_hash), after=after, pages=pages(), acked=acked,
+                                       beside=pack)
+    except BaseException:
+        thumbnail_pack_path(path).unlink(missing_ok=True)  # no pack without the bundle that seals it
+        raise
     return {**manifest, "path": str(path), "issued": [(b.first, b.last) for b in issued],
             "blocks": [(b.first, b.last) for b in store.blocks_for(device.id)],
             "versions": sum(p["versions"] for p in manifest["pages"]), **counts}
@@ -157,6 +168,18 @@ RETURN_THUMB_PIXELS = 256
 def thumbnail_pack_path(bundle: Path) -> Path:
     """The thumbnail pack that travels beside a return bundle: ``<bundle>.thumbs.zip``."""
     return bundle.with_name(bundle.name + ".thumbs.zip")
+
+
+def pack_facts(pack: Path, count: int) -> dict[str, Any]:
+    """What a return bundle's sealed manifest says of its thumbnail pack (``thumbnails``): the file's name, its
+    SHA-256 and size, and how many thumbnails it holds; the tablet refuses a pack that differs."""
+    import hashlib
+
+    digest = hashlib.sha256()
+    with open(pack, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(block)
+    return {"file": pack.name, "sha256": digest.hexdigest(), "bytes": pack.stat().st_size, "count": count}
 
 
 def write_thumbnail_pack(store: ServerStore, vault: Any, device: Device, bundle: Path,

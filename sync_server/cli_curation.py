@@ -1,4 +1,5 @@
-"""``baulk horizon``, ``baulk date`` and ``baulk correct``: the data manager's curation at camp.
+"""``baulk horizon``, ``baulk date`` and ``baulk correct`` (finds, units, and relations voided or restored): the
+data manager's curation at camp.
 
 Each command parses its arguments, calls one function of ``sync_server.curation``, re-runs validation (as
 ``baulk season import`` does) and prints what was written in a line or two. Tablets pull every change at their
@@ -217,7 +218,8 @@ def date_list(site: str | None, database_url: str | None) -> None:
 # -- corrections ----------------------------------------------------------------------------------------------
 @click.group()
 def correct() -> None:
-    """Correct recorded fields of a find or a unit at camp, with a reason (tablets pull the correction)."""
+    """Correct recorded fields of a find or a unit, or void / restore a relation, at camp, with a reason (tablets
+    pull the correction)."""
 
 
 def _changes(pairs: tuple[str, ...]) -> dict[str, str]:
@@ -269,3 +271,48 @@ def correct_unit(code: str, changes: tuple[str, ...], reason: str, by: str, site
                  database_url: str | None) -> None:
     """Correct fields of a unit by its code (description, munsell, texture, status, closed_on, ...)."""
     _run_correction("unit", code, changes, reason, by, site, database_url)
+
+
+_MATRIX_CHECKS = ("MATRIX_CYCLE", "MATRIX_SELF", "MATRIX_FILL_NOT_CUT", "MATRIX_CUT_NOT_CUT", "MATRIX_FILL_BEFORE_CUT",
+                  "MATRIX_ORDERED_AND_CONTEMPORARY", "MATRIX_UNKNOWN_UNIT")
+
+
+def _run_relation(void: bool, upper: str, kind: str, lower: str, reason: str, by: str, site: str | None,
+                  database_url: str | None) -> None:
+    from .curation import restore_relation, void_relation
+
+    act = void_relation if void else restore_relation
+    with _store(database_url) as store:
+        done = act(store, upper=upper, kind=kind, lower=lower, reason=reason, by=by, site=site)
+        checks = _revalidate(store, site, _MATRIX_CHECKS)
+    copies = f" ({len(done.relations)} copies of it)" if len(done.relations) > 1 else ""
+    state = "voided: it no longer counts in the matrix" if void else "restored: it counts in the matrix again"
+    click.echo(f"relation {done.label}{copies} {state}")
+    click.echo(f"reason: {done.reason}")
+    click.echo(checks or "no matrix check is open")
+
+
+_relation_args = [click.argument("upper"), click.argument("kind"), click.argument("lower")]
+
+
+def _relation_command(func: Any) -> Any:
+    for decorate in reversed([*_relation_args, _reason_option, _by_option, _site_option, _db_option]):
+        func = decorate(func)
+    return func
+
+
+@correct.command("void-relation")
+@_relation_command
+def correct_void_relation(upper: str, kind: str, lower: str, reason: str, by: str, site: str | None,
+                          database_url: str | None) -> None:
+    """Void a wrong relation, named by its units and kind (e.g. 103 above 101; 'same as' or same_as), with a
+    reason; it is kept, left out of the matrix, and tablets pull the void."""
+    _run_relation(True, upper, kind, lower, reason, by, site, database_url)
+
+
+@correct.command("restore-relation")
+@_relation_command
+def correct_restore_relation(upper: str, kind: str, lower: str, reason: str, by: str, site: str | None,
+                             database_url: str | None) -> None:
+    """Put a voided relation back in force (e.g. 103 above 101), with a reason; tablets pull it."""
+    _run_relation(False, upper, kind, lower, reason, by, site, database_url)

@@ -1,5 +1,5 @@
 """The data manager's curation at camp: horizons (their order, lithostratigraphic names and which units belong),
-laboratory dates, and corrections of recorded finds and units with their reasons.
+laboratory dates, corrections of recorded finds and units with their reasons, and relations voided or restored.
 
 Every change goes through the store's versioned save (``save_versioned``), so it becomes field versions of the
 server's own device: it joins the change log and every tablet pulls it like any other set-up record. Each
@@ -31,7 +31,8 @@ from schema.errors import (
 )
 from schema.forms import coerce, form_fields
 from schema.records import (
-    AgeDetermination, Correction, Find, Horizon, HorizonAssignment, Record, Season, Site, Spit, Trench, Unit, spec_for,
+    AgeDetermination, Correction, Find, Horizon, HorizonAssignment, Record, Relation, Season, Site, Spit, Trench, Unit,
+    spec_for,
 )
 from schema.records.dating import DatingMethod
 from schema.tables import metadata
@@ -44,6 +45,7 @@ __all__ = [
     "DATE_COLUMNS", "METHODS", "Assignment", "Corrected", "DateImport",
     "add_date", "add_horizon", "assign_units", "assignment_history", "correct_record", "correctable_fields",
     "corrections", "import_dates_csv", "list_dates", "list_horizons", "reorder_horizons", "units_without_horizon",
+    "RelationChange", "restore_relation", "unit_relations", "void_relation",
 ]
 
 METHODS: tuple[str, ...] = vocab.values(DatingMethod)
@@ -659,3 +661,124 @@ def corrections(store: ServerStore, *, record: str, record_id: uuid.UUID) -> lis
     rows = store.list(Correction, record=record, record_id=record_id)
     return [{"at": c.at, "by": c.by, "fields": [_short(f) for f in c.fields.split(",")], "reason": c.reason}
             for c in sorted(rows, key=lambda c: c.at, reverse=True)]
+
+
+# -- relations: void and restore ------------------------------------------------------------------------------
+# A relation carries no Correction record (that record names finds and units only, and widening it is a schema
+# migration): who and why travel in the relation's own ``void_reason``, the when in its field versions. A voided
+# relation's reason reads "why (camp, DM)"; a relation restored at camp keeps "restored (camp, DM): why" there,
+# which nothing reads as a void (only ``voided`` does).
+RELATION_KINDS: tuple[str, ...] = vocab.values(vocab.RelationKind)
+
+
+@dataclass(frozen=True)
+class RelationChange:
+    """What a void or a restore wrote: the relations as they are now (every copy of the same observation), and
+    the relation in words (``103 above 101``)."""
+
+    relations: list[Relation]
+    label: str
+    voided: bool
+    reason: str
+
+
+def _kind(text: str) -> str:
+    kind = text.strip().lower().replace(" ", "_").replace("-", "_")
+    if kind not in RELATION_KINDS:
+        words = ", ".join(vocab.words(k) for k in RELATION_KINDS)
+        raise RecordInvalid("relation", [FieldProblem("kind", f"{text.strip()!r} is not a kind of relation"
+                                                      f"{_close(kind, RELATION_KINDS)}", f"use one of: {words}")])
+    return kind
+
+
+def _relation_label(r: Relation, code_of: dict[uuid.UUID, str]) -> str:
+    return f"{code_of.get(r.upper_unit_id, '?')} {vocab.words(r.kind)} {code_of.get(r.lower_unit_id, '?')}"
+
+
+def _relations_named(conn: Connection, site: Site, *, relation_id: uuid.UUID | None, upper: str | None,
+                     kind: str | None, lower: str | None) -> tuple[list[Relation], dict[uuid.UUID, str], str]:
+    """The relations meant: one by id, or every copy of ``upper kind lower`` (two tablets may have recorded the
+    same observation; a void or restore is of the observation)."""
+    units = list(db.select(conn, Unit, site_id=site.id))
+    code_of = {u.id: u.code for u in units}
+    if relation_id is not None:
+        found = [r for r in db.select(conn, Relation, id=relation_id) if r.site_id == site.id]
+        if not found:
+            raise RecordNotFound(f"site {site.code} has no relation with id {relation_id} (it may not have synced "
+                                 "yet); reload the unit's page")
+        return found, code_of, _relation_label(found[0], code_of)
+    by_code = {u.code: u.id for u in units}
+    missing = [c for c in (upper or "", lower or "") if c.strip() not in by_code]
+    if missing:
+        raise RecordNotFound(f"site {site.code} has no unit {missing[0].strip()!r}{_close(missing[0].strip(), by_code)}; "
+                             "name the relation by its two unit codes and its kind, e.g. 103 above 101")
+    a, b, k = by_code[(upper or "").strip()], by_code[(lower or "").strip()], _kind(kind or "")
+    label = f"{(upper or '').strip()} {vocab.words(k)} {(lower or '').strip()}"
+    found = [r for r in db.select(conn, Relation, site_id=site.id, upper_unit_id=a, lower_unit_id=b) if r.kind == k]
+    if not found:
+        held = [_relation_label(r, code_of) for r in db.select(conn, Relation, site_id=site.id)
+                if {r.upper_unit_id, r.lower_unit_id} == {a, b}]
+        known = f"; between these two units site {site.code} holds: {', '.join(held)}" if held else \
+            f"; site {site.code} holds no relation between these two units"
+        raise RecordNotFound(f"no relation {label} is recorded{known}")
+    return found, code_of, label
+
+
+def _set_void(store: ServerStore, *, void: bool, reason: str, by: str, relation_id: uuid.UUID | None,
+              upper: str | None, kind: str | None, lower: str | None, site: str | None) -> RelationChange:
+    verb = "void" if void else "restore"
+    reason, by = (reason or "").strip(), (by or "").strip()
+    if len(reason) < 3:
+        example = "'misread the section: 103 lies under 101'" if void else "'the section drawing confirms it'"
+        raise ReasonMissing(f"to {verb} a relation give a reason: say why, e.g. {example}")
+    if not by:
+        raise RecordInvalid(f"{verb} of the relation", [FieldProblem("by", "no initials were given",
+                                                                     "give your initials, e.g. DM")])
+    with store.atomic() as conn:
+        s = _site(conn, site)
+        found, code_of, label = _relations_named(conn, s, relation_id=relation_id, upper=upper, kind=kind,
+                                                 lower=lower)
+        todo = [r for r in found if r.voided != void]
+        if not todo:
+            state = f"voided ({found[0].void_reason})" if void else "in force"
+            raise NothingChanged(f"relation {label} is already {state}; nothing was {'voided' if void else 'restored'}")
+        text = f"{reason} (camp, {by})" if void else f"restored (camp, {by}): {reason}"
+        changed = []
+        for r in todo:
+            updated = check(Relation, {**r.model_dump(), "voided": void, "void_reason": text},
+                            record=f"relation {label}")
+            store.save_versioned(conn, updated, new=False)
+            changed.append(updated)
+    return RelationChange(changed, label, void, text)
+
+
+def void_relation(store: ServerStore, *, reason: str, by: str, relation_id: uuid.UUID | None = None,
+                  upper: str | None = None, kind: str | None = None, lower: str | None = None,
+                  site: str | None = None) -> RelationChange:
+    """Void a wrong relation at camp (by id, or by ``upper kind lower`` unit codes), with the manager's reason:
+    a versioned edit of the server's device that tablets pull; the matrix leaves it out from then on."""
+    return _set_void(store, void=True, reason=reason, by=by, relation_id=relation_id, upper=upper, kind=kind,
+                     lower=lower, site=site)
+
+
+def restore_relation(store: ServerStore, *, reason: str, by: str, relation_id: uuid.UUID | None = None,
+                     upper: str | None = None, kind: str | None = None, lower: str | None = None,
+                     site: str | None = None) -> RelationChange:
+    """Put a voided relation back in force at camp, with the reason (a versioned edit, like the void)."""
+    return _set_void(store, void=False, reason=reason, by=by, relation_id=relation_id, upper=upper, kind=kind,
+                     lower=lower, site=site)
+
+
+def unit_relations(store: ServerStore, *, unit_id: uuid.UUID) -> list[dict[str, Any]]:
+    """Every relation naming a unit, in force first then voided, each with the other unit and its reason."""
+    with store.read() as conn:
+        units = {u.id: u for u in db.select(conn, Unit, id=unit_id)}
+        if not units:
+            return []
+        site_id = units[unit_id].site_id
+        code_of = {u.id: u.code for u in db.select(conn, Unit, site_id=site_id)}
+        rels = [r for r in db.select(conn, Relation, site_id=site_id) if unit_id in (r.upper_unit_id, r.lower_unit_id)]
+    rows = [{"id": r.id, "upper": code_of.get(r.upper_unit_id, "?"), "upper_id": r.upper_unit_id,
+             "kind": vocab.words(r.kind), "lower": code_of.get(r.lower_unit_id, "?"), "lower_id": r.lower_unit_id,
+             "voided": r.voided, "reason": r.void_reason, "words": _relation_label(r, code_of)} for r in rels]
+    return sorted(rows, key=lambda x: (x["voided"], x["upper"], x["kind"], x["lower"], str(x["id"])))

@@ -11,16 +11,16 @@ deleted and the upload starts again from 0 (``UploadMismatch``); a file that is 
 too many pixels is deleted (``NotAnImage``, ``ImageTooLarge``); nothing half-received is ever served.
 
 The checks are cheap so that an upload costs about what a plain one does: the hash is taken while the bytes
-stream in (in 1 MiB blocks, on one hashing thread beside the event loop; kept per upload with the offset it covers; the partial file is hashed again only when the server lost
-it, e.g. after a restart), and the image is judged by its header (Pillow opens it without decoding the pixels:
-format and pixel size) and its structure (a JPEG must end its scan with the EOI marker, a PNG with its IEND chunk;
-other formats are decoded whole). A chunk is written as it arrives (``append`` takes an iterator of pieces): the
-server never holds a whole photo.
+stream in (each piece of the request body written to the partial file and fed to the running SHA-256 as it comes,
+with no copy and no thread hand-off; kept per upload with the offset it covers; the partial file is hashed again
+only when the server lost it, e.g. after a restart), and the image is judged by its header (Pillow opens it
+without decoding the pixels: format and pixel size) and its structure (a JPEG must end its scan with the EOI
+marker, a PNG with its IEND chunk; other formats are decoded whole, in a worker thread). A chunk is written as it
+arrives (``append`` takes an iterator of pieces): the server never holds a whole photo.
 """
 
 from __future__ import annotations
 
-import concurrent.futures
 import contextlib
 import hashlib
 import os
@@ -113,12 +113,25 @@ class PhotoVault:
 
     def begin(self, sha: str, length: int) -> UploadState:
         """Create the upload (idempotent: an upload already begun with the same length is kept as it stands)."""
+        state = self._begin(sha, length, wait=True)
+        assert state is not None
+        return state
+
+    def begin_now(self, sha: str, length: int) -> UploadState | None:
+        """``begin`` without waiting (the event loop's own call: a few file-system calls); None when another
+        request holds the photo meanwhile (then call ``begin`` in a worker thread)."""
+        return self._begin(sha, length, wait=False)
+
+    def _begin(self, sha: str, length: int, *, wait: bool) -> UploadState | None:
         if not 1 <= length <= MAX_PHOTO_BYTES:
             raise ImageTooLarge(f"an upload of {length} bytes cannot be a photo Baulk keeps (1 byte to "
                                 f"{MAX_PHOTO_BYTES // (1024 * 1024)} MiB); check Upload-Length")
         if self.has(sha):
             return self.state(sha)
-        with self.lock(sha):
+        lock = self.lock(sha)
+        if not lock.acquire(blocking=wait):
+            return None
+        try:
             part = self._partial(sha)
             if part is not None and int(part.suffix.lstrip(".")) != length:
                 part.unlink()  # a different length for the same hash: one of them is wrong; start again
@@ -129,6 +142,8 @@ class PhotoVault:
                 part.parent.mkdir(parents=True, exist_ok=True)
                 part.touch()
             return UploadState(part.stat().st_size, length)
+        finally:
+            lock.release()
 
     def append(self, sha: str, offset: int, pieces: Iterable[bytes]) -> UploadState:
         """Write a chunk that starts at ``offset``; finish the upload when its last byte arrives."""
@@ -162,7 +177,6 @@ class PhotoVault:
                 try:
                     yield chunk
                 finally:
-                    chunk.drain()
                     out.flush()
                     os.fsync(out.fileno())
                     self._digests[sha] = (chunk.state().offset, digest)
@@ -180,6 +194,34 @@ class PhotoVault:
             for block in iter(lambda: f.read(1 << 20), b""):
                 digest.update(block)
         return digest
+
+    QUICK_FINISH_BYTES = 32 * 1024 * 1024
+    """A complete JPEG or PNG up to this size whose running hash covers every byte is finished where its last
+    chunk was received (``finish_now``): what is left is the header and end-marker check and a rename."""
+
+    def finish_now(self, sha: str, state: UploadState) -> UploadState | None:
+        """``finish``, when it is cheap enough for the event loop that received the last chunk: not complete, or
+        complete with the running hash of every byte at hand, a JPEG or PNG (judged without decoding) of at most
+        ``QUICK_FINISH_BYTES``, and no other request holding the photo. None otherwise: call ``finish`` in a
+        worker thread (it may hash the whole file again, or decode an image of another format)."""
+        if not state.complete:
+            return state
+        kept = self._digests.get(sha)
+        if kept is None or kept[0] != state.length or state.length > self.QUICK_FINISH_BYTES or self.has(sha):
+            return None
+        part = self._partial(sha)
+        if part is None:
+            return None
+        with open(part, "rb") as f:
+            if not f.read(8).startswith((b"\xff\xd8\xff", b"\x89PNG\r\n\x1a\n")):
+                return None
+        lock = self.lock(sha)
+        if not lock.acquire(blocking=False):
+            return None
+        try:
+            return self._finish(sha, part)
+        finally:
+            lock.release()
 
     def finish(self, sha: str, state: UploadState) -> UploadState:
         """Keep the photo once every byte is in (hash and image checked); otherwise where the upload stands."""
@@ -234,60 +276,25 @@ def _save_thumb(img: Any, out: Path, size: int) -> None:
     os.replace(tmp, out)
 
 
-_HASHERS: dict[int, concurrent.futures.ThreadPoolExecutor] = {}
-
-
-def _hasher() -> concurrent.futures.ThreadPoolExecutor:
-    """One thread per process hashes the blocks of every upload in the order they were written (a running SHA-256
-    must be fed in order), beside the event loop that receives the next block. Made afresh in a forked child,
-    whose copy of the parent's executor has no thread."""
-    pid = os.getpid()
-    if pid not in _HASHERS:
-        _HASHERS.clear()
-        _HASHERS[pid] = concurrent.futures.ThreadPoolExecutor(max_workers=1, thread_name_prefix="baulk-photo-hash")
-    return _HASHERS[pid]
-
-
 class Chunk:
-    """The chunk being received: ``write`` refuses bytes past the declared length. Pieces are gathered up to
-    ``BLOCK`` bytes and each block is written and hashed at once (a request body comes in pieces of some 64 KiB;
-    fewer, larger writes and hash updates cost less); ``drain`` writes what is left, and the upload's
-    ``receiving`` calls it before it flushes the file, also when the connection was cut."""
-
-    BLOCK = 1 << 20
+    """The chunk being received: ``write`` refuses bytes past the declared length, writes each piece to the file
+    as it comes (a request body arrives in pieces of up to some 256 KiB) and feeds it to the upload's running
+    SHA-256 in the same step (hashlib lets go of the GIL while it hashes a piece): no copy of the bytes, no
+    thread hand-off, and ``written`` counts only bytes both written and hashed. The upload's ``receiving``
+    flushes the file after the last piece, also when the connection was cut."""
 
     def __init__(self, out: Any, start: UploadState, digest: Any = None):
         self._out, self._start, self._digest, self.written = out, start, digest, 0
-        self._pending = bytearray()
-        self._hashing: Any = None  # the block being hashed (a Future of _HASHER)
 
     def write(self, piece: bytes) -> None:
         if self._out is None:
             return
-        if self._start.offset + self.written + len(self._pending) + len(piece) > self._start.length:
+        if self._start.offset + self.written + len(piece) > self._start.length:
             raise OffsetMismatch(f"the chunk runs past the declared length ({self._start.length} bytes); send only "
                                  "the bytes of the photo")
-        self._pending += piece
-        if len(self._pending) >= self.BLOCK:
-            self.drain(last=False)
-
-    def drain(self, *, last: bool = True) -> None:
-        """Write the gathered bytes and hand them to the hashing thread (``written`` counts only bytes handed to
-        the file); with ``last``, wait until every block is hashed. At most one block is being hashed while the
-        next is gathered, so an upload holds two blocks at most."""
-        if self._out is None:
-            return
-        if self._pending:
-            block = bytes(self._pending)
-            self._pending.clear()
-            self._out.write(block)
-            self.written += len(block)
-            if self._hashing is not None:
-                self._hashing.result()
-            self._hashing = _hasher().submit(self._digest.update, block)  # hashlib lets go of the GIL meanwhile
-        if last and self._hashing is not None:
-            self._hashing.result()
-            self._hashing = None
+        self._out.write(piece)
+        self._digest.update(piece)
+        self.written += len(piece)
 
     def state(self) -> UploadState:
         return UploadState(self._start.offset + self.written, self._start.length)

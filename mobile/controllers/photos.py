@@ -17,7 +17,8 @@ from schema.records import Photo
 from schema.records.photo import FACINGS
 from schema.errors import FieldProblem
 
-from ..photos import copy_from, free_space_line, photo_folder, photo_path, save_photo, thumbnail, thumbnail_if_kept
+from ..photos import (copy_from, free_space_line, photo_folder, photo_path, save_photo, thumbnail, thumbnail_if_kept,
+                      void_photo)
 from .day import DayController
 
 __all__ = ["PhotoController", "PhotoTarget"]
@@ -73,20 +74,31 @@ class PhotoController:
                           facing=facing or None, scale_in_frame=scale, north_arrow_in_frame=north_arrow,
                           taken_at=day.now(), folder=self.folder, name=path.name)
 
+    def void(self, photo: Photo, reason: str) -> Photo:
+        """Void a photo with a reason (kept in the register, marked); a find's ``photo_hashes`` loses its hash."""
+        return void_photo(self.store, photo.id, reason)
+
     def photos_of(self, subject_id: uuid.UUID) -> list[Photo]:
         return [p for p in self.store.list(Photo, subject_id=subject_id, order_by="number") if not p.voided]
 
     def thumbnail(self, photo: Photo) -> Path:
         return thumbnail(self.folder, photo.sha256)
 
+    def newest_photo(self, subject_id: uuid.UUID) -> Photo | None:
+        """The newest photo of a find or unit (not voided), as the find list picks it; None when it has none."""
+        kept = self.photos_of(subject_id)
+        return max(kept, key=lambda p: (p.taken_at, p.number)) if kept else None
+
+    def thumbnail_if_kept(self, photo: Photo) -> Path | None:
+        """The photo's thumbnail (made from the file the first time: slow, so the screens call it on the
+        thumbnail worker's thread); None when this tablet has neither the file nor a thumbnail from camp."""
+        return thumbnail_if_kept(self.folder, photo.sha256)
+
     def newest(self, subject_id: uuid.UUID) -> tuple[Photo, Path | None] | None:
         """The newest photo of a find or unit and its thumbnail (None when this tablet lacks the file: a photo
         taken on another tablet); None when it has no photo."""
-        kept = self.photos_of(subject_id)
-        if not kept:
-            return None
-        photo = max(kept, key=lambda p: (p.taken_at, p.number))  # as the find list picks it
-        return photo, thumbnail_if_kept(self.folder, photo.sha256)
+        photo = self.newest_photo(subject_id)
+        return (photo, self.thumbnail_if_kept(photo)) if photo is not None else None
 
     def file(self, photo: Photo) -> Path:
         return photo_path(self.folder, photo.sha256)

@@ -8,6 +8,7 @@ import uuid
 from dataclasses import dataclass, field
 from typing import Any
 
+from schema import vocab
 from schema.errors import FieldProblem, RecordInvalid, RecordNotFound
 from schema.forms import FormField, typed_values, unit_form
 from schema.records import LevelPoint, Relation, Unit
@@ -22,7 +23,7 @@ from ..store import TabletStore
 from .day import DayController
 from .finds import shoring_for
 
-__all__ = ["RelationLine", "UnitsController", "VoidedRelation"]
+__all__ = ["RelationLine", "RestoredRelation", "UnitsController", "VoidedRelation"]
 
 
 @dataclass
@@ -48,9 +49,13 @@ class RelationLine:
     def voided(self) -> bool:
         return self.void_reason is not None
 
+    def plain(self) -> str:
+        """``103 above 101``: the relation in words, in force or not."""
+        return f"{self.upper} {vocab.words(self.kind)} {self.lower}"
+
     def words(self) -> str:
         """``103 above 102``, or ``VOIDED 103 above 102 (why)`` for a voided one."""
-        text = f"{self.upper} {self.kind.replace('_', ' ')} {self.lower}"
+        text = self.plain()
         return f"VOIDED {text} ({self.void_reason})" if self.voided else text
 
 
@@ -61,6 +66,11 @@ class VoidedRelation:
     line: RelationLine
     issues: list[Issue] = field(default_factory=list)  # matrix problems still naming the two units
     rechecked: Rechecked = field(default_factory=Rechecked)
+
+
+@dataclass
+class RestoredRelation(VoidedRelation):
+    """A voided relation put back in force, and what the matrix and the two units' finds say with it again."""
 
 
 class UnitsController:
@@ -124,6 +134,29 @@ class UnitsController:
                   if i.record_id in mine or codes & set(i.label.replace(",", " ").split())]
         return VoidedRelation(_line(voided, by_id), issues,
                               recheck_units(self.store, [voided.upper_unit_id, voided.lower_unit_id]))
+
+    def restore_relation(self, relation_id: uuid.UUID, reason: str) -> RestoredRelation:
+        """Put a voided relation back in force with the recorder's reason (kept in its ``void_reason`` as
+        "restored (AK): why"; only ``voided`` makes a relation void): a new version that syncs like the void did;
+        the matrix and the two units' finds are checked again."""
+        day = self.days.require_day()
+        if not reason.strip():
+            raise RecordInvalid("restore of the relation", [FieldProblem(
+                "reason", "restoring a relation needs a reason", "say why the relation was right after all, e.g. "
+                "'the section drawing confirms it'")])
+        current = self.store.get(Relation, relation_id)
+        if not current.voided:
+            raise RecordInvalid("restore of the relation", [FieldProblem(
+                "relation", "it is in force, not voided", "nothing to restore")])
+        restored = self.store.put(check(Relation, {**current.model_dump(), "voided": False,
+                                                   "void_reason": f"restored ({day.recorder}): {reason.strip()}"}))
+        by_id = {u.id: u.code for u in self.store.list(Unit, site_id=restored.site_id)}
+        codes = {by_id.get(restored.upper_unit_id, "?"), by_id.get(restored.lower_unit_id, "?")}
+        mine = {str(restored.id), str(restored.upper_unit_id), str(restored.lower_unit_id)}
+        issues = [i for i in check_matrix(self.store)
+                  if i.record_id in mine or codes & set(i.label.replace(",", " ").split())]
+        return RestoredRelation(_line(restored, by_id), issues,
+                                recheck_units(self.store, [restored.upper_unit_id, restored.lower_unit_id]))
 
     def relate(self, *, upper: str, lower: str, kind: str) -> Related:
         """Record that ``upper`` is above / cuts / fills / is the same as / contemporary with ``lower``; the matrix

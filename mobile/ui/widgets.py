@@ -108,5 +108,8 @@ class FormGrid(GridLayout):
 
 
 def shown_words(value: str) -> str:
-    """A vocabulary's key as words on screen (``horn_core`` -> ``horn core``); the key itself is what is stored."""
-    return value.replace("_", " ")
+    """A vocabulary's key as words on screen (``horn_core`` -> ``horn core``); the key itself is what is stored.
+    The words come from ``schema.vocab.words``, the one rule for every screen and page."""
+    from schema.vocab import words
+
+    return words(value)

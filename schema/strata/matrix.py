@@ -138,7 +138,8 @@ def _cycles_and_reduction(m: Matrix, edge_relations: dict[tuple[uuid.UUID, uuid.
             "MATRIX_CYCLE", "unit", min(comp, key=m.label), "units " + ", ".join(labels),
             f"units {', '.join(labels)} go round in a circle: each is recorded both above and below another",
             "check the relations between these units on site and void the wrong one with a reason "
-            "(Units screen: choose the unit, then Void beside the relation)",
+            "(Units screen: choose the unit, then Void beside the relation; at camp: the unit's page (its name "
+            "on Checks or Matrix), Relations, Void)",
             value=len(comp), detail=",".join(rel_ids),
         ))
         for (a, b), rs in edge_relations.items():

@@ -5,7 +5,8 @@ A return bundle is a zip holding ``manifest.json`` and one ``pages/NNNNNN.json``
 log. The manifest names the format and its version, the device it is for, the change-log position it starts
 after (the cursor the device last reported in a bundle of its own; 0 when it never sent one) and the position
 it reaches, the device's own batches the camp holds (``acked``: every batch up to that number, so the tablet
-stops carrying them), and each page's positions, version count and content hash (``batch_hash``). It is sealed like the
+stops carrying them), each page's positions, version count and content hash (``batch_hash``), and the thumbnail
+pack beside it (``thumbnails``: its file name, SHA-256, size and count; null for none). It is sealed like the
 device's own bundles (``schema.sync.bundle``): an HMAC-SHA256 keyed by the SHA-256 of the device's token, which
 the server keeps and the tablet computes from its token, so no other device can read one as its own and a
 changed byte is caught.
@@ -29,7 +30,7 @@ import re
 import uuid
 import zipfile
 from pathlib import Path
-from typing import Any, Iterable, Iterator
+from typing import Any, Callable, Iterable, Iterator
 
 from ..errors import BundleForAnotherDevice, BundleInvalid
 from ..fields import MAX_JSON_INT
@@ -55,11 +56,16 @@ def safe_label(label: str) -> str:
 
 
 def write_return_bundle(path: Path, *, device: uuid.UUID, label: str, token_hash: str, after: int,
-                        pages: Iterable[tuple[int, int, list[Version]]], acked: int = 0) -> dict[str, Any]:
+                        pages: Iterable[tuple[int, int, list[Version]]], acked: int = 0,
+                        beside: Callable[[], dict[str, Any] | None] | None = None) -> dict[str, Any]:
     """Write ``pages`` (each ``(after, next, versions)``, in change-log order, starting after ``after``) into one
     file sealed for ``device``, with ``acked`` (the device's batches up to that number are held at camp),
     atomically (a temporary file renamed into place; removed when writing fails); returns the manifest. Pages
-    are written as they come, so the change log never sits in memory whole."""
+    are written as they come, so the change log never sits in memory whole.
+
+    ``beside``, called once the pages are written and before the seal, names a file written beside the bundle
+    (the thumbnail pack: its ``file`` name, ``sha256``, ``bytes`` and ``count``); it goes into the manifest as
+    ``thumbnails`` (null: none), under the seal."""
     path = Path(path)
     tmp = path.with_name(path.name + ".part")
     entries: list[dict[str, Any]] = []
@@ -74,6 +80,7 @@ def write_return_bundle(path: Path, *, device: uuid.UUID, label: str, token_hash
                 "format": RETURN_FORMAT, "format_version": RETURN_VERSION, "device": str(device), "device_label": label,
                 "created_at": dt.datetime.now(dt.timezone.utc).isoformat(), "after": after,
                 "next": entries[-1]["next"] if entries else after, "acked": acked, "pages": entries,
+                "thumbnails": beside() if beside is not None else None,
             }
             manifest["seal"] = _seal(manifest, token_hash)
             z.writestr("manifest.json", json.dumps(manifest, indent=2))

@@ -9,6 +9,12 @@ bytes that do not hash to their name are discarded and answered 460 (the status 
 gives a checksum mismatch). The creation request may carry the first chunk (the tus "Creation With Upload"
 extension), so a photo that fits in one chunk takes one request; ``/missing`` says which uploads were begun
 already, so a tablet resumes those with PATCH from where they stand and sends nothing twice.
+
+The usual upload is handled on the event loop alone: ``/missing`` looks up in one query which of the hashes it
+lists have photo records (remembered, so that each creation needs no query of its own), the upload is begun and
+its chunk written and hashed as it streams in, and a complete JPEG or PNG is checked and renamed where its last
+byte arrived. Only the rest goes to a worker thread: a hash not remembered (its record is looked up), a photo
+another request holds, a file to hash again after a restart, an image of another format to decode whole.
 """
 
 from __future__ import annotations
@@ -98,9 +104,43 @@ def _version_refused(request: Request) -> JSONResponse | None:
 
 
 def _has_record(request: Request, sha: str) -> bool:
+    if sha in _recorded(request):
+        return True
     photo = metadata.tables["photo"]
     with request.app.state.store.read() as conn:
-        return conn.execute(sa.select(photo.c.id).where(photo.c.sha256 == sha).limit(1)).first() is not None
+        found = conn.execute(sa.select(photo.c.id).where(photo.c.sha256 == sha).limit(1)).first() is not None
+    if found:
+        _remember(request, [sha])
+    return found
+
+
+_RECORDED_MAX = 100_000  # hashes remembered at most (some 10 MB); past that the memory starts again
+
+
+def _recorded(request: Request) -> set[str]:
+    """Hashes some photo record is known to name (records are versioned, never deleted, so a hash once named
+    stays named): filled by ``/missing``, one query for every hash it lists, so that creating each upload needs
+    no query of its own."""
+    known: set[str] | None = getattr(request.app.state, "photo_recorded", None)
+    if known is None:
+        known = request.app.state.photo_recorded = set()
+    return known
+
+
+def _remember(request: Request, hashes: list[str]) -> None:
+    known = _recorded(request)
+    if len(known) + len(hashes) > _RECORDED_MAX:
+        known.clear()
+    known.update(hashes)
+
+
+def _with_records(request: Request, hashes: list[str]) -> list[str]:
+    """Those of ``hashes`` that some photo record names (one query)."""
+    if not hashes:
+        return []
+    photo = metadata.tables["photo"]
+    with request.app.state.store.read() as conn:
+        return [r[0] for r in conn.execute(sa.select(photo.c.sha256).distinct().where(photo.c.sha256.in_(hashes)))]
 
 
 @router.post("/missing", response_model=MissingAnswer)
@@ -108,6 +148,7 @@ def missing(request: Request, body: MissingAsk, _device: Uploader) -> MissingAns
     """Which of these photo files the camp server lacks (the tablet uploads those, after its versions)."""
     vault = _vault(request)
     lacking = vault.missing(body.hashes)
+    _remember(request, _with_records(request, lacking))
     return MissingAnswer(missing=lacking, begun=vault.begun(lacking), max_chunk_bytes=request.app.state.max_body_bytes)
 
 
@@ -133,9 +174,14 @@ async def create_upload(request: Request, _device: Uploader,
         return refused
     sha = _metadata_hash(upload_metadata)
     vault = _vault(request)
-    try:  # an upload whose every byte is in but which was not kept (a power cut lost the rename) is finished here
-        state = await run_in_threadpool(_begin, request, vault, sha, upload_length)
-    except PhotoError as exc:
+    try:
+        state: UploadState | None = None
+        if sha is not None and sha in _recorded(request):  # the usual case: no query, no worker thread
+            state = vault.begin_now(sha, upload_length)
+        if state is None or state.complete:
+            # an upload whose every byte is in but which was not kept (a power cut lost the rename) is finished here
+            state = await run_in_threadpool(_begin, request, vault, sha, upload_length)
+    except (PhotoError, RecordNotFound) as exc:
         return _refusal(exc)
     if _sends_body(request) and state.offset == 0 and not state.complete:
         answer = await _receive(request, vault, sha, 0)
@@ -167,7 +213,8 @@ async def _receive(request: Request, vault: PhotoVault, sha: str, offset: int) -
         with vault.receiving(sha, offset) as chunk:
             async for piece in request.stream():
                 chunk.write(piece)
-        return await run_in_threadpool(vault.finish, sha, chunk.state())
+        done = vault.finish_now(sha, chunk.state())  # the usual case: the header and end check, the rename
+        return done if done is not None else await run_in_threadpool(vault.finish, sha, chunk.state())
     except (PhotoError, RecordNotFound) as exc:
         return _refusal(exc)
 

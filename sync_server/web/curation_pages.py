@@ -1,7 +1,7 @@
 """The data manager's curation pages: **Horizons** (the order top to bottom with unit counts and lithostratigraphic
 names; add, move up or down, put units in a horizon with a reason; the assignment history), **Dates** (the
 laboratory dates; add one, import a CSV by upload), **corrections** of a find (a panel on the existing find page)
-or a unit (its own page: fields, horizon history, corrections), and **Site** (the site set-up: settings, seasons,
+or a unit (its own page: fields, relations with Void / Restore and a reason, horizon history, corrections), and **Site** (the site set-up: settings, seasons,
 control points with their grid residuals, trenches drawn on a small plan).
 
 Every change calls one function of ``sync_server.curation`` (or nothing); its versioned save counts the change,
@@ -47,6 +47,8 @@ ROUTE_ROLES: dict[str, str] = {
     "POST /camp/finds/{find_id}/correct": "page: manager",
     "GET /camp/units/{unit_id}": "page: manager, analyst",
     "POST /camp/units/{unit_id}/correct": "page: manager",
+    "POST /camp/relations/{relation_id}/void": "page: manager",
+    "POST /camp/relations/{relation_id}/restore": "page: manager",
     "GET /camp/site": "page: manager, analyst",
 }
 
@@ -314,7 +316,10 @@ async def find_correct(request: Request, find_id: str) -> Response:
 
 
 def _unit_page(request: Request, session: Session, unit_id: str, *, status: int = 200,
-               form: dict[str, str] | None = None, error: str | None = None) -> Response:
+               form: dict[str, str] | None = None, error: str | None = None,
+               relation_error: tuple[str, str, dict[str, str]] | None = None) -> Response:
+    """The unit page; ``error`` is a refused correction, ``relation_error`` a refused void or restore (relation
+    id, message, the form as sent), shown beside that relation."""
     store = request.app.state.store
     found = store.list(Unit, id=_uuid(unit_id, "unit"))
     if not found:
@@ -328,9 +333,12 @@ def _unit_page(request: Request, session: Session, unit_id: str, *, status: int 
               for k, v in shown.items() if v not in (None, "")]
     history = curation.assignment_history(store, unit=u.code, limit=None)
     panel = _panel(request, session, "unit", u.id, f"/camp/units/{u.id}/correct", form=form, error=error)
+    relations = curation.unit_relations(store, unit_id=u.id)
+    message = f"Unit not corrected: {error}" if error else request.query_params.get("message")
     return _page(request, "unit.html", session, f"Unit {u.code}", status=status, page="horizons", unit=u,
                  fields=fields, history=[{**h, "at": _stamp(request, h["at"])} for h in history], panel=panel,
-                 message=f"Unit not corrected: {error}" if error else None, error=bool(error))
+                 relations=relations, relation_error=relation_error, can_write=session.device.role == "manager",
+                 message=message, error=bool(error))
 
 
 @router.get("/units/{unit_id}", response_class=HTMLResponse)
@@ -349,6 +357,34 @@ async def unit_correct(request: Request, unit_id: str) -> Response:
     except BaulkError as exc:
         return _unit_page(request, session, unit_id, status=400, form=form, error=str(exc))
     return RedirectResponse(f"/camp/units/{found[0].id}?corrected={_q(_summary(done))}", status_code=303)
+
+
+async def _relation_change(request: Request, relation_id: str, void: bool) -> Response:
+    verb = "void" if void else "restore"
+    session, form, _ = await _manager_post(request, f"{verb} a relation")
+    rid = _uuid(relation_id, "relation")
+    back = form.get("unit", "")
+    act = curation.void_relation if void else curation.restore_relation
+    try:
+        done = act(request.app.state.store, relation_id=rid, reason=form.get("reason", ""),
+                   by=form.get("by", "").strip() or session.device.label)
+    except BaulkError as exc:
+        if not back:
+            raise HTTPException(400, detail=str(exc)) from None
+        return _unit_page(request, session, back, status=400, relation_error=(str(rid), str(exc), form))
+    state = "voided: it no longer counts in the matrix" if void else "restored: it counts in the matrix again"
+    note = f"relation {done.label} {state}. Why: {done.reason}"
+    return _done(request, f"/camp/units/{_uuid(back, 'unit')}" if back else "/camp/matrix", note)
+
+
+@router.post("/relations/{relation_id}/void")
+async def relation_void(request: Request, relation_id: str) -> Response:
+    return await _relation_change(request, relation_id, True)
+
+
+@router.post("/relations/{relation_id}/restore")
+async def relation_restore(request: Request, relation_id: str) -> Response:
+    return await _relation_change(request, relation_id, False)
 
 
 # -- site -----------------------------------------------------------------------------------------------------

@@ -257,7 +257,7 @@ def test_a_wrong_relation_is_voided_with_a_reason(field):  # type: ignore[no-unt
     units.relate(upper="150", lower="101", kind="above")
     cyc = units.relate(upper="101", lower="150", kind="above")
     (cycle,) = [i for i in cyc.issues if i.code == "MATRIX_CYCLE"]
-    assert "void the wrong one with a reason (Units screen: choose the unit, then Void beside the relation)" in cycle.fix
+    assert "void the wrong one with a reason (Units screen: choose the unit, then Void beside the relation; " in cycle.fix
     with pytest.raises(RecordInvalid) as exc:
         units.void_relation(cyc.relation.id, "  ")
     assert str(exc.value) == ("void of the relation refused, nothing was saved. reason: voiding a relation needs a "

@@ -131,3 +131,27 @@ def test_a_camp_server_that_stays_silent_is_a_plain_error_after_the_retries(tmp_
                               "try again, or export a bundle to carry over")
     tablet.close()
     server.close()
+
+
+def test_a_tablet_gone_mid_push_is_no_server_error(tmp_path: Path, caplog: pytest.LogCaptureFixture) -> None:
+    """A tablet switched off (or killed) half-way through a push body: nobody is left to answer, so the camp server
+    logs one line and no traceback, and answers the next request as ever."""
+    import logging
+    from urllib.parse import urlsplit
+
+    server, _demo = seeded_server(f"sqlite:///{tmp_path / 'camp.sqlite'}")
+    _tablet, _device, token = enrolled_tablet(server, tmp_path / "t.sqlite", "TAB-1")
+    with serve_in_thread(create_app(store=server)) as url, caplog.at_level(logging.INFO, logger="baulk.server"):
+        where = urlsplit(url)
+        with socket.create_connection((where.hostname, where.port)) as sock:
+            sock.sendall(b"POST /v1/sync/push HTTP/1.1\r\nHost: camp\r\nContent-Type: application/json\r\n"
+                         b"Authorization: Bearer " + token.encode() + b"\r\nContent-Length: 100000\r\n\r\n{\"batch\": 1")
+            time.sleep(0.3)
+        deadline = time.monotonic() + 5
+        while time.monotonic() < deadline and not any("left before" in r.getMessage() for r in caplog.records):
+            time.sleep(0.05)
+        with httpx.Client(base_url=url, timeout=30) as http:
+            assert http.get("/v1/sync/pull", headers={"Authorization": f"Bearer {token}"}).status_code == 200
+    mine = [r for r in caplog.records if r.name == "baulk.server"]
+    assert any("/v1/sync/push: the client left before its request was read" in r.getMessage() for r in mine)
+    assert not [r for r in mine if r.levelno >= logging.ERROR or r.exc_info]

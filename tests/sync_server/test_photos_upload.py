@@ -179,3 +179,32 @@ def test_the_running_hash_survives_chunks_and_a_restart(tmp_path: Path) -> None:
     with pytest.raises(UploadMismatch, match="send the photo again from byte 0"):
         restarted.append(other, 5000, [bytes(changed[5000:])])
     assert not restarted.has(other) and restarted.begun([other]) == {}
+
+
+def test_a_photo_of_another_format_is_decoded_whole_and_an_unrecorded_hash_stays_refused(camp: Any) -> None:
+    """The quick finish (header and end marker, where the last chunk arrived) is for JPEG and PNG only: a GIF is
+    decoded whole by Pillow (in a worker thread) before it is kept, and a cut one is refused. ``/missing``
+    remembers which hashes have records, so that a creation needs no query; a hash no record names is still
+    refused (404, tus: the upload does not exist) after ``/missing`` has listed it."""
+    server, demo, app, http, tablet, client = camp
+    first = _unit_photo(tablet, demo, jpeg(seed=40))
+    client.sync()
+    template = server.get(Photo, first.id)
+    out = io.BytesIO()
+    Image.frombytes("RGB", (120, 90), random.Random(9).randbytes(120 * 90 * 3)).save(out, format="GIF")
+    gif = out.getvalue()
+    sha = _record_for(server, template, gif)
+    stranger = hashlib.sha256(b"bytes no record names").hexdigest()
+    r = http.post("/v1/photos/missing", json={"hashes": [sha, stranger]}, headers=_tus(tablet.token()))
+    assert r.status_code == 200 and r.json()["missing"] == sorted([sha, stranger])
+    r = _create(http, tablet.token(), gif)
+    assert r.status_code == 201 and r.headers["Upload-Offset"] == str(len(gif)), r.text
+    with Image.open(app.state.photos.path(sha)) as img:  # Pillow decodes what the camp kept
+        img.load()
+        assert (img.format, img.size) == ("GIF", (120, 90))
+    meta = f"sha256 {base64.b64encode(stranger.encode()).decode()}"
+    r = http.post("/v1/photos/uploads", headers=_tus(tablet.token(), **{"Upload-Length": "100",
+                                                                          "Upload-Metadata": meta}))
+    assert r.status_code == 404 and "push the tablet's versions before its photos" in r.json()["message"]
+    assert r.headers["Tus-Resumable"] == "1.0.0"
+    assert app.state.photos.begun([stranger]) == {}  # nothing begun for it

@@ -37,7 +37,7 @@ def test_stop_dialog_errors_in_sight_and_every_screen_both_ways(tablet, run_app,
     d.tap(day.ids.bs2_read)
     d.tap(day.ids.compute)
     d.tap(day.ids.accept)  # no initials for the laser caution: the error must be where the eye is
-    assert day.problem.startswith("PROBLEM: setup refused, nothing was saved. laser:"), day.problem
+    assert day.problem.startswith("PROBLEM: setup refused, nothing was saved. Laser:"), day.problem
     d.pump(5)
     shown = next(w for w in day.walk() if getattr(w, "text", None) == day.problem)
     assert _on_screen(d, shown), "the error is off screen"

@@ -52,6 +52,7 @@ def test_thumbnails_in_the_find_list_and_on_record(tablet, demo_site, run_app, s
     finds = d.nav("finds")
     d.pump(5)
     drawn = [w for w in finds.ids.rv.layout_manager.children if w.find_id]
+    d.until(lambda: not any(w.waiting for w in drawn), what="the thumbnail worker to make the rows' thumbnails")
     assert drawn[0].parent is not None and len(drawn) < PHOTOGRAPHED  # the recycled list made views for the screen only
     drawn_hashes = {w.photo for w in drawn if w.photo}
     made = {p.name.split("-")[0] for p in thumbs.glob("*.png")}
@@ -76,8 +77,15 @@ def test_thumbnails_in_the_find_list_and_on_record(tablet, demo_site, run_app, s
     d.tap(rec.ids.photo)
     d.type(rec.dialog.path, str(sideways))
     d.type(rec.dialog.caption, "in place before lifting")
-    d.tap(rec.dialog.keep_button)
-    assert rec.summary == f"Photo P{PHOTOGRAPHED + 1} of find {bare.number} kept.", rec.dialog.problem.text
+    from mobile.ui.thumbs import thumbnails
+
+    with thumbnails().held():  # the worker busy elsewhere: Record shows the line and a grey placeholder at once
+        d.tap(rec.dialog.keep_button)
+        assert rec.summary == f"Photo P{PHOTOGRAPHED + 1} of find {bare.number} kept.", rec.dialog.problem.text
+        assert rec.photo_waiting and rec.photo_thumb == "" and rec.photo_line.startswith(f"P{PHOTOGRAPHED + 1} ")
+        assert rec.ids.summary_thumb.width > 0 and rec.ids.summary_thumb.opacity == 1
+        d.screenshot(shots, "record-thumbnail-waiting")
+    d.until(lambda: not rec.photo_waiting, what="Record's thumbnail")
     (kept,) = [p for p in store.list(Photo) if p.subject_id == bare.id]
     assert rec.photo_thumb == str(thumbs / f"{kept.sha256}-{THUMB_PIXELS}.png")
     assert rec.photo_line.startswith(f"P{PHOTOGRAPHED + 1} · in place before lifting · AK ")
@@ -103,5 +111,72 @@ def test_thumbnails_in_the_find_list_and_on_record(tablet, demo_site, run_app, s
     finds = d.nav("finds")
     d.pump(5)
     row = next(w for w in finds.ids.rv.layout_manager.children if w.find_id == bare.id.hex)
+    d.until(lambda: not row.waiting, what="the row's thumbnail")
     assert row.photo == kept.sha256 and row.thumb == str(thumbs / f"{kept.sha256}-{THUMB_PIXELS}.png")
     d.screenshot(shots, "finds-thumbnail-kept")
+
+
+def _plain_jpeg(path: Path, colour: tuple[int, int, int]) -> Path:
+    Image.new("RGB", (120, 90), colour).save(path, format="JPEG", quality=95)
+    return path
+
+
+def _colour(i: int) -> tuple[int, int, int]:
+    return (40 + i * 5, 230 - i * 5, (i * 53) % 200 + 30)  # a colour of its own for each find's photo
+
+
+def test_thumbnails_are_made_off_the_ui_thread_and_land_on_their_own_rows(tablet, demo_site, run_app, shots,  # type: ignore[no-untyped-def]
+                                                                          tmp_path: Path, monkeypatch) -> None:
+    """While the thumbnail worker is held, the list draws with grey placeholders (nothing made on the UI
+    thread) and is scrolled, so rows are bound to other finds; once let go, every row on screen gets the
+    thumbnail of its own find's photo (checked by colour, read back by Pillow), made on the worker's thread,
+    and the requests of rows bound to other finds meanwhile were dropped, not made."""
+    import threading
+
+    from mobile.controllers.find_list import FindListController
+    from mobile.ui.thumbs import thumbnails
+
+    threads: list[str] = []
+    original = FindListController.thumbnail
+
+    def spied(self, sha256: str) -> str:  # type: ignore[no-untyped-def]
+        threads.append(threading.current_thread().name)
+        return original(self, sha256)
+
+    monkeypatch.setattr(FindListController, "thumbnail", spied)
+    d = run_app(tablet.path, simulate=True)
+    _start_day(d)
+    store = d.app.store
+    colour_of: dict[str, tuple[int, int, int]] = {}
+    for i in range(PHOTOGRAPHED):
+        found = store.save_find(find=find_data(demo_site, number=store.next_find_number(), e=1000.5 + i * 0.01))
+        data = _plain_jpeg(tmp_path / f"c{i}.jpg", _colour(i)).read_bytes()
+        save_photo(store, data=data, subject="find", subject_id=found.id, site_id=demo_site.site.id, by="AK")
+        colour_of[found.id.hex] = _colour(i)
+    thumbs = photo_folder(store) / "thumbs"
+    worker = thumbnails()
+    views = lambda: [w for w in finds.ids.rv.layout_manager.children if w.find_id]  # noqa: E731
+
+    with worker.held():
+        finds = d.nav("finds")
+        d.pump(5)
+        top = {w.find_id: w.photo for w in views()}
+        assert top and all(w.waiting and w.thumb == "" for w in views())  # placeholders, nothing made
+        assert not thumbs.exists() and threads == []
+        d.screenshot(shots, "finds-thumbnails-waiting")
+        finds.ids.rv.scroll_y = 0  # to the oldest finds: the same row widgets are bound to other finds
+        d.pump(8)
+        bottom = {w.find_id: w.photo for w in views()}
+        assert set(bottom) - set(top) and all(w.waiting for w in views())
+        assert worker.waiting() <= len(views())  # one small queue: the rows scrolled away dropped theirs
+    d.until(lambda: not any(w.waiting for w in views()), what="the worker to make the thumbnails on screen")
+    assert threads and set(threads) == {"baulk-thumbnails"}  # every thumbnail made on the worker's thread
+    for row in views():
+        assert row.thumb == str(thumbs / f"{row.photo}-{THUMB_PIXELS}.png")
+        with Image.open(row.thumb) as small:  # Pillow reads it back: the colour of this row's own find
+            r, g, b = small.convert("RGB").resize((1, 1), Image.Resampling.BOX).getpixel((0, 0))
+        assert max(abs(x - y) for x, y in zip((r, g, b), colour_of[row.find_id])) <= 6, row.find_id
+    made = {p.name.split("-")[0] for p in thumbs.glob("*.png")}
+    gone = set(top.values()) - {w.photo for w in views()}
+    assert made >= {w.photo for w in views()} and not made & gone  # rows scrolled away cost no decoding
+    d.screenshot(shots, "finds-thumbnails-scrolled")

@@ -10,6 +10,7 @@ from kivy.properties import StringProperty
 from kivy.uix.screenmanager import Screen
 
 from schema.errors import BaulkError
+from schema.wording import error_words
 
 __all__ = ["BaulkScreen"]
 
@@ -57,8 +58,8 @@ class BaulkScreen(Screen):
         """Run ``action``; a domain error becomes the screen's problem line instead of a crash."""
         try:
             result = action(*args, **kw)
-        except BaulkError as exc:
-            self.problem = f"PROBLEM: {exc}"
+        except BaulkError as exc:  # a refused record names each field by its label, codes as the pickers show them
+            self.problem = f"PROBLEM: {error_words(exc)}"
             return None
         except ValueError as exc:  # a typed value the form could not read
             self.problem = f"PROBLEM: {exc}"

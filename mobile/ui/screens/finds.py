@@ -2,17 +2,20 @@
 recycled list that draws only the rows on screen; tap a row to correct it on Record or to void it.
 
 A row shows its find's newest photo as a thumbnail. The recycled list binds only the rows on screen to their data,
-so a thumbnail is asked for (and made, the first time, from the photo's file) only when its row is drawn."""
+so a thumbnail is asked for only when its row is drawn; it is made (the first time, from the photo's file) on the
+thumbnail worker's thread (``mobile.ui.thumbs``) while the row shows a neutral placeholder."""
 
 from __future__ import annotations
 
 import uuid
+from functools import partial
 
 from kivy.app import App
 from kivy.properties import BooleanProperty, ListProperty, StringProperty
 from kivy.uix.button import Button
 
 from ...controllers import FindFilter
+from ..thumbs import Ticket, thumbnails
 from . import BaulkScreen
 
 __all__ = ["FindRow", "FindsScreen"]
@@ -22,15 +25,41 @@ PAGE = 500  # rows fetched at a time: the list opens on the newest 500 and loads
 
 
 class FindRow(Button):
-    """One find in the list; ``photo`` (a hash) becomes ``thumb`` (a thumbnail's path) when the row is drawn."""
+    """One find in the list; ``photo`` (a hash) becomes ``thumb`` (a thumbnail's path) when the worker has made
+    it; ``waiting`` (the placeholder) until then. A row the list binds to another find drops its request, and a
+    thumbnail that arrives for a photo the row no longer shows is not set."""
 
     find_id = StringProperty("")
     selected = BooleanProperty(False)
     photo = StringProperty("")
     thumb = StringProperty("")
+    waiting = BooleanProperty(False)
+    _ticket: Ticket | None = None
 
     def on_photo(self, _row: object, sha256: str) -> None:
-        self.thumb = App.get_running_app().listing.thumbnail(sha256) if sha256 else ""
+        thumbnails().cancel(self._ticket)
+        self._ticket, self.thumb, self.waiting = None, "", bool(sha256)
+        if sha256:
+            self._ask(sha256)
+
+    def on_parent(self, _row: object, parent: object) -> None:
+        """A row the list takes off the screen (it keeps it for later) drops its request; put back still
+        waiting, it asks again."""
+        if parent is None:
+            thumbnails().cancel(self._ticket)
+            self._ticket = None
+        elif self.waiting and self._ticket is None and self.photo:
+            self._ask(self.photo)
+
+    def _ask(self, sha256: str) -> None:
+        listing = App.get_running_app().listing
+        self._ticket = thumbnails().ask((str(listing.photos), sha256), partial(listing.thumbnail, sha256),
+                                        partial(self._show, sha256))
+
+    def _show(self, sha256: str, path: str) -> None:
+        if self.photo != sha256:
+            return  # the row shows another find now
+        self._ticket, self.waiting, self.thumb = None, False, path
 
 
 class FindsScreen(BaulkScreen):

@@ -10,6 +10,7 @@ from kivy.properties import BooleanProperty, ListProperty, StringProperty
 from kivy.uix.widget import Widget
 
 from schema.forms import find_form
+from schema.wording import in_words
 
 from ...cautions import Caution, human_remains_caution
 from ...controllers import Position, Saved
@@ -41,6 +42,9 @@ class RecordScreen(BaulkScreen):
     summary_alarm = BooleanProperty(False)  # the line is a problem or open checks: drawn as an alarm
     photo_thumb = StringProperty("")  # the thumbnail of the shown find's newest photo ("" for none)
     photo_line = StringProperty("")  # that photo's register line, and how many the find has
+    photo_waiting = BooleanProperty(False)  # its thumbnail is being made (a grey placeholder is shown)
+    _thumb_ticket = None  # the thumbnail worker's ticket for it (mobile.ui.thumbs)
+    _thumb_for: tuple[str, str] | None = None  # (find id, photo hash) the thumbnail was asked for
 
     def on_summary(self, _screen: object, text: str) -> None:
         self.summary_alarm = text.startswith(("CHECKS", "PROBLEM"))
@@ -216,7 +220,7 @@ class RecordScreen(BaulkScreen):
         for i in saved.issues:
             if i.severity == "info":
                 continue
-            lines.append(f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}")
+            lines.append(in_words(f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}"))
         self._open = [i.code for i in saved.issues if i.severity != "info"]
         self.checked, self.checked_number = str(f.id), str(f.number)
         self.has_open = bool(self._open)
@@ -276,27 +280,44 @@ class RecordScreen(BaulkScreen):
         self.dialog.open()
 
     def _show_photo(self) -> None:
-        """The newest photo of the find whose checks are shown (the one just saved, or being corrected)."""
+        """The newest photo of the find whose checks are shown (the one just saved, or being corrected): its line
+        at once, its thumbnail when the thumbnail worker has made it (a grey placeholder meanwhile)."""
         from ..photo import photo_controller
+        from ..thumbs import thumbnails
 
+        thumbnails().cancel(self._thumb_ticket)
+        self._thumb_ticket, self._thumb_for, self.photo_waiting = None, None, False
         self.photo_thumb, self.photo_line = "", ""
         if not self.checked or self.app.days.day is None:
             return
         photos = photo_controller(self.app)
-        newest = photos.newest(uuid.UUID(self.checked))
-        if newest is None:
+        photo = photos.newest_photo(uuid.UUID(self.checked))
+        if photo is None:
             return
-        photo, thumb = newest
         count = len(photos.photos_of(photo.subject_id)) if photo.subject_id else 1
-        self.photo_thumb = str(thumb) if thumb is not None else ""
-        self.photo_line = (photos.line(photo) + ("" if thumb is not None else " (file at camp, not on this tablet)")
-                           + (f"\n{count} photos of find {self.checked_number}" if count > 1 else ""))
+        more = f"\n{count} photos of find {self.checked_number}" if count > 1 else ""
+        self.photo_line, self.photo_waiting = photos.line(photo) + more, True
+        shown = (self.checked, photo.sha256)
+
+        def ready(path: str) -> None:
+            if self._thumb_for != shown:
+                return  # Record shows another find (or another photo) now
+            self._thumb_ticket, self.photo_waiting, self.photo_thumb = None, False, path
+            if not path:
+                self.photo_line = photos.line(photo) + " (file at camp, not on this tablet)" + more
+
+        self._thumb_for = shown
+        self._thumb_ticket = thumbnails().ask((str(photos.folder), photo.sha256),
+                                              lambda: photos.thumbnail_if_kept(photo), ready)
 
     def new_find(self) -> None:
         """Leave a correction (nothing written) or clear the form: the next new find."""
         self._open, self.has_open = [], False
         self.checks, self.checked, self.checked_number, self.summary = "", "", "", ""
-        self.photo_thumb, self.photo_line = "", ""
+        from ..thumbs import thumbnails
+
+        thumbnails().cancel(self._thumb_ticket)
+        self.photo_thumb, self.photo_line, self.photo_waiting, self._thumb_for = "", "", False, None
         self._ready_for_next()
 
     def correct_checked(self) -> None:

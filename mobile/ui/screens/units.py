@@ -1,6 +1,7 @@
 """Units of today's trench: choose one to edit or start a new one (fields from the model: kind, description,
 Munsell colour, condition, texture, status), relate it to another unit (matrix problems shown at once), void a
-wrong relation with a reason (a row per relation, each with its Void button), and shoot levels on its top or
+wrong relation with a reason (a row per relation, each with its Void button; a voided one struck through with
+Restore), and shoot levels on its top or
 bottom surface."""
 
 from __future__ import annotations
@@ -9,9 +10,11 @@ from typing import Any
 
 from kivy.factory import Factory
 from kivy.properties import DictProperty, ListProperty, StringProperty
+from kivy.utils import escape_markup
 
 from schema import vocab
 from schema.munsell import parse_munsell
+from schema.wording import in_words
 
 from ..caution import CautionDialog
 from ..widgets import Big, Caption, Say, shown_words
@@ -28,6 +31,7 @@ class UnitsScreen(BaulkScreen):
     munsell_note = StringProperty("")
     relation_note = StringProperty("")  # what the last void did, shown under the relations
     void_buttons = DictProperty({})  # relation id -> its Void button (the rows are rebuilt on every change)
+    restore_buttons = DictProperty({})  # relation id -> the Restore button of a voided relation
 
     def refresh(self) -> None:
         if self.app.days.day is None:
@@ -85,28 +89,46 @@ class UnitsScreen(BaulkScreen):
         """One row per relation: its words, and a Void button while it is in force."""
         box = self.ids.relation_rows
         box.clear_widgets()
-        buttons = {}
+        buttons, restores = {}, {}
         for line in rows:
             row = Factory.Row()
-            row.add_widget(Say(text=line.words()) if line.voided else Caption(text=line.words()))
-            if not line.voided:
+            if line.voided:  # struck through, with why, and its Restore
+                row.add_widget(Say(markup=True, pos_hint={"center_y": 0.5},
+                                   text=f"[s]{escape_markup(line.plain())}[/s] VOIDED: {escape_markup(line.void_reason or '')}"))
+                button = Big(text="Restore", size_hint_x=0.3)
+                button.bind(on_release=lambda _b, rid=line.relation_id, words=line.plain(): self.restore_relation(rid, words))
+                restores[str(line.relation_id)] = button
+            else:
+                row.add_widget(Caption(text=line.words()))
                 button = Big(text="Void", size_hint_x=0.3)
                 button.bind(on_release=lambda _b, rid=line.relation_id, words=line.words(): self.void_relation(rid, words))
-                row.add_widget(button)
                 buttons[str(line.relation_id)] = button
+            row.add_widget(button)
             box.add_widget(row)
-        self.void_buttons = buttons
+        self.void_buttons, self.restore_buttons = buttons, restores
 
     def void_relation(self, relation_id: Any, words: str) -> None:
         """Void one relation with the reason typed under the list."""
-        done = self.guard(self.app.units.void_relation, relation_id, self.ids.relation_void_reason.text)
+        self._change_relation(self.app.units.void_relation, relation_id,
+                              lambda done: f"Relation {words} voided ({done.line.void_reason}); it no longer counts "
+                                           "in the matrix.")
+
+    def restore_relation(self, relation_id: Any, words: str) -> None:
+        """Put one voided relation back in force with the reason typed under the list."""
+        self._change_relation(self.app.units.restore_relation, relation_id,
+                              lambda _done: f"Relation {words} restored; it counts in the matrix again.")
+
+    def _change_relation(self, change: Any, relation_id: Any, said: Any) -> None:
+        """Void or restore (``change``) with the typed reason; what was done, the matrix checks and the re-run
+        checks are shown under the relations, where the tap was."""
+        done = self.guard(change, relation_id, self.ids.relation_void_reason.text)
         if done is None:
             return
         self.ids.relation_void_reason.text = ""
-        lines = [f"Relation {words} voided ({done.line.void_reason}); it no longer counts in the matrix."]
-        lines += [f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}" for i in done.issues]
+        lines = [said(done)]
+        lines += [in_words(f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}") for i in done.issues]
         lines.append(done.rechecked.sentence(f"units {done.line.upper} and {done.line.lower}"))
-        self.message, self.relation_note = "", "\n".join(lines)  # shown under the relations, where the tap was
+        self.message, self.relation_note = "", "\n".join(lines)
         self.show_relations()
 
     def relate(self) -> None:
@@ -116,7 +138,7 @@ class UnitsScreen(BaulkScreen):
         if done is None:
             return
         lines = [f"Relation saved: {ids.upper.text} {ids.kind.text} {ids.lower.text}."]
-        lines += [f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}" for i in done.issues]
+        lines += [in_words(f"{i.severity.upper()} {i.code}: {i.message}. Fix: {i.fix}") for i in done.issues]
         lines.append(done.rechecked.sentence(f"units {ids.upper.text} and {ids.lower.text}"))
         self.message, self.relation_note = "", "\n".join(lines)  # shown under the relations, where the tap was
         self.show_relations()
