@@ -129,16 +129,18 @@ def read_return_bundle(store: TabletStore, path: Path) -> ReturnRead:
         blocks, unsent = {(b.first, b.last) for b in store.number_blocks()}, pending_count(store)
         with store.atomic() as conn:
             open_before = _open_conflicts(conn)
-            applied = 0
+            applied, touched = 0, set()  # versions new here; (record, field) of each, for the live checks
             for _after, page_next, versions in bundle.pages():
-                applied += len(apply_page(conn, versions, page_next))
+                new = apply_page(conn, versions, page_next)
+                applied += len(new)
+                touched.update((v.record, v.field) for v in new)
             outbox.mark_acked(store, min(bundle.acked, int(state_get(conn, "last_batch", "0") or 0)))
             settled = max(0, open_before - _open_conflicts(conn))
             reached = cursor_of(conn)
     new_blocks = sorted({(b.first, b.last) for b in store.number_blocks()} - blocks)
     from .checks import recheck_arrived  # what came in may open or close live checks, as after a pull
 
-    rechecked = recheck_arrived(store) if applied else None
+    rechecked = recheck_arrived(store, touched) if applied else None  # None too: nothing the checks read came
     return ReturnRead(path, bundle.versions, applied, reached, already=False, new_blocks=new_blocks,
                       conflicts_settled=settled, confirmed=unsent - pending_count(store),
                       numbers_left=store.numbers_left(), rechecked=rechecked,
