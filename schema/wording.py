@@ -17,7 +17,7 @@ from . import vocab
 from .errors import BaulkError, FieldProblem, RecordInvalid
 from .forms import field_label
 
-__all__ = ["error_words", "field_label", "in_words", "problem_words"]
+__all__ = ["count_words", "error_words", "field_label", "in_words", "problem_words"]
 
 _NAME = re.compile(r"\b[a-z][a-z0-9]*(?:_[a-z0-9]+)+\b")  # snake_case: the shape of every field name and code
 
@@ -31,6 +31,12 @@ def _known() -> frozenset[str]:
     codes |= {m for ms in vocab.MATERIALS.values() for m in ms}
     fields = {n for spec in REGISTRY.values() for n in spec.model.model_fields}
     return frozenset(n for n in codes | fields if "_" in n)
+
+
+def count_words(n: int, one: str, many: str | None = None) -> str:
+    """``n`` and its noun in the right number: ``1 change``, ``3 changes``, ``0 changes`` (``many`` for a noun
+    that takes more than an ``s``: ``count_words(2, "check is", "checks are")``)."""
+    return f"{n} {one if n == 1 else (many or one + 's')}"
 
 
 def in_words(text: str) -> str:

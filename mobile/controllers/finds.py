@@ -193,8 +193,9 @@ class FindController:
         if position.source == "shot":
             setup = self.days.require_setup()
             if not (position.shot_line or "").strip():
-                raise RecordInvalid("find", [FieldProblem("shot", "no shot was taken for this find",
-                                                          "tap Take shot, or type the readings and tap Use")])
+                raise RecordInvalid("find", [FieldProblem("shot", "no position was taken: there is no shot for this "
+                                                          "find", "tap Take shot, or type the instrument's readings and "
+                                                          "tap Use (or choose GNSS, Tape or Sieve)")])
             reading, _unit = parse_shot_line(position.shot_line or "", at=at, template=self.days.template)
             shot, fields = plotted_fields(setup, reading)
             return shot, {**none, **fields, "recovery": "plotted"}
@@ -262,9 +263,10 @@ class FindController:
 
     def confirm(self, find_id: uuid.UUID, code: str, reason: str) -> Find:
         """Keep the find as it is despite check ``code``; the reason goes into its notes (and so to the camp)."""
+        what = f"confirmation of find {self.store.get(Find, find_id).number}"  # a refusal names what was refused
         if not reason.strip():
-            raise RecordInvalid("confirmation", [FieldProblem("reason", "a confirmation needs a reason",
-                                                             "say why the find is right as recorded")])
+            raise RecordInvalid(what, [FieldProblem("reason", "a confirmation needs a reason",
+                                                    "say why the find is right as recorded")])
         with self.store.atomic() as conn:
             hit = conn.execute(live_check.update().where(live_check.c.find_id == find_id, live_check.c.code == code)
                                .values(confirmed_reason=reason.strip()))
@@ -272,7 +274,11 @@ class FindController:
                 raise RecordNotFound(f"check {code} is not open on this find; nothing to confirm")
             find = self.store.get(Find, find_id)
             note = f"[confirmed {code}: {reason.strip()}]"
-            find = self.store.put(find.model_copy(update={"notes": f"{find.notes}\n{note}".strip()}))
+            try:
+                find = self.store.put(find.model_copy(update={"notes": f"{find.notes}\n{note}".strip()}))
+            except RecordInvalid as exc:  # the reason made the notes too long: the confirmation was refused
+                raise RecordInvalid(what, [FieldProblem("reason", p.message, "give a shorter reason")
+                                           if p.field == "notes" else p for p in exc.problems]) from None
         return find
 
     def edit(self, find_id: uuid.UUID, changes: dict[str, Any], *, position: Position | None = None,
@@ -330,10 +336,14 @@ class FindController:
 
     def void(self, find_id: uuid.UUID, reason: str) -> Find:
         """Void a find (it keeps its number; nothing is deleted); its open checks are closed."""
+        what = f"void of find {self.store.get(Find, find_id).number}"  # a refusal names what was refused
         if not reason.strip():
-            raise RecordInvalid("void", [FieldProblem("reason", "a void needs a reason", "say why the find is voided")])
+            raise RecordInvalid(what, [FieldProblem("reason", "a void needs a reason", "say why the find is voided")])
         with self.store.atomic() as conn:
-            find = self.store.void_find(find_id=find_id, reason=reason.strip())
+            try:
+                find = self.store.void_find(find_id=find_id, reason=reason.strip())
+            except RecordInvalid as exc:  # e.g. a reason longer than the record keeps
+                raise RecordInvalid(what, exc.problems) from None
             conn.execute(live_check.delete().where(live_check.c.find_id == find_id))
         return find
 

@@ -14,6 +14,7 @@ import httpx
 
 from schema.errors import BaulkError, EnrolmentRefused, StoreError
 from schema.records import Device
+from schema.wording import count_words
 
 from ..bundles import ReturnRead, export_bundle, read_return_bundle
 from ..enrol import check_address, check_can_enrol, enrol, parse_enrol_line, pinned_context
@@ -50,7 +51,7 @@ class LinkStatus:
         if not self.enrolled:
             return ["Not enrolled: type or scan the code the data manager gives you."]
         return [f"This tablet: {self.device}  ->  {self.server or 'no server address yet'}",
-                f"Waiting to be sent: {self.pending_versions} changes",
+                f"Waiting to be sent: {count_words(self.pending_versions, 'change')}",
                 f"Find numbers left: {self.numbers_left}",
                 f"Last sync: {self.last_sync or 'never'}",
                 *([f"Last bundle from camp: {self.last_bundle}"] if self.last_bundle else []),

@@ -12,10 +12,9 @@ import uuid
 from dataclasses import dataclass
 from pathlib import Path
 
-from schema.errors import RecordInvalid
+from schema.errors import FieldProblem, RecordInvalid
 from schema.records import Photo
 from schema.records.photo import FACINGS
-from schema.errors import FieldProblem
 
 from ..photos import (copy_from, free_space_line, photo_folder, photo_path, save_photo, thumbnail, thumbnail_if_kept,
                       void_photo)
@@ -76,7 +75,14 @@ class PhotoController:
 
     def void(self, photo: Photo, reason: str) -> Photo:
         """Void a photo with a reason (kept in the register, marked); a find's ``photo_hashes`` loses its hash."""
-        return void_photo(self.store, photo.id, reason)
+        what = f"void of photo P{photo.number}"  # a refusal names what was refused
+        if not (reason or "").strip():
+            raise RecordInvalid(what, [FieldProblem("reason", "a void needs a reason",
+                                                    "say why the photo is voided (e.g. another find's photo)")])
+        try:
+            return void_photo(self.store, photo.id, reason)
+        except RecordInvalid as exc:  # e.g. a reason longer than the register keeps
+            raise RecordInvalid(what, exc.problems) from None
 
     def photos_of(self, subject_id: uuid.UUID) -> list[Photo]:
         return [p for p in self.store.list(Photo, subject_id=subject_id, order_by="number") if not p.voided]

@@ -14,6 +14,7 @@ from kivy.uix.scrollview import ScrollView
 
 from schema.errors import BaulkError
 from schema.survey.templates import Template
+from schema.wording import error_words
 
 from ..controllers.attach import AttachController, AttachReview
 from .widgets import Alarm, Big, Choice, Entry, Pick, Say
@@ -111,7 +112,7 @@ class AttachDialog(Popup):
                 target_height_m=self.target.text, prefix=self.prefix.text.strip())
         except BaulkError as exc:
             self.review, self.attach_button.disabled = None, True
-            self.problem.text = f"PROBLEM: {exc}"
+            self.problem.text = f"PROBLEM: {error_words(exc)}"
             return
         self.problem.text = ""
         self.summary.text = "\n".join(self.review.lines)
@@ -124,7 +125,7 @@ class AttachDialog(Popup):
         try:
             saved = self.attach.attach(self.review, confirm_moves=self.move.state == "down")
         except BaulkError as exc:
-            self.problem.text = f"PROBLEM: {exc}"
+            self.problem.text = f"PROBLEM: {error_words(exc)}"
             return
         self.dismiss()
         self.on_done(saved)

@@ -17,6 +17,7 @@ from kivy.uix.popup import Popup
 from kivy.utils import platform
 
 from schema.errors import BaulkError, PhotoError
+from schema.wording import error_words
 
 from ..controllers.photos import PhotoController, PhotoTarget
 from .widgets import Alarm, Big, Choice, Entry, Pick, Say
@@ -143,7 +144,7 @@ class PhotoDialog(Popup):
         try:
             self.path.text = str(picture_from_camera(self.camera_view.texture, self.photos.folder / "camera"))
         except BaulkError as exc:
-            self.problem.text = f"PROBLEM: {exc}"
+            self.problem.text = f"PROBLEM: {error_words(exc)}"
 
     def keep(self) -> None:
         if not self.path.text.strip():
@@ -154,7 +155,7 @@ class PhotoDialog(Popup):
                                      facing=self.facing.text, scale=self.scale.state == "down",
                                      north_arrow=self.north.state == "down")
         except BaulkError as exc:
-            self.problem.text = f"PROBLEM: {exc}"
+            self.problem.text = f"PROBLEM: {error_words(exc)}"
             return
         taken = Path(self.path.text.strip())
         if taken.parent == self.photos.folder / "camera":  # a camera's frame: kept by hash now, the frame goes

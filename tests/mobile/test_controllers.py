@@ -500,11 +500,21 @@ def test_a_refused_void_or_confirmation_is_not_called_a_refused_find(field):  # 
                          position=Position("shot", shot_line=sim.shot_line(1002.0, 2001.0, 99.55)))
     with pytest.raises(RecordInvalid) as void:
         finds.void(saved.find.id, " ")
-    assert str(void.value) == "void refused, nothing was saved. reason: a void needs a reason. Fix: say why the find is voided"
+    n = saved.find.number
+    assert str(void.value) == (f"void of find {n} refused, nothing was saved. reason: a void needs a reason. Fix: say "
+                               "why the find is voided")
+    with pytest.raises(RecordInvalid, match=f"^void of find {n} refused, nothing was saved. void_reason: "):
+        finds.void(saved.find.id, "x" * 501)  # longer than the record keeps: the store's check, still the void's
     with pytest.raises(RecordInvalid) as confirm:
         finds.confirm(saved.find.id, saved.issues[0].code, "")
-    assert str(confirm.value).startswith("confirmation refused, nothing was saved. reason: a confirmation needs a reason")
-    with pytest.raises(RecordInvalid, match="shot: no shot was taken for this find. Fix: tap Take shot"):
+    assert str(confirm.value).startswith(f"confirmation of find {n} refused, nothing was saved. reason: a "
+                                         "confirmation needs a reason")
+    with pytest.raises(RecordInvalid, match=f"^confirmation of find {n} refused, nothing was saved. reason: "):
+        finds.confirm(saved.find.id, saved.issues[0].code, "y" * 4001)  # the notes would pass their 4000 characters
+    assert not store.get(Find, saved.find.id).voided and "y" * 50 not in store.get(Find, saved.find.id).notes
+    assert all(c["confirmed_reason"] is None for c in finds.open_checks(saved.find.id))  # nothing half-written
+    with pytest.raises(RecordInvalid, match="shot: no position was taken: there is no shot for this find. Fix: tap "
+                                            "Take shot"):
         finds.record(category="artifact", values={"material": "chert"}, position=Position("shot", shot_line=""))
 
 

@@ -48,3 +48,14 @@ def test_a_new_camp_address_is_used_by_sync_and_re_enrolling_spends_no_code(camp
     assert len(used) == calls
     fresh = CampLink(TabletStore.open(tmp / "tab10.sqlite"), client_factory=client)
     assert fresh.enrol(second, server="http://camp-b.invalid:8765").label == "TAB-10"
+
+
+@pytest.mark.parametrize(("pending", "line"), [(0, "Waiting to be sent: 0 changes"), (1, "Waiting to be sent: 1 change"),
+                                               (2, "Waiting to be sent: 2 changes")])
+def test_the_camp_status_counts_changes_in_the_right_number(pending: int, line: str) -> None:
+    """Issue 18 item 11: "1 change", never "1 changes" (English grammar, no source needed)."""
+    from mobile.controllers.link import LinkStatus
+
+    status = LinkStatus(enrolled=True, device="TAB-1", server="https://camp.invalid:8765", pending_versions=pending,
+                        numbers_left=90, last_sync=None, last_error=None)
+    assert line in status.lines()

@@ -50,8 +50,12 @@ def test_a_voided_photo_leaves_its_finds_hashes_here_and_at_camp(camp: Any, tmp_
     client.sync()
     assert sorted(server.get(Find, found.id).photo_hashes) == sorted([blurred.sha256, sharp.sha256])
 
-    with pytest.raises(RecordInvalid, match="void_reason"):  # a reason is needed; nothing changes without one
+    with pytest.raises(RecordInvalid, match=f"^void of photo P{blurred.number} refused, nothing was saved. reason: "
+                       "a void needs a reason"):  # a reason is needed; nothing changes without one
         photos.void(blurred, "  ")
+    with pytest.raises(RecordInvalid, match=f"^void of photo P{blurred.number} refused, nothing was saved. "
+                       "void_reason: "):  # longer than the register keeps (500 characters)
+        photos.void(blurred, "x" * 501)
     assert tablet.get(Find, found.id).photo_hashes == [blurred.sha256, sharp.sha256]
 
     photos.void(blurred, "out of focus")

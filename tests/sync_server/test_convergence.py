@@ -53,7 +53,7 @@ class Faults(httpx.BaseTransport):
         if mode == "drop_request":
             raise httpx.ConnectError("dropped before sending")
         inner = self.inner.handle_request(request)
-        body = inner.read()
+        body = b"".join(inner.iter_raw())  # as sent (gzip-compressed): the headers below still say so
         if mode == "drop_response":
             raise httpx.ReadError("connection lost after the server answered")
         return httpx.Response(inner.status_code, headers=list(inner.headers.items()), content=body)

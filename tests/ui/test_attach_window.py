@@ -49,6 +49,11 @@ def test_attach_a_download_on_the_day_screen(tablet, demo_site, run_app, shots, 
     entry = next(w for w in dialog.chooser.walk() if getattr(w, "text", "") == "day.csv")
     d.tap(entry)
     assert dialog.path.text == str(folder / "day.csv")
+    d.type(dialog.target, "1,3 m")  # not a number: refused in the screens' words (the field by its label)
+    d.tap(dialog.check_button)
+    assert dialog.problem.text == ("PROBLEM: download refused, nothing was saved. Target height: '1.3 m' is not a pole "
+                                   "height. Fix: type it in metres, e.g. 1.300, or leave it empty"), dialog.problem.text
+    d.type(dialog.target, "")
     d.tap(dialog.check_button)
     assert dialog.problem.text == "", dialog.problem.text
     lines = dialog.summary.text.splitlines()

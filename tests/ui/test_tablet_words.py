@@ -33,3 +33,36 @@ def test_a_refused_sample_speaks_in_labels_and_picker_words(tablet, run_app, sho
     assert f"{field_label('material')}: is required. Fix: add it: use one of: {words}" in problem, problem
     assert "_" not in problem, problem  # no stored key, no field name reaches the screen
     d.screenshot(shots, "record-words")
+
+
+def test_refusals_name_what_was_refused_and_a_missing_shot_says_how_to_take_one(tablet, demo_site, run_app,
+                                                                               shots) -> None:  # type: ignore[no-untyped-def]
+    """Save with the Shot method and no shot: the problem says no position was taken and how to take one (never
+    the instrument's output format). Void on Finds with no reason: the problem names the void of that find, not a
+    refused find. The Finds count reads "1 find". Screenshots: record-no-shot.png, finds-void-refused.png."""
+    from tests.helpers import find_data
+    from tests.ui.test_tablet_windows import _set_up_instrument
+
+    d = run_app(tablet.path, simulate=True)
+    _start_day(d)
+    _set_up_instrument(d)
+    rec = d.nav("record")
+    d.choose(rec.ids.unit, "101")
+    d.tap(rec.ids.pos_shot)
+    d.tap(rec.ids.save)  # no shot taken, none typed
+    assert rec.problem == ("PROBLEM: find refused, nothing was saved. Shot: no position was taken: there is no shot "
+                           "for this find. Fix: tap Take shot, or type the instrument's readings and tap Use (or "
+                           "choose GNSS, Tape or Sieve)"), rec.problem
+    assert "output format" not in rec.problem
+    d.screenshot(shots, "record-no-shot")
+
+    found = d.app.store.save_find(find=find_data(demo_site, number=d.app.store.next_find_number()))
+    finds = d.nav("finds")
+    d.pump(3)
+    assert finds.count == "1 find"
+    (row,) = [w for w in finds.ids.rv.layout_manager.children if w.find_id]
+    d.tap(row)
+    d.tap(finds.ids.void)  # no reason typed
+    assert finds.problem == (f"PROBLEM: void of find {found.number} refused, nothing was saved. Reason: a void needs "
+                             "a reason. Fix: say why the find is voided"), finds.problem
+    d.screenshot(shots, "finds-void-refused")

@@ -12,6 +12,7 @@ from kivy.clock import Clock
 from kivy.properties import BooleanProperty, NumericProperty, StringProperty
 
 from schema.errors import BaulkError
+from schema.wording import error_words
 
 from ...controllers.labels import LabelJob, page_sentence, sheet_sentence
 from . import BaulkScreen
@@ -97,5 +98,5 @@ class LabelsScreen(BaulkScreen):
     def _failed(self, exc: Exception) -> None:
         self.busy = False
         self.progress_text = "No label sheet was written; no find was marked printed."
-        self.problem = f"PROBLEM: {exc}" if isinstance(exc, BaulkError) else \
+        self.problem = f"PROBLEM: {error_words(exc)}" if isinstance(exc, BaulkError) else \
             f"PROBLEM: the label sheet could not be written ({exc}); check the folder and the free space"

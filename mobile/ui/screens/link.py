@@ -11,6 +11,7 @@ from kivy.clock import Clock
 from kivy.properties import BooleanProperty, NumericProperty, StringProperty
 
 from schema.errors import BaulkError
+from schema.wording import count_words, error_words
 
 from . import BaulkScreen
 
@@ -64,10 +65,12 @@ class LinkScreen(BaulkScreen):
 
         try:
             report: Any = self.app.link.sync(progress)
-            text, problem = (f"Sync done: sent {report.pushed_versions} changes, received {report.applied_versions}."
-                             + (f" {report.conflicts_open} conflicts wait for the data manager." if report.conflicts_open else "")), ""
+            text, problem = (f"Sync done: sent {count_words(report.pushed_versions, 'change')}, received "
+                             f"{report.applied_versions}."
+                             + (f" {count_words(report.conflicts_open, 'conflict waits', 'conflicts wait')} for the data "
+                                "manager." if report.conflicts_open else "")), ""
         except BaulkError as exc:
-            text, problem = "Sync stopped; nothing sent was lost.", f"PROBLEM: {exc}"
+            text, problem = "Sync stopped; nothing sent was lost.", f"PROBLEM: {error_words(exc)}"
         Clock.schedule_once(lambda _dt: self._finished(text, problem))
 
     def _finished(self, text: str, problem: str) -> None:

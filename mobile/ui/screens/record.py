@@ -43,6 +43,8 @@ class RecordScreen(BaulkScreen):
     photo_thumb = StringProperty("")  # the thumbnail of the shown find's newest photo ("" for none)
     photo_line = StringProperty("")  # that photo's register line, and how many the find has
     photo_waiting = BooleanProperty(False)  # its thumbnail is being made (a grey placeholder is shown)
+    photo_id = StringProperty("")  # that photo's id (Void photo acts on it)
+    photo_number = StringProperty("")  # its register number as shown ("P3")
     _thumb_ticket = None  # the thumbnail worker's ticket for it (mobile.ui.thumbs)
     _thumb_for: tuple[str, str] | None = None  # (find id, photo hash) the thumbnail was asked for
 
@@ -287,7 +289,7 @@ class RecordScreen(BaulkScreen):
 
         thumbnails().cancel(self._thumb_ticket)
         self._thumb_ticket, self._thumb_for, self.photo_waiting = None, None, False
-        self.photo_thumb, self.photo_line = "", ""
+        self.photo_thumb, self.photo_line, self.photo_id, self.photo_number = "", "", "", ""
         if not self.checked or self.app.days.day is None:
             return
         photos = photo_controller(self.app)
@@ -295,8 +297,9 @@ class RecordScreen(BaulkScreen):
         if photo is None:
             return
         count = len(photos.photos_of(photo.subject_id)) if photo.subject_id else 1
-        more = f"\n{count} photos of find {self.checked_number}" if count > 1 else ""
+        more = f"\n{count} photos of find {self.checked_number} (the newest shown)" if count > 1 else ""
         self.photo_line, self.photo_waiting = photos.line(photo) + more, True
+        self.photo_id, self.photo_number = str(photo.id), f"P{photo.number}"
         shown = (self.checked, photo.sha256)
 
         def ready(path: str) -> None:
@@ -310,6 +313,25 @@ class RecordScreen(BaulkScreen):
         self._thumb_ticket = thumbnails().ask((str(photos.folder), photo.sha256),
                                               lambda: photos.thumbnail_if_kept(photo), ready)
 
+    def void_photo(self) -> None:
+        """Void the photo shown (a wrong one) with the reason typed beside it; the find's next newest photo, if
+        any, is shown after."""
+        from schema.records import Photo
+
+        from ..photo import photo_controller
+
+        if not self.photo_id:
+            return
+        photos = photo_controller(self.app)
+        photo = self.app.store.get(Photo, uuid.UUID(self.photo_id))
+        done = self.guard(photos.void, photo, self.ids.photo_void_reason.text)
+        if done is None:
+            return
+        self.ids.photo_void_reason.text = ""
+        self.summary = (f"Photo P{done.number} of find {self.checked_number} voided ({done.void_reason}); it stays "
+                        "in the photo register, marked void.")
+        self._show_photo()
+
     def new_find(self) -> None:
         """Leave a correction (nothing written) or clear the form: the next new find."""
         self._open, self.has_open = [], False
@@ -318,6 +340,7 @@ class RecordScreen(BaulkScreen):
 
         thumbnails().cancel(self._thumb_ticket)
         self.photo_thumb, self.photo_line, self.photo_waiting, self._thumb_for = "", "", False, None
+        self.photo_id, self.photo_number = "", ""
         self._ready_for_next()
 
     def correct_checked(self) -> None:
