@@ -11,6 +11,8 @@ from pathlib import Path
 
 import click
 
+from schema.wording import count_words
+
 __all__ = ["bundle"]
 
 _db_option = click.option("--db", "database_url", default=None,
@@ -98,7 +100,7 @@ def bundle_for_tablet(label: str, out: Path, database_url: str | None, photos_di
     click.echo(f"number blocks: {_spans(r['blocks'])}"
                + (f" ({_spans(r['issued'])} issued now)" if r["issued"] else ""))
     if r["thumbnails"]:
-        click.echo(f"and {r['path']}.thumbs.zip: {r['thumbnails']} photo thumbnails (keep it beside the bundle; "
+        click.echo(f"and {r['path']}.thumbs.zip: {count_words(r['thumbnails'], 'photo thumbnail')} (keep it beside the bundle; "
                    "its hash is under the bundle's seal)")
 
 

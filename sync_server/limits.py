@@ -146,13 +146,9 @@ class BodyLimit:
                                        "with Content-Encoding: gzip; send it gzip-compressed whole, or plain"})
 
     async def _refuse(self, send: Callable[[Message], Awaitable[None]], *, inflated: bool = False) -> None:
-        if inflated:
-            await _answer_json(send, 413, {"code": "BodyTooLarge", "message": f"a request body is at most {self.limit} "
-                                           "bytes once inflated from gzip; send smaller batches"})
-            return
-
+        once = " once inflated from gzip" if inflated else ""
         await _answer_json(send, 413, {"code": "BodyTooLarge", "message": f"a request body is at most {self.limit} "
-                                       "bytes; send smaller batches"})
+                                       f"bytes{once}; send smaller batches"})
 
 
 async def _answer_json(send: Callable[[Message], Awaitable[None]], status: int, payload: dict[str, str]) -> None:

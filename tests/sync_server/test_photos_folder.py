@@ -50,7 +50,7 @@ def test_the_return_bundle_carries_thumbnails_only_and_the_tablet_keeps_them(tmp
     run = CliRunner().invoke(cli, ["bundle", "for-tablet", "TAB-2", "--out", str(stick / "r.baulkreturn"),
                                    "--db", server.url, "--photos-dir", str(photos)])
     assert run.exit_code == 0, run.output
-    assert f"and {stick / 'r.baulkreturn'}.thumbs.zip: 1 photo thumbnails" in run.output
+    assert f"and {stick / 'r.baulkreturn'}.thumbs.zip: 1 photo thumbnail (keep" in run.output
     with zipfile.ZipFile(stick / "r.baulkreturn.thumbs.zip") as z:
         assert z.namelist() == [f"{photo.sha256}.png"]
         thumb = z.read(f"{photo.sha256}.png")

@@ -32,14 +32,20 @@ def _for_tablet(server, photos: Path, out: Path) -> str:  # type: ignore[no-unty
     return run.output
 
 
-def test_the_seal_names_the_pack_and_a_changed_pack_is_refused(tmp_path: Path) -> None:
+def _camp_and_return_bundle(tmp_path: Path):  # type: ignore[no-untyped-def]
+    """A camp with one photo, TAB-2 enrolled, and `baulk bundle for-tablet TAB-2` written to a stick."""
     photos = tmp_path / "photo-disk"
     server, _demo, photo, _data = _camp_with_a_photo(tmp_path, photos)
     tablet, _device, _token = enrolled_tablet(server, tmp_path / "TAB-2.sqlite", "TAB-2")
     stick = tmp_path / "stick"
     stick.mkdir()
     bundle = stick / "r.baulkreturn"
-    _for_tablet(server, photos, bundle)
+    return server, photo, tablet, bundle, _for_tablet(server, photos, bundle)
+
+
+def test_the_seal_names_the_pack_and_a_changed_pack_is_refused(tmp_path: Path) -> None:
+    server, photo, tablet, bundle, _output = _camp_and_return_bundle(tmp_path)
+    stick = bundle.parent
     pack = stick / "r.baulkreturn.thumbs.zip"
     with zipfile.ZipFile(bundle) as z:
         named = json.loads(z.read("manifest.json"))["thumbnails"]
@@ -84,14 +90,9 @@ def test_the_seal_names_the_pack_and_a_changed_pack_is_refused(tmp_path: Path) -
 
 
 def test_the_sealed_pack_is_kept_and_a_stray_pack_is_refused(tmp_path: Path) -> None:
-    photos = tmp_path / "photo-disk"
-    server, _demo, photo, _data = _camp_with_a_photo(tmp_path, photos)
-    tablet, _device, _token = enrolled_tablet(server, tmp_path / "TAB-2.sqlite", "TAB-2")
-    stick = tmp_path / "stick"
-    stick.mkdir()
-    bundle = stick / "r.baulkreturn"
-    output = _for_tablet(server, photos, bundle)
-    assert f"and {bundle}.thumbs.zip: 1 photo thumbnails" in output
+    server, photo, tablet, bundle, output = _camp_and_return_bundle(tmp_path)
+    stick, photos = bundle.parent, tmp_path / "photo-disk"
+    assert f"and {bundle}.thumbs.zip: 1 photo thumbnail (keep" in output
     read = read_return_bundle(tablet, bundle)
     assert read.thumbnails == 1
     assert thumbnail_if_kept(photo_folder(tablet), photo.sha256) is not None
