@@ -8,6 +8,7 @@ forked child process, so the peak memory is its own. Parts register their benchm
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import multiprocessing as mp
 import resource
@@ -93,8 +94,9 @@ def _measure(bench: Bench, size: int, queue: Any) -> None:
         queue.put(exc)
 
 
-def run(names: list[str] | None = None, *, quick: bool = False) -> list[Result]:
-    """Run the named benchmarks (all when empty), each in its own forked process."""
+def run(names: list[str] | None = None, *, quick: bool = False, repeats: int | None = None) -> list[Result]:
+    """Run the named benchmarks (all when empty), each in its own forked process; ``repeats`` times each arm
+    that many times instead of the benchmark's own count."""
     unknown = [n for n in names or [] if n not in BENCHMARKS]
     if unknown:
         raise KeyError(f"unknown benchmark {', '.join(unknown)}; known: {', '.join(sorted(BENCHMARKS))}")
@@ -102,6 +104,8 @@ def run(names: list[str] | None = None, *, quick: bool = False) -> list[Result]:
     results = []
     for name in names or sorted(BENCHMARKS):
         bench = BENCHMARKS[name]
+        if repeats is not None:
+            bench = dataclasses.replace(bench, repeats=repeats)
         size = bench.sizes[0] if quick else bench.sizes[1]
         queue = ctx.Queue()
         proc = ctx.Process(target=_measure, args=(bench, size, queue))

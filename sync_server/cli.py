@@ -207,7 +207,10 @@ def _tablet_site_data(path: Path) -> Any:
 @click.option("--quick", is_flag=True, help="Small sizes (the CI run, under 2 minutes).")
 @click.option("--json", "as_json", is_flag=True, help="Print a JSON list, one object per benchmark.")
 @click.option("--list", "list_only", is_flag=True, help="List the benchmarks and exit.")
-def bench(names: tuple[str, ...], quick: bool, as_json: bool, list_only: bool) -> None:
+@click.option("--repeats", type=click.IntRange(min=1), default=None,
+              help="Time each arm this many times instead of the benchmark's own count (e.g. 1 for a long "
+                   "benchmark at full size).")
+def bench(names: tuple[str, ...], quick: bool, as_json: bool, list_only: bool, repeats: int | None) -> None:
     """Run benchmarks; each reports subject/baseline measured in the same run (lower is better)."""
     from schema import benchkit
 
@@ -217,14 +220,15 @@ def bench(names: tuple[str, ...], quick: bool, as_json: bool, list_only: bool) -
             click.echo(f"{name:<24} {b.doc}")
         return
     try:
-        results = benchkit.run(list(names), quick=quick) if as_json else _run_printing(benchkit, list(names), quick)
+        results = (benchkit.run(list(names), quick=quick, repeats=repeats) if as_json
+                   else _run_printing(benchkit, list(names), quick, repeats))
     except KeyError as exc:
         raise click.ClickException(str(exc.args[0])) from None
     if as_json:
         click.echo(benchkit.to_json(results))
 
 
-def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
+def _run_printing(benchkit: Any, names: list[str], quick: bool, repeats: int | None = None) -> list[Any]:
     """Run and print each benchmark in turn; one that fails is printed as failed and the others still run (the
     command then exits 1 naming the failed ones)."""
     results, failed = [], []
@@ -233,7 +237,7 @@ def _run_printing(benchkit: Any, names: list[str], quick: bool) -> list[Any]:
             raise KeyError(f"unknown benchmark {name}; known: {', '.join(sorted(benchkit.BENCHMARKS))}")
         click.echo(f"running {name} ...", err=True)
         try:
-            (r,) = benchkit.run([name], quick=quick)
+            (r,) = benchkit.run([name], quick=quick, repeats=repeats)
         except RuntimeError as exc:
             click.echo(f"{name:<24} FAILED: {exc}")
             failed.append(name)
