@@ -444,6 +444,21 @@ def _fixed_dates_held(matplotlib: Any) -> Any:
                 os.environ[k] = v
 
 
+def export_zip_to_send(store: ServerStore, *, seasons: list[str] | None = None, strict: bool = False,
+                       photos_dir: Path | None = None) -> tuple[Path, Path]:
+    """``export_zip`` in a new temporary folder, for a download: the archive and the folder, which the caller
+    removes once the archive is sent. An export that fails removes its folder before the error goes on (a refused
+    strict export leaves nothing behind in the system's temporary folder)."""
+    import tempfile
+
+    work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
+    try:
+        return export_zip(store, work, seasons=seasons, strict=strict, photos_dir=photos_dir), work
+    except BaseException:
+        shutil.rmtree(work, ignore_errors=True)
+        raise
+
+
 def export_zip(store: ServerStore, work: Path, *, seasons: list[str] | None = None, strict: bool = False,
                photos_dir: Path | None = None) -> Path:
     """Run an export into ``work`` and pack it as ``work/baulk-export.zip`` (for the API and the camp pages)."""

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import shutil
-import tempfile
-from pathlib import Path
 from typing import Annotated
 
 from fastapi import APIRouter, BackgroundTasks, Depends, Query, Request
@@ -13,7 +11,7 @@ from fastapi.responses import FileResponse
 from schema.records import Device
 
 from ..auth import require
-from ..exports import export_zip
+from ..exports import export_zip_to_send
 
 router = APIRouter(prefix="/v1/exports", tags=["exports"])
 
@@ -26,8 +24,7 @@ def download(request: Request, _device: Reader, background: BackgroundTasks,
              seasons: Annotated[list[str] | None, Query(max_length=20)] = None, strict: bool = False) -> FileResponse:
     """Run an export now (finds, excluded, counts, volumes, Darwin Core, GeoPackage, pictures, data package,
     manifest) and download it as ``baulk-export.zip``."""
-    work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
+    archive, work = export_zip_to_send(request.app.state.store, seasons=seasons or None, strict=strict,
+                                       photos_dir=request.app.state.photos.root)  # the running server's photos
     background.add_task(shutil.rmtree, work, True)  # removed once sent
-    archive = export_zip(request.app.state.store, work, seasons=seasons or None, strict=strict,
-                         photos_dir=request.app.state.photos.root)  # the running server's photo folder
     return FileResponse(archive, media_type="application/zip", filename="baulk-export.zip")

@@ -580,16 +580,15 @@ def exports(request: Request) -> Response:
 @router.get("/exports/download")
 def exports_download(request: Request, strict: bool = False) -> Response:
     import shutil
-    import tempfile
 
     from fastapi.responses import FileResponse
     from starlette.background import BackgroundTask
 
-    from ..exports import export_zip
+    from ..exports import export_zip_to_send
 
     _signed_in(request)
-    work = Path(tempfile.mkdtemp(prefix="baulk-export-"))
-    archive = export_zip(request.app.state.store, work, strict=strict, photos_dir=request.app.state.photos.root)
+    archive, work = export_zip_to_send(request.app.state.store, strict=strict,
+                                       photos_dir=request.app.state.photos.root)
 
     return FileResponse(archive, media_type="application/zip", filename="baulk-export.zip",
                         background=BackgroundTask(shutil.rmtree, work, True))

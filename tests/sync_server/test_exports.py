@@ -431,3 +431,24 @@ def test_the_codebook_and_readme_name_every_code(exported: dict[str, Path]) -> N
         assert f"### {res['name']}.csv" in text
     assert all(f"| {code} |" in text for code in CATALOGUE)
     assert "items_per_m3" in text and "bags_per_m3" in text
+
+
+def test_an_export_that_fails_leaves_no_folder_behind(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """A download refused part-way (here: a store with no site yet) answers with the reason and removes the
+    temporary folder it had made: a camp laptop's disk does not fill with empty export folders."""
+    import tempfile
+
+    from fastapi.testclient import TestClient
+
+    from sync_server.app import create_app
+    from sync_server.store import ServerStore
+
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(scratch))
+    with ServerStore.open(f"sqlite:///{tmp_path / 'empty.sqlite'}") as store:
+        analyst = store.add_device(label="AN-1", role="analyst")[1]
+        with TestClient(create_app(store=store)) as http:
+            r = http.get("/v1/exports/latest.zip", headers={"Authorization": f"Bearer {analyst}"})
+    assert r.status_code == 404 and "no site yet" in r.json()["message"]
+    assert list(scratch.iterdir()) == []
