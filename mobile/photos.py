@@ -34,6 +34,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
+from schema import photo_rules
 from schema.errors import ImageTooLarge, NotAnImage, PhotoError, RecordNotFound, UploadMismatch
 from schema.records import Find, Photo
 from schema.records.photo import MAX_PHOTO_BYTES, MAX_PHOTO_PIXELS
@@ -41,7 +42,7 @@ from schema.validation import check
 
 __all__ = [
     "CHUNK_BYTES", "ImageFacts", "UploadReport", "android_camera", "copy_from", "free_bytes", "mark_at_camp", "photo_pack_path", "write_photo_pack", "free_space_line", "FREE_SPACE_WARNING_BYTES", "inspect_image", "keep_file", "next_photo_number",
-    "follow_photo_hashes", "orphans", "photo_folder", "void_photo", "photo_path", "save_photo", "strip_location", "thumbnail", "thumbnail_if_kept",
+    "follow_photo_hashes", "orphans", "photo_folder", "restore_photo", "void_photo", "photo_path", "save_photo", "strip_location", "thumbnail", "thumbnail_if_kept",
     "THUMB_PIXELS", "upload_photos",
 ]
 
@@ -208,52 +209,24 @@ def _link_to_find(store: Any, conn: Any, find_id: uuid.UUID, sha256: str) -> Non
 
 def void_photo(store: Any, photo_id: uuid.UUID, reason: str) -> Photo:
     """Void a photo with a reason (the register keeps it, marked); for a photo of a find, its hash leaves
-    ``Find.photo_hashes`` (a 'remove' version of that set field) in the same transaction, unless another photo of
-    the find that is not voided has the same file. Both are versioned saves, so they sync."""
-    from schema import db
-
+    ``Find.photo_hashes`` in the same transaction unless another photo of the find that is not voided has the same
+    file (``schema.photo_rules``, shared with the camp server). Both are versioned saves, so they sync."""
     with store.atomic() as conn:
-        try:
-            current = db.get(conn, Photo, photo_id)
-        except RecordNotFound:
-            raise RecordNotFound(f"no photo has id {photo_id}; choose a photo from the register") from None
-        if current.voided:
-            return current
-        voided = check(Photo, {**current.model_dump(), "voided": True, "void_reason": (reason or "").strip() or None})
-        store.save_versioned(conn, voided, new=False)
-        if current.subject == "find" and current.subject_id is not None:
-            _follow_find(store.save_versioned, conn, current.subject_id)
-    return voided
+        return photo_rules.void_photo(conn, store.save_versioned, photo_id, reason)[0]
+
+
+def restore_photo(store: Any, photo_id: uuid.UUID, reason: str) -> Photo:
+    """Put a voided photo back in force with a reason; a find's ``photo_hashes`` gains its hash again."""
+    with store.atomic() as conn:
+        return photo_rules.restore_photo(conn, store.save_versioned, photo_id, reason)[0]
 
 
 def _follow_find(save: Callable[..., None], conn: Any, find_id: uuid.UUID) -> bool:
-    """Bring one find's ``photo_hashes`` in line with its photo records: the hash of every photo of it that is
-    not voided is in; the hash of a voided photo is out (unless a photo not voided has the same file). Hashes no
-    photo record names (set before photo records existed) are left alone. True when the find was saved."""
-    from schema import db
-
-    try:
-        find = db.get(conn, Find, find_id)
-    except RecordNotFound:
-        return False  # a photo of a find this tablet does not hold (yet): nothing to follow
-    photos = list(db.select(conn, Photo, subject_id=find_id))
-    kept = {p.sha256 for p in photos if not p.voided}
-    gone = {p.sha256 for p in photos if p.voided} - kept
-    wanted = [h for h in find.photo_hashes if h not in gone] + sorted(kept - set(find.photo_hashes))
-    if wanted == list(find.photo_hashes):
-        return False
-    save(conn, find.model_copy(update={"photo_hashes": wanted}), new=False)
-    return True
+    """``schema.photo_rules.follow_find`` (kept under its old name)."""
+    return photo_rules.follow_find(save, conn, find_id)
 
 
-def follow_photo_hashes(conn: Any, save: Callable[..., None]) -> int:
-    """Every find's ``photo_hashes`` brought in line with its photo records (``_follow_find``), each change
-    through ``save`` (a store's ``save_versioned``, so it syncs), in the caller's transaction. For photos taken
-    before the hashes followed them (tablet migration m0014 runs it once). The number of finds changed."""
-    from schema import db
-
-    finds = {p.subject_id for p in db.select(conn, Photo, subject="find") if p.subject_id is not None}
-    return sum(_follow_find(save, conn, find_id) for find_id in sorted(finds))
+follow_photo_hashes = photo_rules.follow_photo_hashes
 
 
 def orphans(store: Any, folder: Path | None = None) -> list[Path]:

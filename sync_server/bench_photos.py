@@ -1,8 +1,8 @@
 """photos.upload: n photos of about 4 MB from one tablet to a camp server on loopback, with the tus-style upload
 (``mobile.photos.upload_photos``: which are missing, create with the first chunk, PATCH chunks of up to 8 MiB,
-hash taken while streaming and an image-header check at the end), against the same bytes sent as one plain HTTP
-PUT each to a route on the same app, behind the same device check, that streams them to a file and flushes it
-(goal ratio <= 1.3). Also reports ``resume_sent_share``: the share of a photo sent again after an upload cut at
+each chunk hashed while it is flushed, its bytes then dropped from the page cache, and an image-header check at
+the end), against the same bytes sent as one plain HTTP PUT each to a route on the same app, behind the same
+device check, that streams them to a file and flushes it (goal ratio <= 1.3). Also reports ``resume_sent_share``: the share of a photo sent again after an upload cut at
 90 % (goal: at most the missing 10 % plus one chunk).
 
 In both arms the camp server runs in its own process (uvicorn, the same app with the baseline's route added) and

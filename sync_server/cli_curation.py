@@ -1,4 +1,4 @@
-"""``baulk horizon``, ``baulk date`` and ``baulk correct`` (finds, units, and relations voided or restored): the
+"""``baulk horizon``, ``baulk date`` and ``baulk correct`` (finds, units, relations and photos voided or restored): the
 data manager's curation at camp.
 
 Each command parses its arguments, calls one function of ``sync_server.curation``, re-runs validation (as
@@ -316,3 +316,49 @@ def correct_restore_relation(upper: str, kind: str, lower: str, reason: str, by:
                              database_url: str | None) -> None:
     """Put a voided relation back in force (e.g. 103 above 101), with a reason; tablets pull it."""
     _run_relation(False, upper, kind, lower, reason, by, site, database_url)
+
+
+def _run_photo(void: bool, device: str, number: str, reason: str, by: str, site: str | None,
+               database_url: str | None) -> None:
+    from .curation import restore_photo, void_photo
+
+    act = void_photo if void else restore_photo
+    with _store(database_url) as store:
+        done = act(store, device=device, number=number, reason=reason, by=by, site=site)
+    if void:
+        state = "voided: kept in the register, marked void"
+        follow = "" if done.find_hashes is None else f"; {done.subject} no longer lists its file" \
+            if done.photo.sha256 not in done.find_hashes else \
+            f"; {done.subject} still lists its file (another photo of it has the same file)"
+    else:
+        state = "restored: in force again"
+        follow = f"; {done.subject} lists its file again" if done.find_hashes is not None else ""
+    click.echo(f"photo {done.label} ({done.subject}) {state}{follow}")
+    click.echo(f"reason: {done.reason}")
+
+
+_photo_args = [click.argument("device"), click.argument("number")]
+
+
+def _photo_command(func: Any) -> Any:
+    for decorate in reversed([*_photo_args, _reason_option, _by_option, _site_option, _db_option]):
+        func = decorate(func)
+    return func
+
+
+@correct.command("void-photo")
+@_photo_command
+def correct_void_photo(device: str, number: str, reason: str, by: str, site: str | None,
+                       database_url: str | None) -> None:
+    """Void a wrong photo, named by the taking tablet's label and its number as the register shows them (TAB-1 P12
+    or TAB-1 12), with a reason; it stays in the register marked void, a find's photo_hashes loses its file, and
+    tablets pull the void."""
+    _run_photo(True, device, number, reason, by, site, database_url)
+
+
+@correct.command("restore-photo")
+@_photo_command
+def correct_restore_photo(device: str, number: str, reason: str, by: str, site: str | None,
+                          database_url: str | None) -> None:
+    """Put a voided photo back in force (e.g. TAB-1 P12), with a reason; tablets pull it."""
+    _run_photo(False, device, number, reason, by, site, database_url)

@@ -31,8 +31,8 @@ from schema.errors import (
 )
 from schema.forms import coerce, form_fields
 from schema.records import (
-    AgeDetermination, Correction, Find, Horizon, HorizonAssignment, Record, Relation, Season, Site, Spit, Trench, Unit,
-    spec_for,
+    AgeDetermination, Correction, Device, Find, Horizon, HorizonAssignment, Photo, Record, Relation, Season, Site, Spit,
+    Trench, Unit, spec_for,
 )
 from schema.records.dating import DatingMethod
 from schema.tables import metadata
@@ -46,6 +46,7 @@ __all__ = [
     "add_date", "add_horizon", "assign_units", "assignment_history", "correct_record", "correctable_fields",
     "corrections", "import_dates_csv", "list_dates", "list_horizons", "reorder_horizons", "units_without_horizon",
     "RelationChange", "restore_relation", "unit_relations", "void_relation",
+    "PhotoChange", "restore_photo", "void_photo",
 ]
 
 METHODS: tuple[str, ...] = vocab.values(DatingMethod)
@@ -782,3 +783,117 @@ def unit_relations(store: ServerStore, *, unit_id: uuid.UUID) -> list[dict[str, 
              "kind": vocab.words(r.kind), "lower": code_of.get(r.lower_unit_id, "?"), "lower_id": r.lower_unit_id,
              "voided": r.voided, "reason": r.void_reason, "words": _relation_label(r, code_of)} for r in rels]
     return sorted(rows, key=lambda x: (x["voided"], x["upper"], x["kind"], x["lower"], str(x["id"])))
+
+
+# -- photos: void and restore ---------------------------------------------------------------------------------
+# A wrong photo (of another find, of a person, a blurred duplicate) is voided, never deleted: the register keeps
+# it, marked, with "why (camp, DM)" in its ``void_reason``; a restore writes "restored (camp, DM): why" there. The
+# find's ``photo_hashes`` follows in the same transaction (``schema.photo_rules``, the tablet's rule too).
+@dataclass(frozen=True)
+class PhotoChange:
+    """What a photo void or restore wrote: the photo as it is now, its register name (``TAB-1-P12``), what it
+    shows (``find 1203``), and the find's ``photo_hashes`` afterwards (None for a photo of no find)."""
+
+    photo: Photo
+    label: str
+    subject: str
+    voided: bool
+    reason: str
+    find_hashes: list[str] | None
+
+
+def _photo_number(text: str) -> int:
+    digits = (text or "").strip().upper().removeprefix("P")
+    if not digits.isdigit() or int(digits) < 1:
+        raise RecordInvalid("photo", [FieldProblem("number", f"{(text or '').strip()!r} is not a photo number",
+                                                   "give the number the register shows after the tablet's label, "
+                                                   "e.g. P12 or 12")])
+    return int(digits)
+
+
+def _near(numbers: list[int], wanted: int, n: int = 6) -> str:
+    shown = sorted(sorted(numbers, key=lambda k: (abs(k - wanted), k))[:n])
+    return ", ".join(f"P{k}" for k in shown)
+
+
+def _photo_named(conn: Connection, site: Site, *, photo_id: uuid.UUID | None, device: str | None,
+                 number: str | None) -> tuple[Photo, str]:
+    """The photo meant, by id or by the taking tablet's label and its photo number, with its register name."""
+    labels = {d.id: d.label for d in db.select(conn, Device)}
+    if photo_id is not None:
+        found = [p for p in db.select(conn, Photo, id=photo_id) if p.site_id == site.id]
+        if not found:
+            raise RecordNotFound(f"site {site.code} has no photo with id {photo_id} (it may not have synced yet); "
+                                 "reload the photo register")
+        return found[0], f"{labels.get(found[0].device_id, '?')}-P{found[0].number}"
+    label = (device or "").strip()
+    wanted = _photo_number(number or "")
+    ids = [i for i, name in labels.items() if name == label]
+    photos = list(db.select(conn, Photo, site_id=site.id))
+    if not ids:
+        takers = sorted({labels[p.device_id] for p in photos if p.device_id in labels})
+        raise RecordNotFound(f"no device is labelled {label!r}{_close(label, takers)}; the tablets that took photos "
+                             f"at site {site.code} are: {', '.join(takers) or 'none yet'} (baulk device list "
+                             "shows every label)")
+    mine = [p for p in photos if p.device_id in ids]
+    found = [p for p in mine if p.number == wanted]
+    if not found:
+        near = f"; its photos nearest that number are {_near([p.number for p in mine], wanted)}" if mine else \
+            " (none of its photos has synced yet)"
+        raise RecordNotFound(f"{label} has no photo P{wanted} at site {site.code}{near}")
+    return found[0], f"{label}-P{wanted}"
+
+
+def _photo_subject(conn: Connection, photo: Photo) -> str:
+    """What a photo shows, as the register names it: ``find 1203``, ``unit 101``, ``trench TR1``, ``the day``."""
+    if photo.subject_id is None:
+        return "the day"
+    if photo.subject == "find":
+        return " ".join(f"find {f.number}" for f in db.select(conn, Find, id=photo.subject_id)) or "a find"
+    if photo.subject == "trench":
+        return " ".join(f"trench {t.code}" for t in db.select(conn, Trench, id=photo.subject_id)) or "a trench"
+    return " ".join(f"unit {u.code}" for u in db.select(conn, Unit, id=photo.subject_id)) or "a unit"
+
+
+def _set_photo_void(store: ServerStore, *, void: bool, reason: str, by: str, photo_id: uuid.UUID | None,
+                    device: str | None, number: str | None, site: str | None) -> PhotoChange:
+    from schema import photo_rules
+
+    verb = "void" if void else "restore"
+    reason, by = (reason or "").strip(), (by or "").strip()
+    if len(reason) < 3:
+        example = "'a photo of find 1204, not this one'" if void else "'it shows this find after all'"
+        raise ReasonMissing(f"to {verb} a photo give a reason: say why, e.g. {example}")
+    if not by:
+        raise RecordInvalid(f"{verb} of the photo", [FieldProblem("by", "no initials were given",
+                                                                  "give your initials, e.g. DM")])
+    text = f"{reason} (camp, {by})" if void else f"restored (camp, {by}): {reason}"
+    with store.atomic() as conn:
+        s = _site(conn, site)
+        photo, label = _photo_named(conn, s, photo_id=photo_id, device=device, number=number)
+        if photo.voided == void:
+            state = f"voided ({photo.void_reason})" if void else "in force"
+            raise NothingChanged(f"photo {label} is already {state}; nothing was {'voided' if void else 'restored'}")
+        act = photo_rules.void_photo if void else photo_rules.restore_photo
+        updated, _changed = act(conn, store.save_versioned, photo.id, text, record=f"{verb} of photo {label}")
+        hashes = None
+        if photo.subject == "find" and photo.subject_id is not None:
+            found = list(db.select(conn, Find, id=photo.subject_id))
+            hashes = list(found[0].photo_hashes) if found else None
+        subject = _photo_subject(conn, photo)
+    return PhotoChange(updated, label, subject, void, text, hashes)
+
+
+def void_photo(store: ServerStore, *, reason: str, by: str, photo_id: uuid.UUID | None = None,
+               device: str | None = None, number: str | None = None, site: str | None = None) -> PhotoChange:
+    """Void a wrong photo at camp (by id, or by the taking tablet's label and photo number: ``TAB-1``, ``P12``),
+    with the manager's reason: a versioned edit tablets pull; a find's ``photo_hashes`` loses its hash."""
+    return _set_photo_void(store, void=True, reason=reason, by=by, photo_id=photo_id, device=device,
+                           number=number, site=site)
+
+
+def restore_photo(store: ServerStore, *, reason: str, by: str, photo_id: uuid.UUID | None = None,
+                  device: str | None = None, number: str | None = None, site: str | None = None) -> PhotoChange:
+    """Put a voided photo back in force at camp, with the reason; a find's ``photo_hashes`` gains its hash again."""
+    return _set_photo_void(store, void=False, reason=reason, by=by, photo_id=photo_id, device=device,
+                           number=number, site=site)

@@ -10,13 +10,16 @@ the last byte arrives the file is checked before it is renamed into place: a fil
 deleted and the upload starts again from 0 (``UploadMismatch``); a file that is not an image, is cut short or has
 too many pixels is deleted (``NotAnImage``, ``ImageTooLarge``); nothing half-received is ever served.
 
-The checks are cheap so that an upload costs about what a plain one does: the hash is taken while the bytes
-stream in (each piece of the request body written to the partial file and fed to the running SHA-256 as it comes,
-with no copy and no thread hand-off; kept per upload with the offset it covers; the partial file is hashed again
-only when the server lost it, e.g. after a restart), and the image is judged by its header (Pillow opens it
+The checks are cheap so that an upload costs about what a plain one does: each piece of the request body is
+written to the partial file as it comes; when the chunk ends, its bytes are read back (from the page cache) and fed
+to the upload's running SHA-256 while another thread waits for them to reach the disk (the flush is a wait, not
+work: the hash is taken in its shadow; hashlib and ``os.fsync`` both let go of the GIL). The running hash is kept
+per upload with the offset it covers; the partial file is hashed again only when the server lost it, e.g. after a
+restart. The image is judged by its header (Pillow opens it
 without decoding the pixels: format and pixel size) and its structure (a JPEG must end its scan with the EOI
 marker, a PNG with its IEND chunk; other formats are decoded whole, in a worker thread). A chunk is written as it
-arrives (``append`` takes an iterator of pieces): the server never holds a whole photo.
+arrives (``append`` takes an iterator of pieces): the server never holds a whole photo; once flushed, its bytes
+leave the system's page cache (``_leave_cache``).
 """
 
 from __future__ import annotations
@@ -26,6 +29,7 @@ import hashlib
 import os
 import threading
 import uuid
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable, Iterator
@@ -173,12 +177,17 @@ class PhotoVault:
             assert part is not None
             digest = self._digest(sha, part, state.offset)
             with open(part, "ab") as out:
-                chunk = Chunk(out, state, digest)
+                chunk = Chunk(out, state)
                 try:
                     yield chunk
                 finally:
                     out.flush()
-                    os.fsync(out.fileno())
+                    synced = _FLUSHER.submit(os.fsync, out.fileno())
+                    try:
+                        _hash_range(part, state.offset, chunk.written, digest)  # in the flush's shadow
+                    finally:
+                        synced.result()
+                    _leave_cache(out.fileno())
                     self._digests[sha] = (chunk.state().offset, digest)
         finally:
             lock.release()
@@ -276,15 +285,42 @@ def _save_thumb(img: Any, out: Path, size: int) -> None:
     os.replace(tmp, out)
 
 
-class Chunk:
-    """The chunk being received: ``write`` refuses bytes past the declared length, writes each piece to the file
-    as it comes (a request body arrives in pieces of up to some 256 KiB) and feeds it to the upload's running
-    SHA-256 in the same step (hashlib lets go of the GIL while it hashes a piece): no copy of the bytes, no
-    thread hand-off, and ``written`` counts only bytes both written and hashed. The upload's ``receiving``
-    flushes the file after the last piece, also when the connection was cut."""
+def _leave_cache(fd: int) -> None:
+    """Let the system drop a received file's bytes from its page cache once they are on the disk (Linux
+    ``posix_fadvise(POSIX_FADV_DONTNEED)``; elsewhere nothing). A season's photos are written once and read
+    rarely: kept in the cache they would push out what the camp server does read (its database), and each new
+    photo would take fresh memory instead of the pages the last one left. Only the header and end are read again
+    (the image check) before the file is renamed into place."""
+    advise = getattr(os, "posix_fadvise", None)
+    if advise is not None:
+        advise(fd, 0, 0, os.POSIX_FADV_DONTNEED)
 
-    def __init__(self, out: Any, start: UploadState, digest: Any = None):
-        self._out, self._start, self._digest, self.written = out, start, digest, 0
+
+_FLUSHER = ThreadPoolExecutor(max_workers=4, thread_name_prefix="photo-flush")
+"""Waits for a chunk's bytes to reach the disk while the receiving thread hashes them."""
+
+
+def _hash_range(path: Path, start: int, length: int, digest: Any) -> None:
+    """Feed ``length`` bytes of ``path`` from ``start`` to ``digest``: the bytes just written, read back from the
+    page cache in pieces of 1 MiB (a photo is never held whole)."""
+    with open(path, "rb") as f:
+        f.seek(start)
+        while length > 0:
+            block = f.read(min(length, 1 << 20))
+            if not block:
+                raise OSError(f"{path.name} ends {length} bytes before the chunk written to it")
+            digest.update(block)
+            length -= len(block)
+
+
+class Chunk:
+    """The chunk being received: ``write`` refuses bytes past the declared length and writes each piece to the
+    file as it comes (a request body arrives in pieces of up to some 256 KiB): no copy of the bytes. ``written``
+    counts the bytes written; the upload's ``receiving`` flushes them after the last piece (also when the
+    connection was cut) and hashes them meanwhile."""
+
+    def __init__(self, out: Any, start: UploadState):
+        self._out, self._start, self.written = out, start, 0
 
     def write(self, piece: bytes) -> None:
         if self._out is None:
@@ -293,7 +329,6 @@ class Chunk:
             raise OffsetMismatch(f"the chunk runs past the declared length ({self._start.length} bytes); send only "
                                  "the bytes of the photo")
         self._out.write(piece)
-        self._digest.update(piece)
         self.written += len(piece)
 
     def state(self) -> UploadState:
@@ -472,15 +507,18 @@ def withheld_photo(conn: sa.Connection, sha: str, role: str) -> bool:
     return conn.execute(q).first() is not None
 
 
-def register_rows(conn: sa.Connection, *, subject_ids: Iterable[uuid.UUID] | None = None) -> list[dict[str, Any]]:
-    """The photo register (not voided), oldest first, with the taking device's label and whether it shows a
-    find flagged as possible human remains; optionally for some subjects only."""
+def register_rows(conn: sa.Connection, *, subject_ids: Iterable[uuid.UUID] | None = None,
+                  voided: bool = False) -> list[dict[str, Any]]:
+    """The photo register (not voided; with ``voided`` the voided photos too), oldest first, with the taking
+    device's label and whether it shows a find flagged as possible human remains; optionally for some subjects."""
     photo, device, find = metadata.tables["photo"], metadata.tables["device"], metadata.tables["find"]
     q = (sa.select(photo, device.c.label.label("device_label"),
                    sa.func.coalesce(find.c.human_remains, False).label("human_remains"))
          .select_from(photo.outerjoin(device, device.c.id == photo.c.device_id)
                       .outerjoin(find, (photo.c.subject == "find") & (find.c.id == photo.c.subject_id)))
-         .where(photo.c.voided.is_(False)).order_by(photo.c.taken_at, photo.c.number))
+         .order_by(photo.c.taken_at, photo.c.number))
+    if not voided:
+        q = q.where(photo.c.voided.is_(False))
     if subject_ids is not None:
         q = q.where(photo.c.subject_id.in_(list(subject_ids)))
     return [dict(r._mapping) for r in conn.execute(q)]

@@ -12,8 +12,8 @@ already, so a tablet resumes those with PATCH from where they stand and sends no
 
 The usual upload is handled on the event loop alone: ``/missing`` looks up in one query which of the hashes it
 lists have photo records (remembered, so that each creation needs no query of its own), the upload is begun and
-its chunk written and hashed as it streams in, and a complete JPEG or PNG is checked and renamed where its last
-byte arrived. Only the rest goes to a worker thread: a hash not remembered (its record is looked up), a photo
+its chunk written as it streams in and hashed while it is flushed (the flush waits in another thread), and a
+complete JPEG or PNG is checked and renamed where its last byte arrived. Only the rest goes to a worker thread: a hash not remembered (its record is looked up), a photo
 another request holds, a file to hash again after a restart, an image of another format to decode whole.
 """
 

@@ -1,7 +1,9 @@
 """Camp pages for photos: the **Photos** register (filter by trench, unit, day and who; each photo opens full
 size), the thumbnails and files it shows, and the photo strip on a find's and a unit's page (the template global
 ``photos_of``, included by ``find.html`` and ``unit.html``). Only photos whose file has arrived are shown as
-pictures; the others are listed as "not yet received" (their tablet has not uploaded them)."""
+pictures; the others are listed as "not yet received" (their tablet has not uploaded them). A manager voids a
+wrong photo there with a reason, or restores a voided one (``sync_server.curation.void_photo``); a voided photo
+stays listed, marked void with its reason."""
 
 from __future__ import annotations
 
@@ -11,12 +13,13 @@ from typing import Any
 
 import sqlalchemy as sa
 from fastapi import APIRouter, HTTPException, Request
-from fastapi.responses import FileResponse, Response
+from fastapi.responses import FileResponse, RedirectResponse, Response
 
+from schema.errors import BaulkError
 from schema.tables import metadata
 
 from ..photos import PhotoVault, register_rows, withheld_photo
-from .pages import _page, _signed_in, site_zone, templates
+from .pages import _page, _q, _signed_in, site_zone, templates
 from .session import current
 
 __all__ = ["ROUTE_ROLES", "router"]
@@ -27,6 +30,8 @@ ROUTE_ROLES: dict[str, str] = {
     "GET /camp/photos": "page: manager, analyst",
     "GET /camp/photos/{sha256}": "page: manager, analyst",
     "GET /camp/photos/{sha256}/thumb.png": "page: manager, analyst",
+    "POST /camp/photos/{photo_id}/void": "page: manager",
+    "POST /camp/photos/{photo_id}/restore": "page: manager",
 }
 
 def _vault(request: Request) -> PhotoVault:
@@ -70,30 +75,73 @@ def photos_of(request: Request, subject_id: uuid.UUID | str) -> list[dict[str, A
         return []
     key = subject_id if isinstance(subject_id, uuid.UUID) else uuid.UUID(str(subject_id))
     with request.app.state.store.read() as conn:
-        return _shown(request, register_rows(conn, subject_ids=[key]), _names(conn))
+        return _shown(request, register_rows(conn, subject_ids=[key], voided=True), _names(conn))
 
 
 templates.env.globals["photos_of"] = photos_of
 
 
 @router.get("/photos")
-def register(request: Request, trench: str = "", unit: str = "", day: str = "", by: str = "") -> Response:
+def register(request: Request, trench: str = "", unit: str = "", day: str = "", by: str = "",
+             message: str | None = None) -> Response:
     """The photo register, filtered."""
+    return _register_page(request, chosen={"trench": trench, "unit": unit, "day": day, "by": by}, message=message)
+
+
+def _register_page(request: Request, *, chosen: dict[str, str], message: str | None = None, status: int = 200,
+                   photo_error: tuple[str, str, dict[str, str]] | None = None) -> Response:
     session = _signed_in(request)
     with request.app.state.store.read() as conn:
         names = _names(conn)
-        rows = _shown(request, register_rows(conn), names)
-    if trench:
-        rows = [r for r in rows if r["trench_code"] == trench]
-    if unit:
-        rows = [r for r in rows if r["subject_name"] == f"unit {unit}"]
-    if day:
-        rows = [r for r in rows if r["taken"].date().isoformat() == day]
-    if by:
-        rows = [r for r in rows if r["by"] == by.upper()]
+        rows = _shown(request, register_rows(conn, voided=True), names)
+    if chosen.get("trench"):
+        rows = [r for r in rows if r["trench_code"] == chosen["trench"]]
+    if chosen.get("unit"):
+        rows = [r for r in rows if r["subject_name"] == f"unit {chosen['unit']}"]
+    if chosen.get("day"):
+        rows = [r for r in rows if r["taken"].date().isoformat() == chosen["day"]]
+    if chosen.get("by"):
+        rows = [r for r in rows if r["by"] == chosen["by"].upper()]
     trenches = sorted({c.removeprefix("trench ") for c in names["trench"].values()})
-    return _page(request, "photos.html", session, "Photos", page="photos", rows=rows, trenches=trenches,
-                 chosen={"trench": trench, "unit": unit, "day": day, "by": by})
+    return _page(request, "photos.html", session, "Photos", status=status, page="photos", rows=rows,
+                 trenches=trenches, chosen=chosen, message=message, error=photo_error is not None,
+                 photo_error=photo_error)
+
+
+async def _photo_change(request: Request, photo_id: str, void: bool) -> Response:
+    """A manager's void or restore from a photo list; back to that list (``back``, a camp page) when done, the
+    register with the refusal beside the photo when refused."""
+    from .. import curation
+    from .curation_pages import _manager_post, _uuid
+
+    verb = "void" if void else "restore"
+    session, form, _ = await _manager_post(request, f"{verb} a photo")
+    pid = _uuid(photo_id, "photo")
+    act = curation.void_photo if void else curation.restore_photo
+    try:
+        done = act(request.app.state.store, photo_id=pid, reason=form.get("reason", ""),
+                   by=form.get("by", "").strip() or session.device.label)
+    except BaulkError as exc:
+        return _register_page(request, chosen=dict.fromkeys(("trench", "unit", "day", "by"), ""), status=400,
+                              photo_error=(str(pid), str(exc), form))
+    state = "voided: kept in the register, marked void" if void else "restored: in force again"
+    note = f"photo {done.label} ({done.subject}) {state}. Why: {done.reason}"
+    back = form.get("back", "")
+    if not back.startswith("/camp/") or "//" in back or "\\" in back:
+        back = "/camp/photos"
+    if back.split("?")[0] == "/camp/photos":
+        return RedirectResponse(f"/camp/photos?message={_q(note)}#photo-{pid}", status_code=303)
+    return RedirectResponse(f"{back}#photo-{pid}", status_code=303)
+
+
+@router.post("/photos/{photo_id}/void")
+async def photo_void(request: Request, photo_id: str) -> Response:
+    return await _photo_change(request, photo_id, True)
+
+
+@router.post("/photos/{photo_id}/restore")
+async def photo_restore(request: Request, photo_id: str) -> Response:
+    return await _photo_change(request, photo_id, False)
 
 
 def _held(request: Request, sha256: str, role: str) -> None:

@@ -77,6 +77,27 @@ def test_a_photo_that_fits_one_chunk_travels_with_its_creation_request(camp: Any
     assert report.sent == [] and report.bytes_sent == 0 and report.held == 1
 
 
+def test_a_kept_photo_leaves_the_page_cache(camp: Any) -> None:
+    """Once on the disk, a received photo's bytes are dropped from the system's page cache (a season of photos
+    would otherwise push out the camp database's pages); only what the image check read back stays. Measured
+    from outside by util-linux ``fincore`` (mincore(2): the file's pages resident in memory)."""
+    import shutil
+    import subprocess
+
+    if shutil.which("fincore") is None:
+        pytest.skip("util-linux fincore is not installed")
+    server, demo, app, http, tablet, client = camp
+    data = jpeg(1600, 1200, seed=35)  # noise at quality 95: some 2.5 MB
+    photo = _unit_photo(tablet, demo, data)
+    client.sync()
+    assert _create(http, tablet.token(), data).status_code == 201
+    kept = app.state.photos.path(photo.sha256)
+    resident = int(subprocess.run(["fincore", "--bytes", "--noheadings", "--output", "RES", str(kept)],
+                                  capture_output=True, text=True, check=True).stdout.split()[0])
+    assert kept.stat().st_size == len(data) > 2_000_000
+    assert resident <= len(data) // 4, f"{resident} of {len(data)} bytes still cached"
+
+
 @pytest.mark.parametrize("what, make, code, words", [
     ("not an image", lambda: b"%PDF-1.4 a scanned form, not a photo " * 100, "NotAnImage",
      "is not an image Baulk can read"),
