@@ -2,8 +2,8 @@
 (``mobile.photos.upload_photos``: which are missing, create with the first chunk, PATCH chunks of up to 8 MiB,
 each chunk hashed while it is flushed, its bytes then dropped from the page cache, and an image-header check at
 the end), against the same bytes sent as one plain HTTP PUT each to a route on the same app, behind the same
-device check, that streams them to a file and flushes it (goal ratio <= 1.3). Also reports ``resume_sent_share``: the share of a photo sent again after an upload cut at
-90 % (goal: at most the missing 10 % plus one chunk).
+device check, that streams them to a file and flushes it (goal ratio <= 1.3). Also reports ``resume_sent_share``:
+the share of a photo sent again after an upload cut at 90 % (goal: at most the missing 10 % plus one chunk).
 
 In both arms the camp server runs in its own process (uvicorn, the same app with the baseline's route added) and
 the tablet's side in the benchmark's: a tablet and a camp server are different machines, and in one process the
